@@ -1,0 +1,7 @@
+"""`python -m watcher` runs the same command line as `ionwarden`."""
+
+import sys
+
+from watcher.cli import main
+
+sys.exit(main())

@@ -1,0 +1,202 @@
+"""The typed configuration every stage reads; ``load()`` turns a YAML file into it or raises ConfigError.
+
+The types below are the contract between stages. Loading (safe YAML with line numbers, ``${ENV}``
+expansion, validation that names file, line and key) lives in ``watcher/configload.py``.
+Durations are seconds (``*_s``) in the types; users may write ``4h``/``30min``/``20s`` in YAML.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from watcher.records import Severity
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Instrument:
+    name: str = "instrument"
+    timezone: str = "UTC"  # IANA name; health-log days and the digest follow it
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Watch:
+    folders: tuple[Path, ...] = ()
+    patterns: tuple[str, ...] = ("*.mzML", "*.mzML.gz", "*.mzXML", "*.mgf")
+    ignore: tuple[str, ...] = ("*.tmp", "*.part", "~$*", ".*")
+    recursive: bool = True
+    settle_s: float = 10.0
+    polling: bool = False
+    poll_interval_s: float = 10.0
+    rescan_interval_s: float = 300.0
+    max_wait_s: float = 86400.0  # a file not complete by then becomes unreadable
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class IonSpec:
+    """An ion given one of three ways: ``mz``; ``formula`` + ``adduct`` + ``charge``; ``peptide`` + ``charge``.
+
+    ``adduct`` examples: ``+H``, ``+Na``, ``+K``, ``+NH4``, ``-H``, ``+e-`` style radicals as ``M+.``
+    (radical cation: electron removed) and ``M-.`` (radical anion). Resolution to m/z and the
+    expected (M+1)/M ratio is done by ``watcher.measure.ions.resolve``.
+    """
+
+    name: str
+    mz: float | None = None
+    formula: str | None = None
+    peptide: str | None = None
+    adduct: str | None = None
+    charge: int = 1  # signed by the adduct's sign for formula ions; peptides: [M+zH]z+
+    search_ppm: float = 20.0
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class ExpectedIon:
+    ion: IonSpec
+    rt_window_min: tuple[float, float] | None = None  # minutes, as users type them
+    min_intensity: float = 0.0
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class SignalSettings:
+    dropout_fraction: float = 0.1  # an MS1 scan is a dropout when TIC < this x run median TIC
+    dropout_min_scans: int = 1  # shortest run of low scans that counts as a dropout
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Condition:
+    """A condition on one value; exactly the fields that are set are tested (any one true fires).
+
+    Fixed: ``above``, ``below``, ``outside`` [lo, hi], ``inside`` [lo, hi], ``is_`` (bool).
+    Against a baseline: ``below_ratio``/``above_ratio`` (value / centre), ``diff_above``/
+    ``diff_below``/``diff_outside`` (value - centre), ``z_above``/``z_below``/``z_outside``
+    ((value - centre) / sd).
+    """
+
+    above: float | None = None
+    below: float | None = None
+    outside: tuple[float, float] | None = None
+    inside: tuple[float, float] | None = None
+    is_: bool | None = None
+    below_ratio: float | None = None
+    above_ratio: float | None = None
+    diff_above: float | None = None
+    diff_below: float | None = None
+    diff_outside: tuple[float, float] | None = None
+    z_above: float | None = None
+    z_below: float | None = None
+    z_outside: tuple[float, float] | None = None
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class BaselineSpec:
+    """Where a check's centre and spread come from.
+
+    Either the robust statistics of the last ``runs`` accepted runs of the same kind (median and
+    1.4826 x MAD), needing at least ``min_runs``; or fixed ``mean`` and ``sd`` set by the lab.
+    """
+
+    runs: int = 20
+    min_runs: int = 5
+    mean: float | None = None
+    sd: float | None = None
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class EwmaSpec:
+    lam: float = 0.2  # lambda, weight of the newest run
+    L: float = 3.0  # control-limit width in sigma of the EWMA statistic  # noqa: N815
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class CusumSpec:
+    k: float = 0.5  # allowance, in SD units
+    h: float = 5.0  # decision interval, in SD units
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class ForecastSpec:
+    runs: int = 10  # K: fit over the last K runs (this one included)
+    warn_within_h: float = 12.0  # a finding when the critical limit is reached within this
+    severity: Severity = Severity.NOTICE
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Check:
+    name: str
+    metric: str  # may contain '*' for one path segment, e.g. calibrant.*.median_ppm
+    applies_to: tuple[str, ...] = ()  # file-name globs, or 're:<regex>'; empty = every run
+    against: str | None = None  # None (fixed limits) or "baseline"
+    baseline: BaselineSpec = field(default_factory=BaselineSpec)
+    notice: Condition | None = None
+    warning: Condition | None = None
+    critical: Condition | None = None
+    for_runs: int = 1  # consecutive runs the condition must hold before it fires
+    westgard: tuple[str, ...] = ()  # e.g. ("1-3s", "2-2s", "R-4s", "10x")
+    westgard_severity: Severity = Severity.WARNING
+    ewma: EwmaSpec | None = None
+    cusum: CusumSpec | None = None
+    forecast: ForecastSpec | None = None
+    line: int | None = None  # where the check starts in the YAML, for messages
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Channel:
+    name: str
+    url: str  # secret: never logged unmasked
+    min_severity: Severity = Severity.WARNING
+    checks: tuple[str, ...] = ()  # empty = all checks
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Alerts:
+    channels: tuple[Channel, ...] = ()
+    remind_every_s: float | None = 4 * 3600.0  # None = never remind
+    send_cleared: bool = True
+    expect_run_every_s: float | None = None  # heartbeat; None = off
+    active_hours: tuple[str, str] | None = None  # ("18:00", "08:00") local; heartbeat only then
+    timeout_s: float = 30.0  # whole notify() call
+    connect_timeout_s: float = 10.0  # per URL (apprise cto)
+    read_timeout_s: float = 10.0  # per URL (apprise rto)
+    retry_for_s: float = 24 * 3600.0  # give up on a message older than this
+    plots: bool = False  # attach a PNG of the metric history where the channel takes attachments
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class HealthLog:
+    dir: Path | None = None  # default: <state_dir>/health
+    keep_days: int = 90
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Limits:
+    """Per-run measuring limits of the child process; both grow with file size."""
+
+    parse_timeout_s: float = 300.0
+    parse_timeout_s_per_gb: float = 300.0
+    parse_memory_mb: int = 2048
+    queue_max: int = 10000
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Config:
+    source: Path | None = None  # the YAML file, None for built-in defaults
+    instrument: Instrument = field(default_factory=Instrument)
+    watch: Watch = field(default_factory=Watch)
+    state_dir: Path | None = None
+    calibrants: tuple[IonSpec, ...] = ()
+    expected_ions: tuple[ExpectedIon, ...] = ()
+    signal: SignalSettings = field(default_factory=SignalSettings)
+    checks: tuple[Check, ...] = ()
+    alerts: Alerts = field(default_factory=Alerts)
+    health_log: HealthLog = field(default_factory=HealthLog)
+    limits: Limits = field(default_factory=Limits)
+    digest_at: str | None = None  # "07:30" local time: the daemon sends the digest then
+    log_keep_days: int = 30
+
+
+def load(path: Path | str) -> Config:
+    """Read and validate a YAML config; raises ConfigError listing every problem in line order."""
+    from watcher.configload import load_config
+
+    return load_config(Path(path))

@@ -1,0 +1,74 @@
+"""The exceptions ionwarden raises on purpose, each carrying what a person needs to find the cause.
+
+Tree::
+
+    IonwardenError
+    ├── ConfigError     a config file is wrong; carries every problem with file, line and key path
+    ├── ReadError       a run file cannot be measured; carries the file and a one-line reason
+    ├── StoreError      the state folder or database cannot be used (permissions, network mount)
+    └── DeliveryError   an alert channel cannot be set up (apprise refused the URL)
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+
+class IonwardenError(Exception):
+    """Base of every error ionwarden raises deliberately."""
+
+
+@dataclass(frozen=True, slots=True)
+class ConfigProblem:
+    """One thing wrong in a config file.
+
+    Attributes:
+        file: the config file's path as the user gave it.
+        line: 1-based line of the offending key or value; None when the key is missing entirely.
+        key_path: dotted/indexed path such as ``checks[2].critical.outside``.
+        message: what was expected and what came.
+    """
+
+    file: str
+    line: int | None
+    key_path: str
+    message: str
+
+    def __str__(self) -> str:
+        where = f"{self.file}:{self.line}" if self.line is not None else self.file
+        key = f" {self.key_path}:" if self.key_path else ""
+        return f"{where}:{key} {self.message}"
+
+
+class ConfigError(IonwardenError):
+    """A config file is invalid. ``problems`` lists every problem, in line order."""
+
+    def __init__(self, problems: list[ConfigProblem]) -> None:
+        self.problems = sorted(problems, key=lambda p: (p.line or 0, p.key_path))
+        super().__init__("\n".join(str(p) for p in self.problems))
+
+
+class ReadError(IonwardenError):
+    """A run file cannot be read completely; no metrics are produced from it.
+
+    Attributes:
+        path: the run file.
+        reason: one line, no traceback, paths cut to the file name.
+        kind: short machine-readable reason (``truncated``, ``corrupt``, ``xml-doctype``,
+            ``empty``, ``wrong-format``, ``unsupported``, ``timeout``, ``memory``, ``io``).
+    """
+
+    def __init__(self, path: Path | str, reason: str, *, kind: str = "corrupt") -> None:
+        self.path = Path(path)
+        self.reason = reason
+        self.kind = kind
+        super().__init__(f"{self.path.name}: unreadable: {reason}")
+
+
+class StoreError(IonwardenError):
+    """The state folder or its SQLite database cannot be used."""
+
+
+class DeliveryError(IonwardenError):
+    """An alert channel cannot be used (apprise refused its URL); names the channel, never the URL."""

@@ -1,0 +1,251 @@
+"""Frozen records passed between the stages: a run file, its metrics, findings, verdicts and alerts.
+
+Records hold scalars only (arrays stay inside ``watcher.measure``), so every record is hashable,
+comparable and cheap to serialise. ``RunMetrics.flat()`` is the single definition of the metric
+paths that checks, the store and the health log use, e.g. ``calibrant.siloxane-445.median_ppm``.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from dataclasses import dataclass, field
+from datetime import datetime
+from enum import StrEnum
+from pathlib import Path
+from typing import Any
+
+
+class Status(StrEnum):
+    """A run's status: the highest finding severity, or ``unreadable`` when it could not be measured."""
+
+    OK = "ok"
+    NOTICE = "notice"
+    WARNING = "warning"
+    CRITICAL = "critical"
+    UNREADABLE = "unreadable"
+
+
+class Severity(StrEnum):
+    """Finding severities, in the words of syslog (RFC 5424)."""
+
+    NOTICE = "notice"
+    WARNING = "warning"
+    CRITICAL = "critical"
+
+    @property
+    def rank(self) -> int:
+        """1 (notice) < 2 (warning) < 3 (critical), for comparisons."""
+        return _SEVERITY_RANK[self]
+
+
+_SEVERITY_RANK = {Severity.NOTICE: 1, Severity.WARNING: 2, Severity.CRITICAL: 3}
+
+STATUS_RANK: dict[Status, int] = {
+    Status.OK: 0,
+    Status.NOTICE: 1,
+    Status.WARNING: 2,
+    Status.CRITICAL: 3,
+    Status.UNREADABLE: 3,
+}
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class RunFile:
+    """One exported run file as intake saw it. ``sha256`` is None until the file was hashed."""
+
+    path: Path
+    size: int
+    mtime_ns: int
+    sha256: str | None = None
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class SignalMetrics:
+    """Signal strength and acquisition shape of one run, from MS1/MS2 spectrum headers and arrays."""
+
+    ms1_count: int
+    ms2_count: int
+    rt_start_s: float | None
+    rt_end_s: float | None
+    tic_median: float | None  # MS1 only
+    bpi_median: float | None  # MS1 base peak intensity
+    dropouts: int | None  # runs of MS1 scans with TIC < dropout_fraction x run median
+    longest_dropout_s: float | None
+    ms1_injection_time_ms_median: float | None = None
+    ms2_injection_time_ms_median: float | None = None
+    cycle_time_s_median: float | None = None  # MS1 -> next MS1
+    tic_rt25_s: float | None = None  # RT by which 25 % of the MS1 TIC has eluted
+    tic_rt50_s: float | None = None
+    tic_rt75_s: float | None = None
+    precursor_charges: tuple[tuple[int, int], ...] = ()  # (charge, MS2 count), charge 0 = unknown
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class CalibrantDrift:
+    """Mass error of one calibrant (lock mass) over a run's MS1 scans. None where never found."""
+
+    name: str
+    mz: float  # theoretical
+    median_ppm: float | None
+    mad_ppm: float | None  # median absolute deviation, unscaled
+    p05_ppm: float | None
+    p95_ppm: float | None
+    found_fraction: float  # share of MS1 scans in which the calibrant was found
+    median_intensity: float | None
+    slope_ppm_per_h: float | None  # Theil-Sen slope of ppm against RT
+    scans_found: int = 0
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class MassCorrection:
+    """Linear fit of mass error against m/z over two or more calibrants: ppm = a + b * mz."""
+
+    intercept_ppm: float
+    slope_ppm_per_mz: float
+    calibrants_used: int
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class ExpectedIonResult:
+    """Presence of one expected ion: its XIC apex over MS1 within the RT window."""
+
+    name: str
+    mz: float
+    found: bool
+    apex_rt_s: float | None
+    apex_intensity: float | None
+    ppm: float | None  # mass error at the apex
+    fwhm_s: float | None
+    m1_ratio: float | None  # observed (M+1)/M at the apex
+    m1_ratio_expected: float | None  # from the elemental composition; None for bare m/z ions
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class RunMetrics:
+    """Everything measured on one run. ``notes`` explain nulls (e.g. an MGF file has no MS1)."""
+
+    file: str
+    format: str  # mzML, mzML.gz, mzXML, MGF
+    acquired_at: datetime | None  # from the file (run startTimeStamp); None when absent
+    signal: SignalMetrics
+    calibrants: tuple[CalibrantDrift, ...] = ()
+    mass_correction: MassCorrection | None = None
+    expected_ions: tuple[ExpectedIonResult, ...] = ()
+    notes: tuple[str, ...] = ()
+
+    def flat(self) -> dict[str, float | bool | None]:
+        """Metric path -> value, the names that checks refer to.
+
+        ``signal.<key>``, ``calibrant.<name>.<key>``, ``expected_ion.<name>.<key>``,
+        ``expected_ions.found_fraction``, ``mass_correction.<key>``.
+        """
+        out: dict[str, float | bool | None] = {}
+        for f in dataclasses.fields(SignalMetrics):
+            value = getattr(self.signal, f.name)
+            if isinstance(value, int | float | bool) or value is None:
+                out[f"signal.{f.name}"] = value
+        for cal in self.calibrants:
+            for f in dataclasses.fields(CalibrantDrift):
+                if f.name != "name":
+                    out[f"calibrant.{cal.name}.{f.name}"] = getattr(cal, f.name)
+        for ion in self.expected_ions:
+            for f in dataclasses.fields(ExpectedIonResult):
+                if f.name != "name":
+                    out[f"expected_ion.{ion.name}.{f.name}"] = getattr(ion, f.name)
+        if self.expected_ions:
+            n_found = sum(1 for ion in self.expected_ions if ion.found)
+            out["expected_ions.found_fraction"] = n_found / len(self.expected_ions)
+            out["expected_ions.missing_count"] = float(len(self.expected_ions) - n_found)
+        if self.mass_correction is not None:
+            out["mass_correction.intercept_ppm"] = self.mass_correction.intercept_ppm
+            out["mass_correction.slope_ppm_per_mz"] = self.mass_correction.slope_ppm_per_mz
+        return out
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready nested dict (datetimes as ISO-8601 strings)."""
+        return _jsonable(dataclasses.asdict(self))
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Finding:
+    """A check that fired on a run.
+
+    Attributes:
+        check: the check's name from the config.
+        severity: notice, warning or critical.
+        metric: the metric path the check watches (a concrete one when the check used ``*``).
+        subject: what the finding is about, for alert identity (the metric path, or the check).
+        message: one sentence for a person on a phone: what, how far off, what it means.
+        value: the measured value (None when missing).
+        limit: the limit crossed, as text (``outside [-3, 3]``, ``below 0.3 x baseline``).
+        rule: the rule that fired (``limit``, ``2-2s``, ``ewma``, ``cusum``, ``forecast``, ...).
+        baseline: the baseline used, as text, or None.
+        forecast_h: hours until the critical limit is crossed at the current rate, if known.
+    """
+
+    check: str
+    severity: Severity
+    metric: str
+    subject: str
+    message: str
+    value: float | bool | None
+    limit: str
+    rule: str = "limit"
+    baseline: str | None = None
+    forecast_h: float | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        return _jsonable(dataclasses.asdict(self))
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Verdict:
+    """The judged outcome of one run: its status, why, and what was measured (None if unreadable)."""
+
+    run_file: RunFile
+    status: Status
+    error: str | None = None  # one line; set when status is unreadable
+    error_kind: str | None = None
+    metrics: RunMetrics | None = None
+    findings: tuple[Finding, ...] = ()
+    judged_at: datetime | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        return _jsonable(dataclasses.asdict(self))
+
+
+class AlertAction(StrEnum):
+    """What the alert state machine decided for one alert key."""
+
+    RAISE = "raise"
+    ESCALATE = "escalate"
+    REMIND = "remind"
+    CLEAR = "clear"
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class AlertEvent:
+    """One alert state change to tell people about. ``key`` is (instrument, check, subject)."""
+
+    key: tuple[str, str, str]
+    action: AlertAction
+    severity: Severity | None  # None for clear
+    run_file: str | None
+    at: datetime
+    findings: tuple[Finding, ...] = field(default=())
+
+
+def _jsonable(value: Any) -> Any:
+    if isinstance(value, dict):
+        return {str(k): _jsonable(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_jsonable(v) for v in value]
+    if isinstance(value, datetime):
+        return value.isoformat()
+    if isinstance(value, Path):
+        return str(value)
+    if isinstance(value, StrEnum):
+        return str(value)
+    if isinstance(value, float) and value != value:  # NaN is not JSON
+        return None
+    return value
