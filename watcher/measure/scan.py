@@ -1,0 +1,41 @@
+"""One spectrum as the readers hand it to the metric code: header scalars plus, for MS1, arrays.
+
+This is internal to ``watcher.measure`` (it holds numpy arrays, so it is not a stage record).
+Readers fill what the file carries and leave the rest None; they decode arrays only when
+asked (``want_arrays`` for MS1), so MS2 spectra never cost a decode.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import numpy.typing as npt
+
+FloatArray = npt.NDArray[np.float64]
+
+
+@dataclass(slots=True, kw_only=True)
+class Scan:
+    index: int  # 0-based position in the file
+    ms_level: int | None  # None: unknown (MGF spectra are treated as MS2)
+    rt_s: float | None  # scan start time in seconds; None when the file gives none
+    tic: float | None  # header TIC, or the array sum when arrays were decoded and no header
+    base_peak_mz: float | None
+    base_peak_intensity: float | None
+    injection_time_ms: float | None = None
+    precursor_mz: float | None = None
+    precursor_charge: int | None = None
+    is_profile: bool | None = None  # None: not stated
+    polarity: int | None = None  # +1, -1 or None
+    mz: FloatArray | None = None  # sorted ascending (readers sort if needed)
+    intensity: FloatArray | None = None
+
+
+@dataclass(slots=True, kw_only=True)
+class RunHeader:
+    """What a reader learns about the whole run before or while streaming it."""
+
+    format: str  # "mzML", "mzML.gz", "mzXML", "MGF"
+    acquired_at_iso: str | None = None  # run startTimeStamp as written, ISO-8601
+    n_spectra_declared: int | None = None
