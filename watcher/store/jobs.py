@@ -1,0 +1,245 @@
+"""The job table: one row per file identity (path, size, mtime_ns) and its state, plus daemon state.
+
+States run ``queued -> measuring -> done | failed``. A row left ``measuring`` by a crash goes back
+to ``queued`` at start-up (``requeue_interrupted``), so a run interrupted at any moment is measured
+again and judged once: the verdict, the alert step and ``done`` are committed in one transaction by
+the caller. Every function that writes expects to run inside ``db.write(conn)``; none of them
+parses, hashes or sends anything.
+"""
+
+from __future__ import annotations
+
+import sqlite3
+from dataclasses import dataclass
+from enum import StrEnum
+from pathlib import Path
+
+from watcher.store.db import register_schema
+
+
+class JobState(StrEnum):
+    QUEUED = "queued"
+    MEASURING = "measuring"
+    DONE = "done"
+    FAILED = "failed"
+
+
+SCHEMA = """
+CREATE TABLE IF NOT EXISTS jobs (
+    id INTEGER PRIMARY KEY,
+    path TEXT NOT NULL,
+    size INTEGER NOT NULL,
+    mtime_ns INTEGER NOT NULL,
+    sha256 TEXT,
+    state TEXT NOT NULL CHECK (state IN ('queued', 'measuring', 'done', 'failed')),
+    first_seen_s REAL NOT NULL,
+    updated_s REAL NOT NULL,
+    attempts INTEGER NOT NULL DEFAULT 0,
+    run_id INTEGER,
+    duplicate_of INTEGER REFERENCES jobs(id),
+    outcome TEXT,
+    health_written INTEGER NOT NULL DEFAULT 0,
+    verdict BLOB,
+    incomplete TEXT,
+    UNIQUE (path, size, mtime_ns)
+);
+CREATE INDEX IF NOT EXISTS jobs_state ON jobs (state, first_seen_s);
+CREATE INDEX IF NOT EXISTS jobs_sha256 ON jobs (sha256);
+CREATE TABLE IF NOT EXISTS daemon_state (
+    key TEXT PRIMARY KEY,
+    value TEXT NOT NULL
+);
+"""
+
+register_schema("jobs", SCHEMA)
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Job:
+    """One row of the job table."""
+
+    id: int
+    path: Path
+    size: int
+    mtime_ns: int
+    sha256: str | None
+    state: JobState
+    first_seen_s: float
+    attempts: int
+    run_id: int | None
+    duplicate_of: int | None
+    outcome: str | None
+    incomplete: str | None = None  # set: never completed; judge unreadable with this text
+
+
+def _job(row: sqlite3.Row) -> Job:
+    return Job(
+        id=row["id"],
+        path=Path(row["path"]),
+        size=row["size"],
+        mtime_ns=row["mtime_ns"],
+        sha256=row["sha256"],
+        state=JobState(row["state"]),
+        first_seen_s=row["first_seen_s"],
+        attempts=row["attempts"],
+        run_id=row["run_id"],
+        duplicate_of=row["duplicate_of"],
+        outcome=row["outcome"],
+        incomplete=row["incomplete"],
+    )
+
+
+_COLUMNS = (
+    "id, path, size, mtime_ns, sha256, state, first_seen_s, attempts, run_id, duplicate_of,"
+    " outcome, incomplete"
+)
+
+
+def enqueue(
+    conn: sqlite3.Connection,
+    path: Path,
+    size: int,
+    mtime_ns: int,
+    now_s: float,
+    *,
+    incomplete: str | None = None,
+) -> int | None:
+    """Add a settled file as ``queued``; returns its id, or None when this identity is known.
+
+    ``incomplete`` marks a file that never completed: the worker judges it unreadable with that
+    text instead of measuring it, through the same exactly-once path.
+    """
+    cur = conn.execute(
+        "INSERT OR IGNORE INTO jobs"
+        " (path, size, mtime_ns, state, first_seen_s, updated_s, incomplete)"
+        " VALUES (?, ?, ?, 'queued', ?, ?, ?)",
+        (str(path), size, mtime_ns, now_s, now_s, incomplete),
+    )
+    return cur.lastrowid if cur.rowcount == 1 else None
+
+
+def known(conn: sqlite3.Connection, path: Path, size: int, mtime_ns: int) -> bool:
+    """True when this exact identity already has a row (any state)."""
+    row = conn.execute(
+        "SELECT 1 FROM jobs WHERE path = ? AND size = ? AND mtime_ns = ?",
+        (str(path), size, mtime_ns),
+    ).fetchone()
+    return row is not None
+
+
+def known_identities(conn: sqlite3.Connection) -> set[tuple[str, int, int]]:
+    """Every (path, size, mtime_ns) in the table, for reconciling a folder scan in one query."""
+    rows = conn.execute("SELECT path, size, mtime_ns FROM jobs").fetchall()
+    return {(r[0], r[1], r[2]) for r in rows}
+
+
+def requeue_interrupted(conn: sqlite3.Connection, now_s: float) -> int:
+    """Start-up: rows left ``measuring`` by a crash go back to ``queued``; returns how many."""
+    cur = conn.execute(
+        "UPDATE jobs SET state = 'queued', updated_s = ? WHERE state = 'measuring'", (now_s,)
+    )
+    return cur.rowcount
+
+
+def claim_next(conn: sqlite3.Connection, now_s: float) -> Job | None:
+    """Take the oldest queued job (by first_seen_s, then mtime) and mark it ``measuring``."""
+    row = conn.execute(
+        f"SELECT {_COLUMNS} FROM jobs WHERE state = 'queued'"  # noqa: S608 - constant columns
+        " ORDER BY first_seen_s, mtime_ns, id LIMIT 1"
+    ).fetchone()
+    if row is None:
+        return None
+    conn.execute(
+        "UPDATE jobs SET state = 'measuring', attempts = attempts + 1, updated_s = ? WHERE id = ?",
+        (now_s, row["id"]),
+    )
+    return _job(row)
+
+
+def release(conn: sqlite3.Connection, job_id: int, now_s: float) -> None:
+    """Put a job being measured back to ``queued`` (shutdown while measuring)."""
+    conn.execute(
+        "UPDATE jobs SET state = 'queued', updated_s = ? WHERE id = ? AND state = 'measuring'",
+        (now_s, job_id),
+    )
+
+
+def set_hash(conn: sqlite3.Connection, job_id: int, sha256: str) -> None:
+    conn.execute("UPDATE jobs SET sha256 = ? WHERE id = ?", (sha256, job_id))
+
+
+def same_content(conn: sqlite3.Connection, sha256: str, job_id: int) -> Job | None:
+    """An earlier finished job with this content hash (under any name), or None."""
+    row = conn.execute(
+        f"SELECT {_COLUMNS} FROM jobs WHERE sha256 = ? AND id != ?"  # noqa: S608 - constant columns
+        " AND state = 'done' AND duplicate_of IS NULL ORDER BY id LIMIT 1",
+        (sha256, job_id),
+    ).fetchone()
+    return _job(row) if row is not None else None
+
+
+def finish(
+    conn: sqlite3.Connection,
+    job_id: int,
+    now_s: float,
+    *,
+    state: JobState,
+    outcome: str,
+    run_id: int | None = None,
+    duplicate_of: int | None = None,
+    verdict_blob: bytes | None = None,
+) -> None:
+    """Mark a job ``done`` or ``failed`` (in the same transaction as its verdict)."""
+    conn.execute(
+        "UPDATE jobs SET state = ?, outcome = ?, run_id = ?, duplicate_of = ?, verdict = ?,"
+        " updated_s = ? WHERE id = ?",
+        (str(state), outcome, run_id, duplicate_of, verdict_blob, now_s, job_id),
+    )
+
+
+def mark_health_written(conn: sqlite3.Connection, job_id: int) -> None:
+    conn.execute("UPDATE jobs SET health_written = 1 WHERE id = ?", (job_id,))
+
+
+def health_unwritten(conn: sqlite3.Connection) -> list[tuple[int, int | None, bytes]]:
+    """(job id, run_id, verdict blob) of done jobs whose health-log line may be missing."""
+    rows = conn.execute(
+        "SELECT id, run_id, verdict FROM jobs WHERE state = 'done' AND health_written = 0"
+        " AND verdict IS NOT NULL ORDER BY id"
+    ).fetchall()
+    return [(r[0], r[1], r[2]) for r in rows]
+
+
+def get(conn: sqlite3.Connection, job_id: int) -> Job | None:
+    row = conn.execute(
+        f"SELECT {_COLUMNS} FROM jobs WHERE id = ?",  # noqa: S608 - constant columns
+        (job_id,),
+    ).fetchone()
+    return _job(row) if row is not None else None
+
+
+def counts(conn: sqlite3.Connection) -> dict[str, int]:
+    """Rows per state (states with no rows are 0)."""
+    out = {str(s): 0 for s in JobState}
+    for state, n in conn.execute("SELECT state, count(*) FROM jobs GROUP BY state"):
+        out[state] = n
+    return out
+
+
+def last_arrival_s(conn: sqlite3.Connection) -> float | None:
+    """When the newest job was first seen (the heartbeat's "last run arrived")."""
+    row = conn.execute("SELECT max(first_seen_s) FROM jobs").fetchone()
+    return None if row is None or row[0] is None else float(row[0])
+
+
+def get_state(conn: sqlite3.Connection, key: str) -> str | None:
+    row = conn.execute("SELECT value FROM daemon_state WHERE key = ?", (key,)).fetchone()
+    return None if row is None else str(row[0])
+
+
+def set_state(conn: sqlite3.Connection, key: str, value: str) -> None:
+    conn.execute(
+        "INSERT INTO daemon_state (key, value) VALUES (?, ?)"
+        " ON CONFLICT (key) DO UPDATE SET value = excluded.value",
+        (key, value),
+    )
