@@ -1,0 +1,296 @@
+"""Ion m/z and expected isotope ratios from an IonSpec (bare m/z, formula + adduct, or peptide).
+
+Masses come from pyteomics' nuclide table (``pyteomics.mass.nist_mass``); the ion's m/z is
+computed here as (sum of nuclide masses - charge x electron mass) / |charge|, because pyteomics'
+``charge_carrier='Na+'`` adds a neutral sodium atom and comes out one electron mass high.
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Mapping
+from dataclasses import dataclass
+from functools import lru_cache
+
+import numpy as np
+from pyteomics import mass as pyt_mass
+
+from watcher.config import IonSpec
+
+ELECTRON_MASS_DA: float = float(pyt_mass.nist_mass["e-"][0][0])
+# 13C - 12C: the spacing of the M+1 peak of an organic ion at charge 1 (common practice).
+C13_SPACING_DA: float = float(pyt_mass.nist_mass["C"][13][0] - pyt_mass.nist_mass["C"][12][0])
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class ResolvedIon:
+    """An ion ready to search for: theoretical m/z, signed charge and expected isotope ratios."""
+
+    name: str
+    mz: float
+    charge: int  # signed: negative mode < 0
+    composition: tuple[tuple[str, int], ...] | None  # the ion's elements; None for a bare m/z
+    m1_ratio_expected: float | None  # (M+1)/M abundance ratio of nominal-mass clusters
+    m2_ratio_expected: float | None
+    search_ppm: float
+
+
+# Adduct building blocks: what "+X" adds to the molecule and the charge it brings.
+# "-H" removes a proton (charge -1); "+." and "-." remove or add an electron (radical ions).
+_CHARGED_UNITS: dict[str, tuple[dict[str, int], int]] = {
+    "H": ({"H": 1}, 1),
+    "Li": ({"Li": 1}, 1),
+    "Na": ({"Na": 1}, 1),
+    "K": ({"K": 1}, 1),
+    "NH4": ({"N": 1, "H": 4}, 1),
+    "Cl": ({"Cl": 1}, -1),
+    "Br": ({"Br": 1}, -1),
+    "HCOO": ({"C": 1, "H": 1, "O": 2}, -1),
+    "CH3COO": ({"C": 2, "H": 3, "O": 2}, -1),
+}
+_ADDUCT_TERM = re.compile(r"([+-])(\d*)([A-Z][A-Za-z0-9]*|\.)")
+_FORMULA_TOKEN = re.compile(r"([A-Z][a-z]?)(\d*)|(\()|(\))(\d*)")
+
+
+def ppm_error(mz_observed: float, mz_theoretical: float) -> float:
+    """Mass error in ppm: (observed - theoretical) / theoretical x 1e6."""
+    return (mz_observed - mz_theoretical) / mz_theoretical * 1e6
+
+
+def resolve(spec: IonSpec) -> ResolvedIon:
+    """Turn an IonSpec into an m/z, signed charge, composition and expected isotope ratios.
+
+    A formula or peptide without an adduct is protonated (``+H``) for a positive charge and
+    deprotonated (``-H``) for a negative one. ``charge: z`` with a single-charge adduct such as
+    ``+H`` means z of them: [M+zH]z+.
+
+    Raises:
+        ValueError: a bad formula, peptide, adduct or charge; the one-line message names the ion.
+    """
+    given = [k for k in ("mz", "formula", "peptide") if getattr(spec, k) is not None]
+    if len(given) != 1:
+        raise ValueError(
+            f"ion {spec.name!r}: give exactly one of mz, formula or peptide (got {given or 'none'})"
+        )
+    if spec.charge == 0:
+        raise ValueError(f"ion {spec.name!r}: charge must not be 0")
+    if not spec.search_ppm > 0:
+        raise ValueError(f"ion {spec.name!r}: search_ppm must be > 0, got {spec.search_ppm}")
+    if spec.mz is not None:
+        if not spec.mz > 0:
+            raise ValueError(f"ion {spec.name!r}: mz must be > 0, got {spec.mz}")
+        return ResolvedIon(
+            name=spec.name,
+            mz=float(spec.mz),
+            charge=spec.charge,
+            composition=None,
+            m1_ratio_expected=None,
+            m2_ratio_expected=None,
+            search_ppm=spec.search_ppm,
+        )
+    neutral = (
+        _formula_composition(spec.name, spec.formula)
+        if spec.formula is not None
+        else _peptide_composition(spec.name, spec.peptide or "")
+    )
+    adduct = spec.adduct if spec.adduct is not None else ("+H" if spec.charge > 0 else "-H")
+    delta, charge = _adduct_delta(spec.name, adduct, spec.charge)
+    ion: dict[str, int] = dict(neutral)
+    for element, count in delta.items():
+        ion[element] = ion.get(element, 0) + count
+    negative = sorted(e for e, n in ion.items() if n < 0)
+    if negative:
+        raise ValueError(
+            f"ion {spec.name!r}: adduct {adduct!r} removes more {', '.join(negative)} "
+            "than the molecule has"
+        )
+    ion = {e: n for e, n in ion.items() if n > 0}
+    mz = ion_mz(ion, charge)
+    m1, m2 = isotope_ratios(ion)
+    return ResolvedIon(
+        name=spec.name,
+        mz=mz,
+        charge=charge,
+        composition=tuple(sorted(ion.items())),
+        m1_ratio_expected=m1,
+        m2_ratio_expected=m2,
+        search_ppm=spec.search_ppm,
+    )
+
+
+def ion_mz(composition: Mapping[str, int], charge: int) -> float:
+    """m/z of an ion of this elemental composition: (sum of nuclide masses - z x m_e) / |z|."""
+    if charge == 0:
+        raise ValueError("charge must not be 0")
+    total_da = sum(n * float(pyt_mass.nist_mass[e][0][0]) for e, n in composition.items())
+    return (total_da - charge * ELECTRON_MASS_DA) / abs(charge)
+
+
+def isotope_ratios(composition: Mapping[str, int]) -> tuple[float, float]:
+    """(M+1)/M and (M+2)/M from the full natural abundances of every element.
+
+    Each element's isotopes are a polynomial in nominal-mass offset from its monoisotopic
+    (most abundant) isotope; the molecule's distribution is the exact product of those
+    polynomials, with no abundance threshold (so 2H and 17O count).
+    """
+    dist = np.ones(1, dtype=np.float64)
+    low = 0  # nominal-mass offset of dist[0]
+    for element, count in sorted(composition.items()):
+        if count <= 0:
+            continue
+        probs, element_low = _element_distribution(element)
+        dist = np.convolve(dist, _power(probs, count))
+        low += element_low * count
+    mono = -low
+    m0 = float(dist[mono])
+    m1 = float(dist[mono + 1]) if mono + 1 < dist.size else 0.0
+    m2 = float(dist[mono + 2]) if mono + 2 < dist.size else 0.0
+    return m1 / m0, m2 / m0
+
+
+@lru_cache(maxsize=128)
+def _element_distribution(element: str) -> tuple[np.ndarray[tuple[int], np.dtype[np.float64]], int]:
+    """Abundances indexed by nominal-mass offset, and the offset of index 0 (<= 0)."""
+    table = pyt_mass.nist_mass.get(element)
+    if table is None:
+        raise ValueError(f"unknown element {element!r}")
+    mono_mass = table[0][0]
+    isotopes = {a: ab for a, (_m, ab) in table.items() if a != 0 and ab > 0}
+    if not isotopes:
+        raise ValueError(f"element {element!r} has no natural isotopic abundance")
+    mono_a = min(isotopes, key=lambda a: abs(table[a][0] - mono_mass))
+    lo, hi = min(isotopes) - mono_a, max(isotopes) - mono_a
+    probs = np.zeros(hi - lo + 1, dtype=np.float64)
+    for a, ab in isotopes.items():
+        probs[a - mono_a - lo] = ab
+    return probs, lo
+
+
+def _power(
+    probs: np.ndarray[tuple[int], np.dtype[np.float64]], n: int
+) -> np.ndarray[tuple[int], np.dtype[np.float64]]:
+    """probs convolved with itself n times, by repeated squaring."""
+    result = np.ones(1, dtype=np.float64)
+    base = probs
+    while n:
+        if n & 1:
+            result = np.convolve(result, base)
+        n >>= 1
+        if n:
+            base = np.convolve(base, base)
+    return result
+
+
+def _formula_composition(name: str, formula: str) -> dict[str, int]:
+    """Elements of a neutral formula such as ``C8H10N4O2`` or ``(C2H6SiO)6``."""
+    text = formula.replace(" ", "")
+    if not text:
+        raise ValueError(f"ion {name!r}: formula is empty")
+    # pyteomics reads flat formulas only: expand parentheses first, then let it parse the rest.
+    try:
+        flat = _expand_groups(text)
+        composition = dict(pyt_mass.Composition(formula=_flat_string(flat)))
+    except (ValueError, pyt_mass.PyteomicsError) as exc:
+        raise ValueError(f"ion {name!r}: cannot read formula {formula!r}") from exc
+    for element in composition:
+        if element not in pyt_mass.nist_mass:
+            raise ValueError(f"ion {name!r}: formula {formula!r} has unknown element {element!r}")
+    return {e: int(n) for e, n in composition.items() if n}
+
+
+def _expand_groups(text: str) -> dict[str, int]:
+    stack: list[dict[str, int]] = [{}]
+    pos = 0
+    while pos < len(text):
+        match = _FORMULA_TOKEN.match(text, pos)
+        if match is None:
+            raise ValueError(f"unexpected {text[pos]!r} at position {pos + 1}")
+        element, count, opened, closed, group_count = match.groups()
+        if element:
+            stack[-1][element] = stack[-1].get(element, 0) + int(count or 1)
+        elif opened:
+            stack.append({})
+        elif closed:
+            if len(stack) == 1:
+                raise ValueError("unbalanced ')'")
+            group = stack.pop()
+            times = int(group_count or 1)
+            for e, n in group.items():
+                stack[-1][e] = stack[-1].get(e, 0) + n * times
+        pos = match.end()
+    if len(stack) != 1:
+        raise ValueError("unbalanced '('")
+    return stack[0]
+
+
+def _flat_string(composition: Mapping[str, int]) -> str:
+    return "".join(f"{e}{n}" for e, n in composition.items())
+
+
+def _peptide_composition(name: str, peptide: str) -> dict[str, int]:
+    """Elements of an unmodified peptide (one-letter codes, free termini H- and -OH)."""
+    sequence = peptide.strip().upper()
+    if not sequence.isalpha():
+        raise ValueError(f"ion {name!r}: peptide {peptide!r} must be one-letter amino-acid codes")
+    try:
+        composition = pyt_mass.Composition(sequence=sequence)
+    except pyt_mass.PyteomicsError as exc:
+        raise ValueError(f"ion {name!r}: peptide {peptide!r} has an unknown residue") from exc
+    return {e: int(n) for e, n in composition.items() if n}
+
+
+def _adduct_delta(name: str, adduct: str, charge: int) -> tuple[dict[str, int], int]:
+    """Elements the adduct adds (negative: removes) and the ion's signed charge."""
+    text = adduct.replace(" ", "")
+    stated_charge: int | None = None
+    bracket = re.fullmatch(r"\[(.*)\](\d*)([+-])\.?", text)
+    if bracket:
+        text = bracket.group(1)
+        stated_charge = int(bracket.group(2) or 1) * (1 if bracket.group(3) == "+" else -1)
+    text = text.removeprefix("M")
+    terms = _ADDUCT_TERM.findall(text)
+    if not terms or "".join(s + c + g for s, c, g in terms) != text:
+        raise ValueError(
+            f"ion {name!r}: cannot read adduct {adduct!r} "
+            "(examples: +H, +Na, +K, +NH4, -H, +Cl, M+., M-.)"
+        )
+    delta: dict[str, int] = {}
+    charged: list[tuple[dict[str, int], int, int]] = []  # (elements per unit, count, charge/unit)
+    for sign_text, count_text, group in terms:
+        sign = 1 if sign_text == "+" else -1
+        count = int(count_text or 1)
+        if group == ".":
+            # Radical ion: an electron removed (+.) or added (-.); no atoms change.
+            charged.append(({}, count, sign))
+            continue
+        if group in _CHARGED_UNITS:
+            elements, unit_charge = _CHARGED_UNITS[group]
+            charged.append(({e: sign * n for e, n in elements.items()}, count, sign * unit_charge))
+            continue
+        for e, n in _formula_composition(name, group).items():  # neutral gain or loss
+            delta[e] = delta.get(e, 0) + sign * count * n
+    if not charged:
+        raise ValueError(f"ion {name!r}: adduct {adduct!r} carries no charge")
+    net = sum(count * unit for _el, count, unit in charged)
+    explicit = stated_charge is not None or any(count > 1 for _el, count, _u in charged)
+    if len(charged) == 1 and not explicit and abs(charge) > 1:
+        # "+H" with charge 3 means three protons: [M+3H]3+.
+        elements, _count, unit = charged[0]
+        charged = [(elements, abs(charge), unit)]
+        net = abs(charge) * unit
+    if net == 0:
+        raise ValueError(f"ion {name!r}: adduct {adduct!r} leaves the ion neutral")
+    if stated_charge is not None and stated_charge != net:
+        raise ValueError(
+            f"ion {name!r}: adduct {adduct!r} states charge {stated_charge}, sums to {net}"
+        )
+    # charge 1 is the config default, so it never contradicts an adduct that sets the charge.
+    sign_conflict = charge != 1 and (charge < 0) != (net < 0)
+    if abs(charge) not in (1, abs(net)) or sign_conflict:
+        raise ValueError(
+            f"ion {name!r}: charge {charge} contradicts adduct {adduct!r} (charge {net})"
+        )
+    for elements, count, _unit in charged:
+        for e, n in elements.items():
+            delta[e] = delta.get(e, 0) + count * n
+    return delta, net

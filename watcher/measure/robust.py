@@ -1,0 +1,102 @@
+"""Robust statistics over small float sequences: median, MAD, percentiles, Theil-Sen and line fits.
+
+Pure numpy helpers shared by the metric modules; every function returns None instead of raising
+when there is too little data, so callers can pass the result straight into a record.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+
+from watcher.measure.scan import FloatArray
+
+# Theil-Sen holds every pairwise slope in memory: 2000 points -> 2.0 M slopes (16 MB). Longer
+# series are thinned to evenly spaced points, which keeps the fit deterministic and memory flat.
+THEIL_SEN_MAX_POINTS = 2000
+
+
+def as_array(values: Sequence[float] | FloatArray) -> FloatArray:
+    """A float64 copy-free view of ``values`` with NaNs removed."""
+    arr = np.asarray(values, dtype=np.float64)
+    return arr[np.isfinite(arr)]
+
+
+def median(values: Sequence[float] | FloatArray) -> float | None:
+    """Median of the finite values, None when there are none."""
+    arr = as_array(values)
+    return float(np.median(arr)) if arr.size else None
+
+
+def mad(values: Sequence[float] | FloatArray) -> float | None:
+    """Median absolute deviation from the median, unscaled (multiply by 1.4826 for a normal SD)."""
+    arr = as_array(values)
+    if not arr.size:
+        return None
+    return float(np.median(np.abs(arr - np.median(arr))))
+
+
+def percentile(values: Sequence[float] | FloatArray, q: float) -> float | None:
+    """The q-th percentile (0-100, linear interpolation between order statistics)."""
+    arr = as_array(values)
+    return float(np.percentile(arr, q)) if arr.size else None
+
+
+def theil_sen_slope(
+    x: Sequence[float] | FloatArray,
+    y: Sequence[float] | FloatArray,
+    *,
+    max_points: int = THEIL_SEN_MAX_POINTS,
+) -> float | None:
+    """Median of pairwise slopes (y_j - y_i) / (x_j - x_i) over pairs with distinct x.
+
+    Args:
+        x: abscissae (e.g. RT in seconds), same length as ``y``.
+        y: ordinates (e.g. ppm).
+        max_points: above this many points, evenly spaced points are used (deterministic).
+
+    Returns:
+        The slope in units of y per unit of x, or None with fewer than two distinct x values.
+    """
+    xs = np.asarray(x, dtype=np.float64)
+    ys = np.asarray(y, dtype=np.float64)
+    keep = np.isfinite(xs) & np.isfinite(ys)
+    xs, ys = xs[keep], ys[keep]
+    if xs.size > max_points:
+        pick = np.linspace(0, xs.size - 1, max_points).round().astype(np.int64)
+        xs, ys = xs[pick], ys[pick]
+    n = xs.size
+    if n < 2:
+        return None
+    slopes = np.empty(n * (n - 1) // 2, dtype=np.float64)
+    filled = 0
+    for i in range(n - 1):
+        dx = xs[i + 1 :] - xs[i]
+        dy = ys[i + 1 :] - ys[i]
+        ok = dx != 0
+        count = int(ok.sum())
+        slopes[filled : filled + count] = dy[ok] / dx[ok]
+        filled += count
+    if filled == 0:
+        return None
+    return float(np.median(slopes[:filled]))
+
+
+def line_fit(
+    x: Sequence[float] | FloatArray, y: Sequence[float] | FloatArray
+) -> tuple[float, float] | None:
+    """Ordinary least-squares line y = intercept + slope * x.
+
+    Returns:
+        (intercept, slope), or None with fewer than two distinct x values.
+    """
+    xs = np.asarray(x, dtype=np.float64)
+    ys = np.asarray(y, dtype=np.float64)
+    if xs.size < 2 or np.ptp(xs) == 0:
+        return None
+    x_mean = float(xs.mean())
+    y_mean = float(ys.mean())
+    dx = xs - x_mean
+    slope = float((dx * (ys - y_mean)).sum() / (dx * dx).sum())
+    return y_mean - slope * x_mean, slope

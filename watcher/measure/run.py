@@ -1,0 +1,195 @@
+"""Measure one run: stream its scans once through the signal, calibrant and expected-ion traces.
+
+``measure_scans`` is pure over in-memory scans; ``measure_file`` adds the file edge (completeness
+check, reader) and turns a file without spectra into a ReadError.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Iterable, Iterator
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+from watcher.config import Config, IonSpec
+from watcher.errors import ConfigError, ConfigProblem, ReadError
+from watcher.measure.calibrant import CalibrantTrace, mass_correction
+from watcher.measure.ions import ResolvedIon, resolve
+from watcher.measure.peaks import looks_profile
+from watcher.measure.scan import RunHeader, Scan
+from watcher.measure.signal import SignalTrace
+from watcher.measure.xic import XicTrace, absent
+from watcher.records import CalibrantDrift, RunMetrics
+
+NO_MS1_NOTE = "no MS1 spectra: calibrant and expected-ion metrics not available"
+NO_ARRAYS_NOTE = (
+    "MS1 spectra carry no peak arrays: calibrant and expected-ion metrics not available"
+)
+
+
+def measure_scans(
+    header: RunHeader, scans: Iterable[Scan], config: Config, *, file_name: str
+) -> RunMetrics:
+    """Compute every metric of one run in a single pass over its scans.
+
+    Args:
+        header: what the reader knows of the whole run (format, start time stamp).
+        scans: the run's spectra in file order; only MS1 scans need arrays.
+        config: calibrants, expected ions and signal settings.
+        file_name: the name reported in the metrics.
+
+    Raises:
+        ConfigError: an ion in the config cannot be resolved to an m/z.
+    """
+    calibrants = [CalibrantTrace(ion) for ion in _resolve_all(config, "calibrants")]
+    expected_specs = config.expected_ions
+    expected = [
+        XicTrace(
+            ion,
+            rt_window_s=None
+            if spec.rt_window_min is None
+            else (spec.rt_window_min[0] * 60.0, spec.rt_window_min[1] * 60.0),
+            min_intensity=spec.min_intensity,
+        )
+        for ion, spec in zip(_resolve_all(config, "expected_ions"), expected_specs, strict=True)
+    ]
+    signal = SignalTrace()
+    ms1_with_arrays = 0
+    for scan in scans:
+        signal.add(scan)
+        if scan.ms_level != 1 or not (calibrants or expected):
+            continue
+        mz, intensity = scan.mz, scan.intensity
+        has_arrays = mz is not None and intensity is not None and mz.size > 0
+        ms1_with_arrays += has_arrays
+        profile = bool(scan.is_profile)
+        if scan.is_profile is None and mz is not None and has_arrays:
+            profile = looks_profile(mz)
+        for cal in calibrants:
+            if _polarity_matches(cal.ion, scan):
+                cal.add(scan.rt_s, mz, intensity, profile=profile)
+        for xic in expected:
+            if _polarity_matches(xic.ion, scan) and xic.wants(scan.rt_s):
+                assert scan.rt_s is not None  # noqa: S101 - wants() rejects scans without RT
+                xic.add(scan.rt_s, mz, intensity, profile=profile)
+    signal_metrics = signal.summary(config.signal)
+    notes: list[str] = []
+    drifts: tuple[CalibrantDrift, ...] = tuple(cal.summary() for cal in calibrants)
+    if signal_metrics.ms1_count == 0:
+        if calibrants or expected:
+            notes.append(NO_MS1_NOTE)
+        ions = tuple(absent(xic.ion) for xic in expected)
+    else:
+        if (calibrants or expected) and ms1_with_arrays == 0:
+            notes.append(NO_ARRAYS_NOTE)
+        ions = tuple(xic.summary() for xic in expected)
+    acquired_at = _parse_acquired_at(header.acquired_at_iso)
+    if header.acquired_at_iso and acquired_at is None:
+        notes.append(f"run start time {header.acquired_at_iso!r} is not ISO-8601; ignored")
+    return RunMetrics(
+        file=file_name,
+        format=header.format,
+        acquired_at=acquired_at,
+        signal=signal_metrics,
+        calibrants=drifts,
+        mass_correction=mass_correction(drifts) if len(drifts) >= 2 else None,
+        expected_ions=ions,
+        notes=tuple(notes),
+    )
+
+
+def measure_file(
+    path: Path, config: Config, *, progress: Callable[[int, int], None] | None = None
+) -> RunMetrics:
+    """Measure a run file: check it is whole, stream it through the reader, compute the metrics.
+
+    Args:
+        path: the run file (mzML, mzML.gz, mzXML or MGF; the format comes from its content).
+        config: the lab's config.
+        progress: called as ``progress(done, total)`` while the reader works (units its own).
+
+    Raises:
+        ReadError: the file is truncated, corrupt, of no known format, or holds no spectra.
+        ConfigError: an ion in the config cannot be resolved.
+    """
+    from watcher import formats
+    from watcher.measure import read
+
+    formats.check_complete(path)
+    needs_arrays = bool(config.calibrants or config.expected_ions)
+    opened = read.open_run(path, ms1_arrays=needs_arrays, progress=progress)
+    with _OpenedRun(opened) as (header, scans):
+        metrics = measure_scans(header, scans, config, file_name=path.name)
+    if metrics.signal.ms1_count + metrics.signal.ms2_count == 0:
+        raise ReadError(path, "no spectra in file", kind="empty")
+    return metrics
+
+
+def _resolve_all(config: Config, key: str) -> list[ResolvedIon]:
+    specs: list[IonSpec] = (
+        list(config.calibrants)
+        if key == "calibrants"
+        else [expected.ion for expected in config.expected_ions]
+    )
+    resolved: list[ResolvedIon] = []
+    problems: list[ConfigProblem] = []
+    for i, spec in enumerate(specs):
+        try:
+            resolved.append(resolve(spec))
+        except ValueError as exc:
+            source = str(config.source) if config.source is not None else "<config>"
+            problems.append(ConfigProblem(source, None, f"{key}[{i}]", str(exc)))
+    if problems:
+        raise ConfigError(problems)
+    return resolved
+
+
+def _polarity_matches(ion: ResolvedIon, scan: Scan) -> bool:
+    """A positive ion is searched in positive or unlabelled scans, a negative one likewise."""
+    return scan.polarity is None or (scan.polarity > 0) == (ion.charge > 0)
+
+
+def _parse_acquired_at(text: str | None) -> datetime | None:
+    """The run start as an aware UTC datetime; a stamp without zone is taken as UTC."""
+    if not text:
+        return None
+    try:
+        stamp = datetime.fromisoformat(text.strip())
+    except ValueError:
+        return None
+    if stamp.tzinfo is None:
+        stamp = stamp.replace(tzinfo=UTC)
+    return stamp.astimezone(UTC)
+
+
+class _OpenedRun:
+    """Adapt what ``read.open_run`` returns to ``(header, scans)`` and close it afterwards.
+
+    Accepts a ``(header, scans)`` pair, or an object with a ``header`` attribute that iterates
+    scans (optionally a context manager, or with ``scans`` / ``close``).
+    """
+
+    def __init__(self, opened: Any) -> None:
+        self._opened = opened
+        self._entered: Any = None
+
+    def __enter__(self) -> tuple[RunHeader, Iterator[Scan]]:
+        opened = self._opened
+        if isinstance(opened, tuple):
+            header, scans = opened
+            return header, iter(scans)
+        if hasattr(opened, "__enter__"):
+            self._entered = opened.__enter__()
+            opened = self._entered if self._entered is not None else opened
+            if isinstance(opened, tuple):
+                header, scans = opened
+                return header, iter(scans)
+        header = opened.header
+        scans = opened.scans if hasattr(opened, "scans") else opened
+        return header, iter(scans() if callable(scans) else scans)
+
+    def __exit__(self, *exc_info: object) -> None:
+        if hasattr(self._opened, "__exit__"):
+            self._opened.__exit__(*exc_info)
+        elif hasattr(self._opened, "close"):
+            self._opened.close()

@@ -1,0 +1,208 @@
+"""Signal strength and acquisition shape of a run from spectrum headers: counts, TIC, dropouts.
+
+Keeps a few floats per MS1 scan (RT, TIC, base peak) and a few per MS2 scan, never spectra,
+so memory stays flat with run length. Knows nothing of rules or alerts.
+"""
+
+from __future__ import annotations
+
+import math
+from array import array
+from collections import Counter
+
+import numpy as np
+
+from watcher.config import SignalSettings
+from watcher.measure import robust
+from watcher.measure.scan import FloatArray, Scan
+from watcher.records import SignalMetrics
+
+_NAN = float("nan")
+
+
+class SignalTrace:
+    """Accumulates the per-scan header values the signal metrics need."""
+
+    __slots__ = (
+        "ms1_bpi",
+        "ms1_injection_ms",
+        "ms1_rt_s",
+        "ms1_tic",
+        "ms2_count",
+        "ms2_injection_ms",
+        "precursor_charges",
+        "rt_max_s",
+        "rt_min_s",
+    )
+
+    def __init__(self) -> None:
+        self.ms1_rt_s = array("d")  # NaN where unknown
+        self.ms1_tic = array("d")
+        self.ms1_bpi = array("d")
+        self.ms1_injection_ms = array("d")
+        self.ms2_injection_ms = array("d")
+        self.ms2_count = 0
+        self.precursor_charges: Counter[int] = Counter()
+        self.rt_min_s = math.inf
+        self.rt_max_s = -math.inf
+
+    def add(self, scan: Scan) -> None:
+        """Record one spectrum; MS level None (MGF) counts as MS2."""
+        if scan.rt_s is not None and math.isfinite(scan.rt_s):
+            self.rt_min_s = min(self.rt_min_s, scan.rt_s)
+            self.rt_max_s = max(self.rt_max_s, scan.rt_s)
+        if scan.ms_level == 1:
+            self.ms1_rt_s.append(_NAN if scan.rt_s is None else scan.rt_s)
+            self.ms1_tic.append(_or_nan(_tic(scan)))
+            self.ms1_bpi.append(_or_nan(_base_peak(scan)))
+            if scan.injection_time_ms is not None:
+                self.ms1_injection_ms.append(scan.injection_time_ms)
+            return
+        self.ms2_count += 1
+        if scan.injection_time_ms is not None:
+            self.ms2_injection_ms.append(scan.injection_time_ms)
+        self.precursor_charges[scan.precursor_charge or 0] += 1
+
+    def summary(self, settings: SignalSettings) -> SignalMetrics:
+        """The run's signal record."""
+        rt = np.frombuffer(self.ms1_rt_s, dtype=np.float64)
+        tic = np.frombuffer(self.ms1_tic, dtype=np.float64)
+        if rt.size and np.isfinite(rt).all():
+            # RTs need not increase in file order; dropouts and cycles follow acquisition time.
+            order = np.argsort(rt, kind="stable")
+            rt, tic = rt[order], tic[order]
+        cycle_s = median_cycle_s(rt)
+        tic_median = robust.median(tic)
+        dropouts: int | None = None
+        longest_s: float | None = None
+        if tic.size and tic_median is not None:
+            dropouts, longest_s = find_dropouts(
+                tic,
+                rt,
+                threshold=settings.dropout_fraction * tic_median,
+                min_scans=settings.dropout_min_scans,
+                cycle_s=cycle_s,
+            )
+        q25, q50, q75 = tic_quantile_rts(rt, tic, (0.25, 0.5, 0.75))
+        has_rt = self.rt_min_s <= self.rt_max_s
+        return SignalMetrics(
+            ms1_count=int(rt.size),
+            ms2_count=self.ms2_count,
+            rt_start_s=self.rt_min_s if has_rt else None,
+            rt_end_s=self.rt_max_s if has_rt else None,
+            tic_median=tic_median,
+            bpi_median=robust.median(self.ms1_bpi),
+            dropouts=dropouts,
+            longest_dropout_s=longest_s,
+            ms1_injection_time_ms_median=robust.median(self.ms1_injection_ms),
+            ms2_injection_time_ms_median=robust.median(self.ms2_injection_ms),
+            cycle_time_s_median=cycle_s,
+            tic_rt25_s=q25,
+            tic_rt50_s=q50,
+            tic_rt75_s=q75,
+            precursor_charges=tuple(sorted(self.precursor_charges.items())),
+        )
+
+
+def median_cycle_s(rt_s: FloatArray) -> float | None:
+    """Median RT step between consecutive MS1 scans (ascending RT), ignoring unknown RTs."""
+    known = rt_s[np.isfinite(rt_s)]
+    if known.size < 2:
+        return None
+    return float(np.median(np.diff(np.sort(known))))
+
+
+def find_dropouts(
+    tic: FloatArray,
+    rt_s: FloatArray,
+    *,
+    threshold: float,
+    min_scans: int,
+    cycle_s: float | None,
+) -> tuple[int, float | None]:
+    """Count runs of consecutive MS1 scans with TIC below ``threshold``.
+
+    Args:
+        tic: MS1 TIC in acquisition order (NaN = unknown, never low).
+        rt_s: MS1 RT in seconds, same order (NaN = unknown).
+        threshold: TIC below this is a dropout scan (e.g. 0.1 x run median).
+        min_scans: a run of low scans counts only when at least this long.
+        cycle_s: median MS1 cycle, to size a dropout whose end or start has no RT.
+
+    Returns:
+        (count, longest duration in seconds). A dropout lasts from its first low scan to the
+        next normal scan; at the end of the run, or without RTs, it is scans x median cycle.
+        The duration is None when neither is known; 0.0 when there is no dropout.
+    """
+    low = tic < threshold  # NaN compares False: unknown TIC is not a dropout
+    count = 0
+    longest: float | None = 0.0
+    i = 0
+    n = int(low.size)
+    while i < n:
+        if not low[i]:
+            i += 1
+            continue
+        start = i
+        while i < n and low[i]:
+            i += 1
+        length = i - start
+        if length < max(min_scans, 1):
+            continue
+        count += 1
+        duration: float | None = None
+        if i < n and math.isfinite(rt_s[start]) and math.isfinite(rt_s[i]):
+            duration = float(rt_s[i] - rt_s[start])
+        elif cycle_s is not None:
+            duration = length * cycle_s
+        if duration is None:
+            longest = None
+        elif longest is not None:
+            longest = max(longest, duration)
+    return count, longest
+
+
+def tic_quantile_rts(
+    rt_s: FloatArray, tic: FloatArray, fractions: tuple[float, ...]
+) -> tuple[float | None, ...]:
+    """RT by which each fraction of the summed MS1 TIC has eluted (linear within a scan step)."""
+    keep = np.isfinite(rt_s) & np.isfinite(tic)
+    rt, values = rt_s[keep], tic[keep]
+    if not rt.size or not values.sum() > 0:
+        return tuple(None for _ in fractions)
+    order = np.argsort(rt, kind="stable")
+    rt, cum = rt[order], np.cumsum(values[order])
+    total = float(cum[-1])
+    out: list[float | None] = []
+    for fraction in fractions:
+        target = fraction * total
+        k = int(np.searchsorted(cum, target, side="left"))
+        if k == 0:
+            out.append(float(rt[0]))
+            continue
+        step = float(cum[k] - cum[k - 1])
+        share = (target - float(cum[k - 1])) / step if step > 0 else 1.0
+        out.append(float(rt[k - 1] + share * (rt[k] - rt[k - 1])))
+    return tuple(out)
+
+
+def _tic(scan: Scan) -> float | None:
+    """Header TIC, else the sum of the decoded intensities."""
+    if scan.tic is not None:
+        return scan.tic
+    if scan.intensity is not None:
+        return float(scan.intensity.sum())
+    return None
+
+
+def _base_peak(scan: Scan) -> float | None:
+    """Header base-peak intensity, else the largest decoded intensity."""
+    if scan.base_peak_intensity is not None:
+        return scan.base_peak_intensity
+    if scan.intensity is not None and scan.intensity.size:
+        return float(scan.intensity.max())
+    return None
+
+
+def _or_nan(value: float | None) -> float:
+    return _NAN if value is None else float(value)

@@ -1,0 +1,131 @@
+"""Expected-ion presence: an XIC over MS1 inside the ion's RT window, its apex, width and M+1/M.
+
+Per MS1 scan the ion's peak is found as the calibrants' are (most intense centroid, or the
+refined height of the local profile peak, since a +-10 ppm sum over profile data holds only 1-2
+samples of a 30-40 ppm wide peak). Knows nothing of rules or alerts.
+"""
+
+from __future__ import annotations
+
+import math
+from array import array
+
+import numpy as np
+
+from watcher.measure.ions import C13_SPACING_DA, ResolvedIon, ppm_error
+from watcher.measure.peaks import find_peak, refine_apex
+from watcher.measure.scan import FloatArray
+from watcher.records import ExpectedIonResult
+
+
+class XicTrace:
+    """Per-scan intensity, peak m/z and M+1 intensity of one expected ion within its RT window."""
+
+    __slots__ = ("intensity", "ion", "m1_intensity", "min_intensity", "mz", "rt_s", "window_s")
+
+    def __init__(
+        self,
+        ion: ResolvedIon,
+        *,
+        rt_window_s: tuple[float, float] | None,
+        min_intensity: float,
+    ) -> None:
+        self.ion = ion
+        self.window_s = rt_window_s
+        self.min_intensity = min_intensity
+        self.rt_s = array("d")
+        self.intensity = array("d")  # 0.0 where not found in the scan
+        self.mz = array("d")  # NaN where not found
+        self.m1_intensity = array("d")  # 0.0 where not found
+
+    def wants(self, rt_s: float | None) -> bool:
+        """Whether a scan at this RT lies in the window (a scan without RT never does)."""
+        if rt_s is None or not math.isfinite(rt_s):
+            return False
+        return self.window_s is None or self.window_s[0] <= rt_s <= self.window_s[1]
+
+    def add(
+        self,
+        rt_s: float,
+        mz: FloatArray | None,
+        intensity: FloatArray | None,
+        *,
+        profile: bool,
+    ) -> None:
+        """Measure one MS1 scan that lies in the window."""
+        self.rt_s.append(rt_s)
+        peak = None
+        m1 = None
+        if mz is not None and intensity is not None and mz.size:
+            peak = find_peak(mz, intensity, self.ion.mz, self.ion.search_ppm, profile=profile)
+            if peak is not None:
+                m1_target = self.ion.mz + C13_SPACING_DA / abs(self.ion.charge)
+                m1 = find_peak(mz, intensity, m1_target, self.ion.search_ppm, profile=profile)
+        self.intensity.append(0.0 if peak is None else peak[1])
+        self.mz.append(float("nan") if peak is None else peak[0])
+        self.m1_intensity.append(0.0 if m1 is None else m1[1])
+
+    def summary(self) -> ExpectedIonResult:
+        """The ion's result; not seen in the window gives found False and None elsewhere."""
+        rt = np.frombuffer(self.rt_s, dtype=np.float64)
+        height = np.frombuffer(self.intensity, dtype=np.float64)
+        order = np.argsort(rt, kind="stable")  # RTs need not increase in file order
+        rt, height = rt[order], height[order]
+        peak_mz = np.frombuffer(self.mz, dtype=np.float64)[order]
+        m1 = np.frombuffer(self.m1_intensity, dtype=np.float64)[order]
+        if not height.size or not height.max() > 0:
+            return absent(self.ion)
+        top = int(np.argmax(height))
+        # Apex between scans: the same 3-point Gaussian refinement as in m/z, over RT.
+        apex_rt_s, apex_intensity = refine_apex(rt, height, top)
+        return ExpectedIonResult(
+            name=self.ion.name,
+            mz=self.ion.mz,
+            found=apex_intensity >= self.min_intensity,
+            apex_rt_s=apex_rt_s,
+            apex_intensity=apex_intensity,
+            ppm=ppm_error(float(peak_mz[top]), self.ion.mz),
+            fwhm_s=fwhm(rt, height, top, apex_intensity / 2),
+            m1_ratio=float(m1[top] / height[top]),
+            m1_ratio_expected=self.ion.m1_ratio_expected,
+        )
+
+
+def absent(ion: ResolvedIon) -> ExpectedIonResult:
+    """The result for an ion never seen (or a run without MS1 spectra)."""
+    return ExpectedIonResult(
+        name=ion.name,
+        mz=ion.mz,
+        found=False,
+        apex_rt_s=None,
+        apex_intensity=None,
+        ppm=None,
+        fwhm_s=None,
+        m1_ratio=None,
+        m1_ratio_expected=ion.m1_ratio_expected,
+    )
+
+
+def fwhm(rt_s: FloatArray, height: FloatArray, top: int, half: float) -> float | None:
+    """Full width at ``half`` height around sample ``top``, linear between the crossing scans.
+
+    None when the XIC does not fall to half height on both sides inside the window.
+    """
+    left = top
+    while left > 0 and height[left] >= half:
+        left -= 1
+    right = top
+    last = height.size - 1
+    while right < last and height[right] >= half:
+        right += 1
+    if height[left] >= half or height[right] >= half:
+        return None
+    rt_left = _crossing(rt_s[left], height[left], rt_s[left + 1], height[left + 1], half)
+    rt_right = _crossing(rt_s[right - 1], height[right - 1], rt_s[right], height[right], half)
+    return rt_right - rt_left
+
+
+def _crossing(x0: float, y0: float, x1: float, y1: float, level: float) -> float:
+    if y1 == y0:
+        return float(x0)
+    return float(x0 + (level - y0) * (x1 - x0) / (y1 - y0))
