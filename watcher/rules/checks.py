@@ -1,0 +1,212 @@
+"""Which checks apply to a run, which metric paths they watch, and whether a condition holds.
+
+- ``applies_to``: a check applies when the list is empty or any entry matches the run's file
+  name: an entry ``re:<regex>`` is searched with ``re.fullmatch``, any other entry is a glob
+  matched case-sensitively (``fnmatch.fnmatchcase``), so ``QC_*.mzML`` never matches
+  ``qc_1.mzml`` on one machine and not on another.
+- Metric paths: ``*`` stands for one or more characters, so ``calibrant.*.median_ppm`` expands
+  to one path per calibrant in ``RunMetrics.flat()`` (names may themselves contain dots).
+- Missing values: a metric that is None or NaN was not measured; no condition holds on it, so it
+  gives no finding (``expected_ion.<name>.found`` is always a bool, so ``is: false`` still works).
+- Conditions: numeric fields test only numbers and ``is`` tests only booleans; the baseline
+  fields (ratio, difference, z) hold only when a baseline exists, and z only when its SD > 0.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import functools
+import math
+import re
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
+from fnmatch import fnmatchcase
+
+from watcher.config import Condition
+from watcher.errors import ConfigError, ConfigProblem
+from watcher.rules.baseline import Baseline
+
+REGEX_PREFIX = "re:"
+
+Value = float | bool | None
+Bounds = tuple[float, float]
+
+
+@functools.lru_cache(maxsize=256)
+def _compiled(pattern: str) -> re.Pattern[str]:
+    try:
+        return re.compile(pattern)
+    except re.error as exc:
+        raise ConfigError(
+            [ConfigProblem("", None, "applies_to", f"invalid regex {pattern!r}: {exc}")]
+        ) from exc
+
+
+def applies(applies_to: Sequence[str], file_name: str) -> bool:
+    """Whether a check with these ``applies_to`` patterns applies to a run named ``file_name``."""
+    if not applies_to:
+        return True
+    for pattern in applies_to:
+        if pattern.startswith(REGEX_PREFIX):
+            if _compiled(pattern[len(REGEX_PREFIX) :]).fullmatch(file_name):
+                return True
+        elif fnmatchcase(file_name, pattern):
+            return True
+    return False
+
+
+@functools.lru_cache(maxsize=256)
+def _metric_regex(pattern: str) -> re.Pattern[str]:
+    return re.compile(".+".join(re.escape(part) for part in pattern.split("*")))
+
+
+def expand(pattern: str, paths: Iterable[str]) -> list[str]:
+    """The concrete metric paths that ``pattern`` names, in the order of ``paths``."""
+    if "*" not in pattern:
+        return [p for p in paths if p == pattern]
+    regex = _metric_regex(pattern)
+    return [p for p in paths if regex.fullmatch(p)]
+
+
+def is_missing(value: Value) -> bool:
+    """A value that was not measured: None or NaN."""
+    return value is None or (isinstance(value, float) and math.isnan(value))
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Hit:
+    """The part of a condition that held.
+
+    Attributes:
+        field: the condition field (``outside``, ``below_ratio``, ``z_above``, ...).
+        threshold: its configured value.
+        compared: the number compared with it: the value itself, value / centre, value - centre
+            or the z-score.
+        limit: short text of the limit, e.g. ``outside [-5, 5]``, ``below 0.3 x baseline``.
+    """
+
+    field: str
+    threshold: float | Bounds | bool
+    compared: float | bool
+    limit: str
+
+
+def _num(x: float) -> str:
+    return f"{x:g}"
+
+
+def _bounds(b: Bounds) -> str:
+    return f"[{_num(b[0])}, {_num(b[1])}]"
+
+
+def limit_text(field: str, threshold: float | Bounds | bool) -> str:
+    """Short text for one condition field, as shown in ``Finding.limit``."""
+    if isinstance(threshold, bool):
+        return f"is {str(threshold).lower()}"
+    if isinstance(threshold, tuple):
+        prefix = {"diff_outside": "baseline difference ", "z_outside": "z "}.get(field, "")
+        word = "inside" if field == "inside" else "outside"
+        return f"{prefix}{word} {_bounds(threshold)}"
+    texts = {
+        "above": f"above {_num(threshold)}",
+        "below": f"below {_num(threshold)}",
+        "below_ratio": f"below {_num(threshold)} x baseline",
+        "above_ratio": f"above {_num(threshold)} x baseline",
+        "diff_above": f"baseline difference above {_num(threshold)}",
+        "diff_below": f"baseline difference below {_num(threshold)}",
+        "z_above": f"z above {_num(threshold)}",
+        "z_below": f"z below {_num(threshold)}",
+    }
+    return texts[field]
+
+
+def _holds(field: str, threshold: float | Bounds, x: float) -> bool:
+    if isinstance(threshold, tuple):
+        lo, hi = threshold
+        inside = lo <= x <= hi
+        return inside if field == "inside" else not inside
+    if field.endswith("above"):
+        return x > threshold
+    if field == "above_ratio":
+        return x > threshold
+    return x < threshold  # below, below_ratio, diff_below, z_below
+
+
+def _compared(field: str, value: float, baseline: Baseline | None) -> float | None:
+    if field in ("above", "below", "outside", "inside"):
+        return value
+    if baseline is None:
+        return None
+    if field.endswith("_ratio"):
+        return value / baseline.centre if baseline.centre != 0.0 else None
+    if field.startswith("diff_"):
+        return value - baseline.centre
+    return baseline.z(value)  # z_*
+
+
+def evaluate(condition: Condition, value: Value, baseline: Baseline | None = None) -> Hit | None:
+    """The first field of ``condition`` (in declaration order) that holds for ``value``, or None.
+
+    Args:
+        condition: the severity's condition.
+        value: the measured value; None/NaN never satisfies anything.
+        baseline: the check's baseline, needed by the ratio, difference and z fields.
+    """
+    if is_missing(value):
+        return None
+    for f in dataclasses.fields(Condition):
+        threshold = getattr(condition, f.name)
+        if threshold is None:
+            continue
+        name = f.name.rstrip("_")  # the YAML key ``is`` is the field ``is_``
+        if name == "is":
+            if isinstance(value, bool) and value == threshold:
+                return Hit(
+                    field=name,
+                    threshold=threshold,
+                    compared=value,
+                    limit=limit_text(name, threshold),
+                )
+            continue
+        if isinstance(value, bool) or value is None:
+            continue
+        compared = _compared(name, float(value), baseline)
+        if compared is None or not math.isfinite(compared):
+            continue
+        bounds: float | Bounds = (
+            (float(threshold[0]), float(threshold[1]))
+            if isinstance(threshold, list | tuple)
+            else float(threshold)
+        )
+        if _holds(name, bounds, compared):
+            return Hit(
+                field=name,
+                threshold=bounds,
+                compared=compared,
+                limit=limit_text(name, bounds),
+            )
+    return None
+
+
+def needs_baseline(condition: Condition | None) -> bool:
+    """Whether the condition has a ratio, difference or z field."""
+    if condition is None:
+        return False
+    return any(
+        getattr(condition, f.name) is not None
+        for f in dataclasses.fields(Condition)
+        if f.name.endswith("_ratio") or f.name.startswith(("diff_", "z_"))
+    )
+
+
+def critical_bounds(condition: Condition | None) -> tuple[float | None, float | None]:
+    """(upper, lower): the fixed values beyond which a run is critical, for the forecast."""
+    if condition is None:
+        return None, None
+    upper = condition.above
+    lower = condition.below
+    if condition.outside is not None:
+        lo, hi = condition.outside
+        upper = hi if upper is None else min(upper, hi)
+        lower = lo if lower is None else max(lower, lo)
+    return upper, lower

@@ -1,0 +1,151 @@
+"""Drift statistics over a run history: EWMA, tabular CUSUM and a Theil-Sen forecast to a limit.
+
+Formulas from the NIST/SEMATECH e-Handbook of Statistical Methods: EWMA control chart (section
+6.3.2.4) with the exact, time-varying limits, and the tabular CUSUM (section 6.3.2.3) on
+standardised values. Pure functions: values in, numbers out.
+"""
+
+from __future__ import annotations
+
+import math
+import statistics
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class EwmaPoint:
+    """The EWMA statistic after one run and its control limits (metric units)."""
+
+    ewma: float
+    lower: float
+    upper: float
+
+    @property
+    def is_out(self) -> bool:
+        return self.ewma > self.upper or self.ewma < self.lower
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class CusumPoint:
+    """Upper and lower tabular CUSUM sums after one run, in SD units."""
+
+    s_hi: float
+    s_lo: float
+
+
+def ewma(
+    values: Sequence[float], *, mean: float, sd: float, lam: float, L: float
+) -> list[EwmaPoint]:
+    """EWMA statistic and limits for each value, oldest first.
+
+    ``z_t = lam * x_t + (1 - lam) * z_{t-1}`` with ``z_0 = mean``; limits
+    ``mean +- L * sd * sqrt(lam / (2 - lam) * (1 - (1 - lam)^(2t)))`` for t = 1, 2, ...
+    """
+    if not 0.0 < lam <= 1.0:
+        raise ValueError(f"EWMA lambda must be in (0, 1], got {lam}")
+    out: list[EwmaPoint] = []
+    z = mean
+    for t, x in enumerate(values, start=1):
+        z = lam * x + (1.0 - lam) * z
+        half_width = L * sd * math.sqrt(lam / (2.0 - lam) * (1.0 - (1.0 - lam) ** (2 * t)))
+        out.append(EwmaPoint(ewma=z, lower=mean - half_width, upper=mean + half_width))
+    return out
+
+
+def cusum(values: Sequence[float], *, mean: float, sd: float, k: float) -> list[CusumPoint]:
+    """Tabular CUSUM on standardised values ``z = (x - mean) / sd``, oldest first.
+
+    ``S_hi = max(0, S_hi + z - k)``, ``S_lo = max(0, S_lo - z - k)``, both starting at 0; a
+    signal is a sum above the decision interval h (compared by the caller). The sums are not
+    reset after a signal: while the shift persists, every further run keeps signalling.
+    """
+    if sd <= 0.0:
+        raise ValueError(f"CUSUM needs a positive SD, got {sd}")
+    s_hi = s_lo = 0.0
+    out: list[CusumPoint] = []
+    for x in values:
+        z = (x - mean) / sd
+        s_hi = max(0.0, s_hi + z - k)
+        s_lo = max(0.0, s_lo - z - k)
+        out.append(CusumPoint(s_hi=s_hi, s_lo=s_lo))
+    return out
+
+
+def theil_sen(xs: Sequence[float], ys: Sequence[float]) -> tuple[float, float]:
+    """Slope (median of pairwise slopes) and intercept (median of y - slope x) of a robust line.
+
+    Raises:
+        ValueError: with fewer than two distinct x values.
+    """
+    if len(xs) != len(ys):
+        raise ValueError("theil_sen needs as many x as y values")
+    slopes = [
+        (ys[j] - ys[i]) / (xs[j] - xs[i])
+        for i in range(len(xs))
+        for j in range(i + 1, len(xs))
+        if xs[j] != xs[i]
+    ]
+    if not slopes:
+        raise ValueError("theil_sen needs at least two distinct x values")
+    slope = statistics.median(slopes)
+    intercept = statistics.median(y - slope * x for x, y in zip(xs, ys, strict=True))
+    return slope, intercept
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Forecast:
+    """Where a robust linear drift is heading.
+
+    Attributes:
+        slope_per_h: metric units per hour (Theil-Sen over acquisition time).
+        fitted_now: the fitted line at the current run's acquisition time.
+        limit: the limit the line heads for.
+        hours: hours from the current run until the line crosses ``limit`` (> 0).
+    """
+
+    slope_per_h: float
+    fitted_now: float
+    limit: float
+    hours: float
+
+
+MIN_FORECAST_POINTS = 4
+
+
+def forecast(
+    times_h: Sequence[float],
+    values: Sequence[float],
+    *,
+    upper: float | None,
+    lower: float | None,
+) -> Forecast | None:
+    """Hours until the Theil-Sen line through (time, value) crosses ``upper`` or ``lower``.
+
+    Args:
+        times_h: acquisition times in hours, oldest first; the last one is the current run.
+        values: the metric at those times.
+        upper: the value above which the run would be critical (None: no upper limit).
+        lower: the value below which the run would be critical (None: no lower limit).
+
+    Returns:
+        None with fewer than ``MIN_FORECAST_POINTS`` points, a flat line, a line heading away from
+        every limit, or a fitted value already beyond the limit it heads for.
+    """
+    if len(times_h) < MIN_FORECAST_POINTS:
+        return None
+    try:
+        slope, intercept = theil_sen(times_h, values)
+    except ValueError:
+        return None
+    fitted_now = intercept + slope * times_h[-1]
+    if slope > 0.0 and upper is not None:
+        limit = upper
+    elif slope < 0.0 and lower is not None:
+        limit = lower
+    else:
+        return None
+    hours = (limit - fitted_now) / slope
+    if not hours > 0.0 or not math.isfinite(hours):
+        return None
+    return Forecast(slope_per_h=slope, fitted_now=fitted_now, limit=limit, hours=hours)
