@@ -7,6 +7,9 @@ Durations are seconds (``*_s``) in the types; users may write ``4h``/``30min``/`
 
 from __future__ import annotations
 
+import dataclasses
+import difflib
+from collections.abc import Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -200,3 +203,71 @@ def load(path: Path | str) -> Config:
     from watcher.configload import load_config
 
     return load_config(Path(path))
+
+
+WESTGARD_RULES: tuple[str, ...] = ("1-2s", "1-3s", "2-2s", "R-4s", "4-1s", "10x")
+"""Westgard multi-rule names (Westgard, Barry, Hunt, Groth, Clin. Chem. 27 (1981) 493-501)."""
+
+
+def load_default() -> Config:
+    """The embedded default config (the demo scenario), read from ``watcher/data/default.yaml``."""
+    from importlib.resources import files
+
+    from watcher.configload import load_config_text
+
+    text = files("watcher").joinpath("data", "default.yaml").read_text(encoding="utf-8")
+    config = load_config_text(text, source="<default config>", base_dir=Path.cwd())
+    return dataclasses.replace(config, source=None)
+
+
+def metric_fields() -> dict[str, tuple[str, ...]]:
+    """Metric group -> its value names, derived from the records that ``RunMetrics.flat()`` reads.
+
+    ``signal`` keeps only scalar fields (``flat()`` skips tuples such as ``precursor_charges``);
+    ``calibrant`` and ``expected_ion`` drop ``name``, which is a path segment, not a value.
+    """
+    from watcher.records import CalibrantDrift, ExpectedIonResult, MassCorrection, SignalMetrics
+
+    def scalars(cls: type, *, skip: frozenset[str] = frozenset()) -> tuple[str, ...]:
+        return tuple(
+            f.name
+            for f in dataclasses.fields(cls)
+            if f.name not in skip and not str(f.type).startswith("tuple")
+        )
+
+    return {
+        "signal": scalars(SignalMetrics),
+        "calibrant": scalars(CalibrantDrift, skip=frozenset({"name"})),
+        "expected_ion": scalars(ExpectedIonResult, skip=frozenset({"name"})),
+        "expected_ions": ("found_fraction", "missing_count"),  # aggregates made by flat()
+        # flat() writes the fit, not the count of calibrants that went into it
+        "mass_correction": scalars(MassCorrection, skip=frozenset({"calibrants_used"})),
+    }
+
+
+def known_metric_paths(calibrants: Iterable[str], expected_ions: Iterable[str]) -> tuple[str, ...]:
+    """Every metric path a check may name, with ``*`` standing for any calibrant or expected ion."""
+    fields_by_group = metric_fields()
+    paths: list[str] = []
+    for group in ("signal", "expected_ions", "mass_correction"):
+        paths.extend(f"{group}.{name}" for name in fields_by_group[group])
+    for group, names in (("calibrant", calibrants), ("expected_ion", expected_ions)):
+        for subject in ("*", *names):
+            paths.extend(f"{group}.{subject}.{name}" for name in fields_by_group[group])
+    return tuple(paths)
+
+
+def metric_path_problem(
+    metric: str, calibrants: Iterable[str], expected_ions: Iterable[str]
+) -> str | None:
+    """None when ``metric`` names a known value, else a message with the nearest valid path."""
+    paths = known_metric_paths(calibrants, expected_ions)
+    if metric in paths:
+        return None
+    message = f"unknown metric {metric!r}"
+    nearest = difflib.get_close_matches(metric, paths, n=1, cutoff=0.6)
+    if nearest:
+        return f"{message} (did you mean {nearest[0]!r}?)"
+    return f"{message}; expected signal.<value>, calibrant.<name|*>.<value>, " + (
+        "expected_ion.<name|*>.<value>, expected_ions.<value> or mass_correction.<value>"
+    )
