@@ -39,6 +39,9 @@ EVENTS: frozenset[str] = frozenset(
         # notify
         "alert.raised",
         "alert.cleared",
+        "alert.escalated",
+        "alert.reminded",
+        "healthlog.pruned",
         "message.queued",
         "message.delivered",
         "message.failed",

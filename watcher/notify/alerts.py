@@ -1,0 +1,129 @@
+"""The alert state machine: one pure step per alert key from (previous state, finding, time).
+
+An alert key is (instrument, check, subject) per channel. The caller decides which keys a run may
+touch (only runs a check was evaluated on can clear that check's alerts) and which findings reach a
+channel (``passes``); this module only decides raise / escalate / remind / clear, so it can be
+tested as a truth table without a database or a clock.
+"""
+
+from __future__ import annotations
+
+import fnmatch
+import re
+from dataclasses import dataclass, replace
+
+from watcher.config import Channel, Check
+from watcher.records import AlertAction, Finding, Severity
+
+# Pseudo-checks that are not in the config: an unreadable run file, and runs that stopped coming.
+UNREADABLE_CHECK = "unreadable"
+HEARTBEAT_CHECK = "heartbeat"
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class AlertState:
+    """An open alert as last told to one channel.
+
+    Attributes:
+        severity: the highest severity sent since the alert was raised (escalation compares to it).
+        raised_at_s: epoch seconds of the raise.
+        last_sent_at_s: epoch seconds of the last raise, escalation or reminder sent.
+        finding: the latest finding behind the alert (reminders repeat its value).
+    """
+
+    severity: Severity
+    raised_at_s: float
+    last_sent_at_s: float
+    finding: Finding
+
+
+def step(
+    previous: AlertState | None,
+    finding: Finding | None,
+    now_s: float,
+    *,
+    remind_every_s: float | None,
+) -> tuple[AlertState | None, AlertAction | None]:
+    """Advance one alert key by one evaluated run.
+
+    Args:
+        previous: the open alert, or None when none is open.
+        finding: this run's finding for the key that reaches the channel, or None when the run was
+            fine for it. Only call this for runs the check was evaluated on.
+        now_s: epoch seconds of the run's judgement.
+        remind_every_s: remind when the alert stays open this long after the last send;
+            None: never.
+
+    Returns:
+        The new state (None = closed) and the action to tell people about (None = nothing new).
+    """
+    if previous is None:
+        if finding is None:
+            return None, None
+        state = AlertState(
+            severity=finding.severity, raised_at_s=now_s, last_sent_at_s=now_s, finding=finding
+        )
+        return state, AlertAction.RAISE
+    if finding is None:
+        return None, AlertAction.CLEAR
+    if finding.severity.rank > previous.severity.rank:
+        return (
+            replace(previous, severity=finding.severity, last_sent_at_s=now_s, finding=finding),
+            AlertAction.ESCALATE,
+        )
+    # Same or lower severity: still open. A drop does not lower ``severity``, so flapping between
+    # warning and critical is told once, not on every swing.
+    kept = replace(previous, finding=finding)
+    return remind_due(kept, now_s, remind_every_s=remind_every_s)
+
+
+def remind_due(
+    state: AlertState, now_s: float, *, remind_every_s: float | None
+) -> tuple[AlertState, AlertAction | None]:
+    """A reminder when ``remind_every_s`` has passed since the last send (runs and ``tick()``)."""
+    if remind_every_s is None or now_s - state.last_sent_at_s < remind_every_s:
+        return state, None
+    return replace(state, last_sent_at_s=now_s), AlertAction.REMIND
+
+
+def passes(channel: Channel, finding: Finding) -> bool:
+    """Whether a finding is for this channel: at least its min_severity, and one of its checks."""
+    if finding.severity.rank < channel.min_severity.rank:
+        return False
+    return not channel.checks or finding.check in channel.checks
+
+
+def check_applies(check: Check, file_name: str) -> bool:
+    """Whether a check is evaluated on a run file: ``applies_to`` globs or ``re:`` patterns."""
+    if not check.applies_to:
+        return True
+    for pattern in check.applies_to:
+        if pattern.startswith("re:"):
+            if re.search(pattern[3:], file_name):
+                return True
+        elif fnmatch.fnmatchcase(file_name, pattern):
+            return True
+    return False
+
+
+def clearable_checks(checks: tuple[Check, ...], file_name: str, *, readable: bool) -> set[str]:
+    """Names of the checks whose alerts this run may clear (those it was evaluated on).
+
+    An unreadable run evaluates nothing. A readable run clears the ``unreadable`` alert. Checks no
+    longer in the config are returned by ``is_clearable`` too, so a removed check cannot keep an
+    alert open forever.
+    """
+    if not readable:
+        return set()
+    names = {c.name for c in checks if check_applies(c, file_name)}
+    names.add(UNREADABLE_CHECK)
+    return names
+
+
+def is_clearable(
+    check_name: str, clearable: set[str], configured: set[str], *, readable: bool
+) -> bool:
+    """Whether an open alert of ``check_name`` is judged by this run (see ``clearable_checks``)."""
+    if check_name == HEARTBEAT_CHECK or not readable:
+        return False
+    return check_name in clearable or check_name not in configured

@@ -1,0 +1,167 @@
+"""The health log: one JSON-lines file per day (instrument time zone), written only by the daemon.
+
+Each record is one whole line appended with a single ``os.write`` on an ``O_APPEND`` descriptor
+and fsynced, so a crash leaves whole lines only. Run records are idempotent by ``run_id``: the
+day's file is read once for the ids it holds, then a small in-memory set answers.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import re
+import threading
+import time
+from collections.abc import Callable
+from datetime import date, datetime, timedelta
+from pathlib import Path
+from typing import Any
+from zoneinfo import ZoneInfo
+
+from watcher.records import Verdict
+
+_FILE_RE = re.compile(r"^health-(\d{4}-\d{2}-\d{2})\.jsonl$")
+
+
+def file_name(day: date) -> str:
+    return f"health-{day.isoformat()}.jsonl"
+
+
+class HealthLog:
+    """Appends run and event records to ``<dir>/health-YYYY-MM-DD.jsonl``.
+
+    Args:
+        directory: where the daily files live (created when needed).
+        timezone: IANA name; a record's day is its time in this zone.
+        keep_days: ``prune()`` removes files whose day is older than this many days.
+        clock: epoch seconds, for event times and pruning.
+    """
+
+    def __init__(
+        self,
+        directory: Path,
+        *,
+        timezone: str = "UTC",
+        keep_days: int = 90,
+        clock: Callable[[], float] = time.time,
+    ) -> None:
+        self.directory = directory
+        self._tz = ZoneInfo(timezone)
+        self.keep_days = keep_days
+        self._clock = clock
+        self._lock = threading.Lock()  # the delivery worker logs events too
+        self._run_ids: dict[date, set[int]] = {}
+
+    def path_for(self, day: date) -> Path:
+        return self.directory / file_name(day)
+
+    def _day(self, at: datetime) -> date:
+        return at.astimezone(self._tz).date()
+
+    def write_run(self, verdict: Verdict, run_id: int) -> bool:
+        """Append the run's record unless its ``run_id`` is already in that day's file.
+
+        Returns:
+            True when a line was written.
+        """
+        judged = verdict.judged_at or datetime.fromtimestamp(self._clock()).astimezone()
+        day = self._day(judged)
+        metrics = verdict.metrics.flat() if verdict.metrics is not None else {}
+        record: dict[str, Any] = {
+            "type": "run",
+            "run_id": run_id,
+            "file": verdict.run_file.path.name,
+            "path": str(verdict.run_file.path),
+            "time": judged.isoformat(),
+            "status": str(verdict.status),
+            "error": verdict.error,
+            "metrics": {k: (None if v != v else v) for k, v in metrics.items()},
+            "findings": [f.to_dict() for f in verdict.findings],
+        }
+        with self._lock:
+            seen = self._ids_of(day)
+            if run_id in seen:
+                return False
+            self._append(day, record)
+            seen.add(run_id)
+        return True
+
+    def write_event(self, kind: str, **fields: object) -> None:
+        """Append one daemon event (start, stop, reload, alert sent/failed, heartbeat missed...)."""
+        now = datetime.fromtimestamp(self._clock()).astimezone()
+        record = {
+            "type": "event",
+            "kind": kind,
+            "time": now.isoformat(),
+            "fields": {k: _plain(v) for k, v in fields.items()},
+        }
+        with self._lock:
+            self._append(self._day(now), record)
+
+    def prune(self) -> list[Path]:
+        """Remove daily files older than ``keep_days``; returns what was removed."""
+        today = datetime.fromtimestamp(self._clock(), self._tz).date()
+        oldest_kept = today - timedelta(days=self.keep_days)
+        removed: list[Path] = []
+        if not self.directory.is_dir():
+            return removed
+        for path in sorted(self.directory.iterdir()):
+            match = _FILE_RE.match(path.name)
+            if match and date.fromisoformat(match.group(1)) < oldest_kept:
+                path.unlink(missing_ok=True)
+                removed.append(path)
+        with self._lock:
+            for day in [d for d in self._run_ids if d < oldest_kept]:
+                del self._run_ids[day]
+        return removed
+
+    def _ids_of(self, day: date) -> set[int]:
+        if day not in self._run_ids:
+            ids: set[int] = set()
+            path = self.path_for(day)
+            if path.exists():
+                for line in path.read_text(encoding="utf-8").splitlines():
+                    try:
+                        record = json.loads(line)
+                    except json.JSONDecodeError:
+                        continue  # a line cut by a full disk; whole-line appends make it rare
+                    if record.get("type") == "run" and isinstance(record.get("run_id"), int):
+                        ids.add(record["run_id"])
+            self._run_ids[day] = ids
+        return self._run_ids[day]
+
+    def _append(self, day: date, record: dict[str, Any]) -> None:
+        self.directory.mkdir(parents=True, exist_ok=True)
+        line = (json.dumps(record, ensure_ascii=True, sort_keys=True) + "\n").encode("ascii")
+        fd = os.open(self.path_for(day), os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o640)
+        try:
+            os.write(fd, line)  # one write of a whole line: readers never see half a record
+            os.fsync(fd)
+        finally:
+            os.close(fd)
+
+
+def _plain(value: object) -> object:
+    if value is None or isinstance(value, str | int | float | bool):
+        return value
+    if isinstance(value, datetime | date):
+        return value.isoformat()
+    if isinstance(value, list | tuple):
+        return [_plain(v) for v in value]
+    if isinstance(value, dict):
+        return {str(k): _plain(v) for k, v in value.items()}
+    return str(value)
+
+
+def read_day(directory: Path, day: date) -> list[dict[str, Any]]:
+    """Every whole record of one day's file (CLI readers and tests)."""
+    path = directory / file_name(day)
+    if not path.exists():
+        return []
+    out: list[dict[str, Any]] = []
+    for line in path.read_text(encoding="utf-8").splitlines():
+        try:
+            out.append(json.loads(line))
+        except json.JSONDecodeError:
+            continue
+    return out

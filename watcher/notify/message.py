@@ -1,0 +1,100 @@
+"""Message text: a short title and body for a phone, from one run's alert actions.
+
+Pure: takes the run's facts and the list of (action, finding) pairs, returns text. Never a URL.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+from datetime import datetime
+from zoneinfo import ZoneInfo
+
+from watcher.records import AlertAction, Finding, Severity
+
+# apprise notify types (plain strings so that only deliver.py imports apprise).
+_NOTIFY_TYPE = {Severity.NOTICE: "info", Severity.WARNING: "warning", Severity.CRITICAL: "failure"}
+_ACTION_WORD = {
+    AlertAction.RAISE: "NEW",
+    AlertAction.ESCALATE: "WORSE",
+    AlertAction.REMIND: "STILL",
+    AlertAction.CLEAR: "OK AGAIN",
+}
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Item:
+    """One alert change in a message: what happened to which finding."""
+
+    action: AlertAction
+    finding: Finding  # the current finding; for a clear, the last one that was open
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Text:
+    title: str
+    body: str
+    notify_type: str  # info, success, warning, failure
+
+
+def format_value(value: float | bool | None) -> str:
+    """A measured value in at most 4 significant digits; ``missing`` for None."""
+    if value is None:
+        return "missing"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    return f"{value:.4g}"
+
+
+def local_time(at: datetime, timezone: str) -> str:
+    """``2024-04-12 03:14 CEST`` in the instrument's time zone."""
+    return at.astimezone(ZoneInfo(timezone)).strftime("%Y-%m-%d %H:%M %Z")
+
+
+def item_line(item: Item) -> str:
+    """One line per alert change: action, severity, check, value against limit, rule, forecast."""
+    f = item.finding
+    if item.action is AlertAction.CLEAR:
+        return f"{_ACTION_WORD[item.action]}: {f.check} ({f.subject})"
+    line = f"{_ACTION_WORD[item.action]} {f.severity}: {f.check}"
+    if f.subject not in (f.check, "file"):
+        line += f" [{f.subject}]"
+    if f.metric and f.metric != "file":
+        line += f": {format_value(f.value)}, limit {f.limit}, rule {f.rule}"
+    else:
+        line += f": {f.message}"
+    if f.forecast_h is not None:
+        line += f", forecast: critical in {f.forecast_h:.1f} h"
+    return line
+
+
+def compose(
+    *,
+    instrument: str,
+    run_file: str | None,
+    at: datetime,
+    timezone: str,
+    status: str,
+    items: Sequence[Item],
+) -> Text:
+    """The message for one run (or one reminder round) on one channel.
+
+    Args:
+        instrument: instrument name from the config.
+        run_file: the run's file name; None for messages not about one run (heartbeat, reminders).
+        at: when the run was judged (aware datetime).
+        timezone: IANA name the time is shown in.
+        status: the run's status word (``critical``), or a short state for non-run messages.
+        items: the alert changes, in the order they are listed.
+    """
+    open_items = [i for i in items if i.action is not AlertAction.CLEAR]
+    if open_items:
+        worst = max((i.finding.severity for i in open_items), key=lambda s: s.rank)
+        notify_type = _NOTIFY_TYPE[worst]
+    else:
+        notify_type = "success"
+    about = run_file or "alerts"
+    title = f"{instrument}: {status.upper()} {about}"
+    head = f"{about} | {local_time(at, timezone)} | status {status}"
+    body = "\n".join([head, *(item_line(i) for i in items)])
+    return Text(title=title, body=body, notify_type=notify_type)
