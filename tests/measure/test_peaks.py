@@ -1,0 +1,122 @@
+"""Peak finding near a target m/z on centroid and profile spectra, and apex refinement."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from tests.measure.scanfactory import centroid_arrays, profile_arrays, shifted
+from watcher.measure.ions import ppm_error
+from watcher.measure.peaks import find_peak, looks_profile, refine_apex
+
+SILOXANE_MZ = 445.120025  # check-ions.tsv (shared/reference), [(C2H6SiO)6+H]+
+
+
+def test_centroid_takes_most_intense_point_in_window() -> None:
+    """Centroid data: the most intense point within the window wins, not the nearest."""
+    mz, intensity = centroid_arrays(
+        [(shifted(SILOXANE_MZ, -3.0), 5e3), (shifted(SILOXANE_MZ, 8.0), 4e4), (445.5, 9e5)]
+    )
+    peak = find_peak(mz, intensity, SILOXANE_MZ, 20.0, profile=False)
+    assert peak is not None
+    # synthetic ground truth: the 4e4 peak placed at +8 ppm
+    assert ppm_error(peak[0], SILOXANE_MZ) == pytest.approx(8.0, abs=1e-6)
+    assert peak[1] == 4e4
+
+
+def test_centroid_outside_window_is_none() -> None:
+    """A peak 25 ppm away is not found with a 20 ppm window."""
+    mz, intensity = centroid_arrays([(shifted(SILOXANE_MZ, 25.0), 1e5)])
+    assert find_peak(mz, intensity, SILOXANE_MZ, 20.0, profile=False) is None
+    assert find_peak(mz, intensity, SILOXANE_MZ, 30.0, profile=False) is not None
+
+
+@pytest.mark.parametrize("phase", [0.0, 0.13, 0.37, 0.5, 0.81])
+@pytest.mark.parametrize("offset_ppm", [-4.5, 0.0, 2.0, 9.0])
+def test_profile_gaussian_apex_between_samples(phase: float, offset_ppm: float) -> None:
+    """Profile data: the Gaussian 3-point apex recovers the true m/z and height between samples."""
+    true_mz = shifted(SILOXANE_MZ, offset_ppm)
+    mz, intensity = profile_arrays([(true_mz, 3e5)], phase=phase)
+    peak = find_peak(mz, intensity, SILOXANE_MZ, 30.0, profile=True)
+    assert peak is not None
+    # synthetic ground truth: a pure Gaussian, for which the log-parabola is exact
+    assert ppm_error(peak[0], true_mz) == pytest.approx(0.0, abs=0.01)
+    assert peak[1] == pytest.approx(3e5, rel=1e-4)
+
+
+def test_profile_top_sample_alone_would_be_off() -> None:
+    """Without refinement the top sample is off by up to half a step; refinement fixes it."""
+    true_mz = shifted(SILOXANE_MZ, 2.0)
+    mz, intensity = profile_arrays([(true_mz, 3e5)], phase=0.5, spacing_ppm=4.0)
+    top = int(np.argmax(intensity))
+    # synthetic ground truth: samples 4 ppm apart with the apex halfway between two of them
+    assert abs(ppm_error(float(mz[top]), true_mz)) == pytest.approx(2.0, abs=0.01)
+    peak = find_peak(mz, intensity, SILOXANE_MZ, 30.0, profile=True)
+    assert peak is not None
+    assert abs(ppm_error(peak[0], true_mz)) < 0.01
+
+
+def test_profile_apex_just_outside_window_is_rejected() -> None:
+    """A profile peak whose refined apex lies outside the window is not taken from its flank."""
+    true_mz = shifted(SILOXANE_MZ, 24.0)
+    mz, intensity = profile_arrays([(true_mz, 3e5)])
+    assert find_peak(mz, intensity, SILOXANE_MZ, 20.0, profile=True) is None
+    assert find_peak(mz, intensity, SILOXANE_MZ, 30.0, profile=True) is not None
+
+
+def test_profile_apex_inside_window_with_top_sample_outside() -> None:
+    """The climb to the local maximum finds a peak whose top sample sits just past the edge."""
+    true_mz = shifted(SILOXANE_MZ, 19.5)
+    mz, intensity = profile_arrays([(true_mz, 3e5)], phase=0.9, spacing_ppm=4.0)
+    peak = find_peak(mz, intensity, SILOXANE_MZ, 20.0, profile=True)
+    assert peak is not None
+    assert ppm_error(peak[0], true_mz) == pytest.approx(0.0, abs=0.01)
+
+
+def test_refine_falls_back_to_parabola_on_zero_neighbour() -> None:
+    """With a zero neighbour the raw-intensity parabola is used: vertex of 0, 4, 2 at x=1.3."""
+    x = np.array([0.0, 1.0, 2.0])
+    y = np.array([0.0, 4.0, 2.0])
+    apex_x, apex_y = refine_apex(x, y, 1)
+    # parabola through (0,0), (1,4), (2,2): y = -3x^2 + 7x, vertex x = 7/6, y = 49/12 (algebra)
+    assert apex_x == pytest.approx(7 / 6)
+    assert apex_y == pytest.approx(49 / 12)
+
+
+def test_refine_exact_for_gaussian_on_uneven_spacing() -> None:
+    """The log-parabola through three uneven samples of a Gaussian returns its exact apex."""
+    x = np.array([9.1, 10.2, 12.0])
+    y = 7.0 * np.exp(-0.5 * ((x - 10.7) / 1.3) ** 2)
+    apex_x, apex_y = refine_apex(x, y, 1)
+    # algebra: ln of a Gaussian is a parabola, so three points determine it exactly
+    assert apex_x == pytest.approx(10.7)
+    assert apex_y == pytest.approx(7.0)
+
+
+def test_refine_at_array_edge_returns_sample() -> None:
+    """An apex on the first or last sample cannot be refined and is returned as is."""
+    x = np.array([1.0, 2.0, 3.0])
+    y = np.array([5.0, 3.0, 1.0])
+    assert refine_apex(x, y, 0) == (1.0, 5.0)
+
+
+def test_empty_or_zero_window_is_none() -> None:
+    """An empty spectrum, or a window holding only zero intensities, gives no peak."""
+    empty = np.empty(0)
+    assert find_peak(empty, empty, SILOXANE_MZ, 20.0, profile=False) is None
+    mz = np.array([SILOXANE_MZ])
+    assert find_peak(mz, np.zeros(1), SILOXANE_MZ, 20.0, profile=True) is None
+
+
+def test_looks_profile_tells_sampled_from_centroided() -> None:
+    """Point spacing tells profile (a few ppm) from centroid (hundreds of ppm) spectra."""
+    rng = np.random.default_rng(3)
+    centres = np.sort(rng.uniform(100.0, 1000.0, 300))
+    prof_mz, _ = profile_arrays([(float(c), 1e4) for c in centres])
+    cent_mz, _ = centroid_arrays([(float(c), 1e4) for c in centres])
+    # common practice: profile peaks are sampled many times across a ~30 ppm width
+    assert looks_profile(prof_mz)
+    assert not looks_profile(cent_mz)
+    assert not math.isnan(float(prof_mz[0]))
