@@ -109,6 +109,9 @@ def _configure(handlers: list[logging.Handler], level: int) -> None:
     # never below INFO. watchdog at WARNING keeps its overflow warning, which triggers a rescan.
     logging.getLogger("apprise").setLevel(logging.INFO)
     logging.getLogger("watchdog").setLevel(logging.WARNING)
+    # Off then on: a second set-up in one process (tests, the demo) re-installs the hook even when
+    # something restored warnings.showwarning in between.
+    logging.captureWarnings(False)
     logging.captureWarnings(True)
     structlog.configure(
         processors=[
