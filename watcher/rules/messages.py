@@ -106,10 +106,10 @@ def advice(path: str) -> str:
 
 
 def fmt_number(x: float) -> str:
-    """Three significant digits (k/M/G from 100 000 on), no trailing zeros: 1.23 M, 150 k, 0.31."""
+    """Three significant digits (k/M/G from 10 000 on), no trailing zeros: 1.23 M, 14.8 k, 0.31."""
     a = abs(x)
     for scale, suffix in ((1e9, " G"), (1e6, " M"), (1e3, " k"), (1.0, "")):
-        if a >= scale and (scale != 1e3 or a >= 1e5):
+        if a >= scale and (scale != 1e3 or a >= 1e4):
             return _sig3(x / scale) + suffix
     return "0" if a == 0 else f"{x:.2g}"
 
