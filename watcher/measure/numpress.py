@@ -1,0 +1,109 @@
+"""mzML binary data arrays decoded by their CV accessions: none, zlib and MS-Numpress (+zlib).
+
+The codec is chosen by accession, never by the cvParam's name: files exist whose names and
+accessions disagree, and a codec picked by name returns plausible-looking garbage
+(shared/reference/README.md, pitfall 1). A compression this module cannot decode is an error,
+never "no compression".
+"""
+
+from __future__ import annotations
+
+import base64
+import binascii
+import zlib
+from collections.abc import Callable
+
+import numpy as np
+import pynumpress
+
+from watcher.measure.scan import FloatArray
+
+NO_COMPRESSION = "MS:1000576"
+ZLIB = "MS:1000574"
+_NUMPRESS: dict[str, tuple[str, bool]] = {
+    # accession: (codec, zlib applied after numpress)
+    "MS:1002312": ("linear", False),
+    "MS:1002313": ("pic", False),
+    "MS:1002314": ("slof", False),
+    "MS:1002746": ("linear", True),
+    "MS:1002747": ("pic", True),
+    "MS:1002748": ("slof", True),
+}
+_DECODERS: dict[str, Callable[[np.ndarray], np.ndarray]] = {
+    "linear": pynumpress.decode_linear,
+    "pic": pynumpress.decode_pic,
+    "slof": pynumpress.decode_slof,
+}
+# Binary data type accessions (MS:1000518 children) -> little-endian numpy dtype.
+DTYPES: dict[str, str] = {
+    "MS:1000523": "<f8",  # 64-bit float
+    "MS:1000521": "<f4",  # 32-bit float
+    "MS:1000519": "<i4",  # 32-bit integer
+    "MS:1000522": "<i8",  # 64-bit integer
+    "MS:1000520": "<f2",  # 16-bit float
+}
+KNOWN_COMPRESSIONS = frozenset({NO_COMPRESSION, ZLIB, *_NUMPRESS})
+
+
+class ArrayDecodeError(ValueError):
+    """The array's bytes do not decode; the message is one line, without paths."""
+
+
+def decode_array(
+    text: str | bytes | None, *, compression: str, dtype: str, expected_length: int | None
+) -> FloatArray:
+    """Decode one base64 ``<binary>`` payload into float64 values.
+
+    Args:
+        text: the element's text (None or empty for an empty array).
+        compression: the compression accession (``KNOWN_COMPRESSIONS``).
+        dtype: numpy dtype string of the uncompressed values (ignored for Numpress, whose
+            output is always float64).
+        expected_length: the declared number of values; a mismatch is an error, so that a
+            damaged array is never measured.
+
+    Raises:
+        ArrayDecodeError: bad base64, corrupt zlib, a byte count that is not a whole number of
+            values, or a length other than declared.
+        KeyError: ``compression`` is not one this module decodes (the caller names the term).
+    """
+    if compression not in KNOWN_COMPRESSIONS:
+        raise KeyError(compression)
+    raw = _b64(text)
+    if compression == ZLIB or _NUMPRESS.get(compression, ("", False))[1]:
+        try:
+            raw = zlib.decompress(raw) if raw else raw
+        except zlib.error as exc:
+            raise ArrayDecodeError(f"corrupt zlib data ({exc})") from None
+    if compression in _NUMPRESS:
+        values = _numpress(raw, _NUMPRESS[compression][0])
+    else:
+        width = np.dtype(dtype).itemsize
+        if len(raw) % width:
+            raise ArrayDecodeError(
+                f"array of {len(raw)} bytes is not a whole number of {width}-byte values"
+            )
+        values = np.frombuffer(raw, dtype=dtype).astype(np.float64)
+    if expected_length is not None and values.size != expected_length:
+        raise ArrayDecodeError(f"array holds {values.size} values, {expected_length} declared")
+    return values
+
+
+def _b64(text: str | bytes | None) -> bytes:
+    if not text:
+        return b""
+    data = text.encode("ascii", "replace") if isinstance(text, str) else text
+    try:
+        return base64.b64decode(b"".join(data.split()), validate=True)
+    except binascii.Error as exc:
+        raise ArrayDecodeError(f"invalid base64 ({exc})") from None
+
+
+def _numpress(raw: bytes, codec: str) -> FloatArray:
+    if not raw:
+        return np.zeros(0, dtype=np.float64)
+    try:
+        decoded = _DECODERS[codec](np.frombuffer(raw, dtype=np.uint8))
+    except Exception as exc:  # the C decoder raises assorted types on damaged input
+        raise ArrayDecodeError(f"corrupt MS-Numpress {codec} data ({exc})") from None
+    return np.asarray(decoded, dtype=np.float64)
