@@ -33,7 +33,12 @@ def _die_with_parent() -> None:
 
 def _limit_memory(memory_mb: int) -> None:
     limit = memory_mb * 1024 * 1024
-    resource.setrlimit(resource.RLIMIT_AS, (limit, limit))
+    try:
+        resource.setrlimit(resource.RLIMIT_AS, (limit, limit))
+    except (OSError, ValueError):
+        # A seccomp filter without prlimit64 refuses it; the wall-clock limit and the unit's
+        # MemoryMax still bound the child.
+        return
 
 
 def measure(config: Any, path: Path, memory_mb: int) -> tuple[Any, ...]:
