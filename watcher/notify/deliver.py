@@ -15,14 +15,23 @@ import sqlite3
 import tempfile
 import threading
 import time
+import warnings
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 from urllib.parse import urlsplit
 
-import apprise
 import structlog
+
+with warnings.catch_warnings():
+    # apprise 2.3's e-mail plugin imports the stdlib ``imghdr``, deprecated since Python 3.11;
+    # load every plugin now, under this filter, rather than lazily at the first add().
+    warnings.simplefilter("ignore", DeprecationWarning)
+    import apprise
+    from apprise.manager_plugins import NotificationManager
+
+    NotificationManager().load_modules()
 
 from watcher.config import Alerts, Channel
 from watcher.errors import DeliveryError
@@ -193,8 +202,8 @@ class DeliveryWorker:
             while not self._stop.is_set():
                 try:
                     busy = self.run_once(conn, self._clock())
-                except sqlite3.Error as exc:
-                    log.warning("message.failed", error=f"state database: {exc}")
+                except Exception as exc:  # the worker must outlive a locked database or a bug
+                    log.error("message.failed", error=f"delivery worker: {exc!r}")
                     busy = False
                 if not busy:
                     self._wake.wait(self._poll_s)
@@ -231,7 +240,11 @@ class DeliveryWorker:
                 # Marked right after SUCCESS: the window for a duplicate is this one commit.
                 with db.write(conn):
                     outbox.mark_delivered(conn, message.message_id, done_s)
-                fields = {"message_id": message.message_id, "channel": name, "kind": message.kind}
+                fields = {
+                    "message_id": message.message_id,
+                    "channel": name,
+                    "message_kind": message.kind,
+                }
                 log.info("message.delivered", **fields)
                 self._event("message.delivered", **fields)
             else:
