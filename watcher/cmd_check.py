@@ -54,13 +54,21 @@ def main(args: argparse.Namespace) -> int:
             )
             verdicts.append(verdict)
             if not args.json:
-                render_text(verdict, sys.stdout, colour=_use_colour(sys.stdout))
+                try:
+                    render_text(verdict, sys.stdout, colour=_use_colour(sys.stdout))
+                    sys.stdout.flush()
+                except BrokenPipeError:
+                    _silence_stdout()
     finally:
         if conn is not None:
             conn.close()
     if args.json:
-        json.dump({"runs": [run_to_dict(v) for v in verdicts]}, sys.stdout, indent=2)
-        sys.stdout.write("\n")
+        try:
+            json.dump({"runs": [run_to_dict(v) for v in verdicts]}, sys.stdout, indent=2)
+            sys.stdout.write("\n")
+            sys.stdout.flush()
+        except BrokenPipeError:
+            _silence_stdout()
     if args.mzqc:
         _write_mzqc(Path(args.mzqc), verdicts)
     return exit_code(verdicts)
@@ -157,6 +165,11 @@ def _record(conn: sqlite3.Connection, verdict: Verdict) -> Verdict:
     with db.write(conn):
         record_verdict(conn, verdict)
     return verdict
+
+
+def _silence_stdout() -> None:
+    # `ionwarden check ... | head`: the reader left; the measuring and recording still count.
+    os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
 
 
 def _warn(message: str) -> None:
