@@ -5,6 +5,8 @@ from __future__ import annotations
 import statistics
 
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
 
 from watcher.config import BaselineSpec
 from watcher.rules.baseline import MAD_TO_SD, from_spec, robust_centre_sd
@@ -69,3 +71,18 @@ def test_fixed_mean_with_robust_sd() -> None:
     assert baseline.centre == 0.0
     assert baseline.sd == pytest.approx(1.4826)
     assert not baseline.is_fixed
+
+
+@given(
+    st.lists(st.floats(-1e6, 1e6, allow_nan=False), min_size=1, max_size=40),
+    st.floats(-1e3, 1e3, allow_nan=False),
+    st.floats(0.01, 100.0, allow_nan=False),
+)
+def test_robust_statistics_follow_shift_and_scale(
+    values: list[float], shift: float, scale: float
+) -> None:
+    """median(a x + c) = a median(x) + c and MAD-SD(a x + c) = a MAD-SD(x) (equivariance)."""
+    centre, sd = robust_centre_sd(values)
+    centre2, sd2 = robust_centre_sd([scale * v + shift for v in values])
+    assert centre2 == pytest.approx(scale * centre + shift, rel=1e-9, abs=1e-6)
+    assert sd2 == pytest.approx(scale * sd, rel=1e-9, abs=1e-6)

@@ -10,9 +10,12 @@ from collections.abc import Sequence
 from datetime import UTC, datetime, timedelta
 
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
 
 from watcher.config import BaselineSpec, Check, Condition, CusumSpec, EwmaSpec, ForecastSpec
 from watcher.records import (
+    STATUS_RANK,
     CalibrantDrift,
     ExpectedIonResult,
     RunMetrics,
@@ -401,7 +404,7 @@ def test_westgard_through_the_judge(
     )
     (f,) = findings
     assert (f.rule, f.severity) == (rule, severity)
-    assert f.baseline == "lab mean +0.0 ppm, SD 1"
+    assert f.baseline == "lab mean +0.0 ppm, SD 1 ppm"
     assert "breaks Westgard" in f.message
 
 
@@ -500,3 +503,45 @@ def test_forecast_is_skipped_when_far_away_or_already_critical() -> None:
         history=history_of("calibrant.siloxane-445.median_ppm", fast),
     )
     assert [f.rule for f in findings] == ["limit"]
+
+
+def test_z_condition_message_reads_in_sd() -> None:
+    """A z-score finding names the z, the baseline it came from and the SD limit."""
+    check = Check(
+        name="drift vs usual",
+        metric="calibrant.siloxane-445.median_ppm",
+        baseline=BaselineSpec(mean=0.2, sd=0.5),
+        warning=Condition(z_outside=(-3.0, 3.0)),
+    )
+    _, (f,) = judge(
+        make_metrics(siloxane_ppm=2.0),
+        file_name="QC_0415.mzML",
+        acquired_at=T0,
+        checks=[check],
+        history=None,
+    )
+    # z = (2.0 - 0.2) / 0.5 = 3.6 (by hand)
+    assert f.message == (
+        "QC_0415.mzML: calibrant siloxane-445 median error +2.0 ppm, z = +3.6 against the "
+        "baseline +0.2 ppm, beyond ±3 SD (warning) — recalibrate before the next sample"
+    )
+    assert f.baseline == "lab mean +0.2 ppm, SD 0.5 ppm"
+
+
+@given(
+    st.floats(-10.0, 10.0, allow_nan=False),
+    st.floats(-10.0, 10.0, allow_nan=False),
+    st.floats(0.0, 3.0e6, allow_nan=False),
+)
+def test_status_is_the_max_finding_severity(sil: float, leu: float, tic: float) -> None:
+    """For any metrics, the status rank equals the highest finding rank (ok without findings)."""
+    checks = [DRIFT, Check(name="tic", metric="signal.tic_median", notice=Condition(below=1.0e6))]
+    status, findings = judge(
+        make_metrics(siloxane_ppm=sil, leu_enk_ppm=leu, tic=tic),
+        file_name="QC_1.mzML",
+        acquired_at=T0,
+        checks=checks,
+        history=None,
+    )
+    assert STATUS_RANK[status] == max((f.severity.rank for f in findings), default=0)
+    assert len({(f.check, f.subject, f.rule) for f in findings}) == len(findings)

@@ -9,6 +9,8 @@ Sequences are z-scores, oldest first, the last one being the current run.
 from __future__ import annotations
 
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
 
 from watcher.rules.westgard import RULES, rule_fires, violations
 
@@ -76,3 +78,9 @@ def test_unknown_rule_name_is_refused() -> None:
 def test_all_six_rules_are_known() -> None:
     """The rule set is the six of the 1981 multi-rule chart."""
     assert sorted(RULES) == sorted(["1-2s", "1-3s", "2-2s", "R-4s", "4-1s", "10x"])
+
+
+@given(st.lists(st.floats(-6.0, 6.0, allow_nan=False), min_size=1, max_size=12))
+def test_rules_are_symmetric_about_the_mean(z: list[float]) -> None:
+    """Mirroring every run about the mean fires exactly the same rules (both-sided definitions)."""
+    assert violations(z, RULES) == violations([-v for v in z], RULES)

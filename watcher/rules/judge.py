@@ -17,7 +17,10 @@ History semantics (documented choices):
 - Westgard, EWMA and CUSUM need a baseline with SD > 0 (fixed mean/sd, or enough accepted runs);
   without one they are skipped. EWMA and CUSUM run over the last ``TREND_RUNS`` runs + this one,
   starting from the baseline centre.
-- The forecast is skipped when the run is already critical on its limit.
+- Westgard, EWMA and CUSUM findings take ``check.westgard_severity`` (1-2s alone: notice); the
+  forecast takes ``check.forecast.severity`` and is skipped when the run is already critical on
+  its limit. It fits the last ``forecast.runs`` runs (this one included, at least 4) against
+  acquisition time and heads for the critical ``above``/``below``/``outside`` limit.
 """
 
 from __future__ import annotations
@@ -293,7 +296,7 @@ def _forecast_finding(ctx: _Context) -> Finding | None:
         subject=ctx.path,
         message=messages.forecast_message(ctx.file_name, ctx.path, fc),
         value=ctx.value,
-        limit=f"critical at {fc.limit:g}",
+        limit=f"critical {'above' if fc.limit == upper else 'below'} {fc.limit:g}",
         rule="forecast",
         baseline=None,
         forecast_h=round(fc.hours, 2),

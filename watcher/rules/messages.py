@@ -154,10 +154,13 @@ def _range(path: str, lo: float, hi: float) -> str:
 
 def baseline_text(path: str, baseline: Baseline) -> str:
     """``median 1.2 M, SD 50 k over 20 accepted runs`` or ``lab mean +0 ppm, SD 1``."""
+    unit = metric_unit(path)
+    sd = f"{baseline.sd * 100:.2g} %" if unit == "%" else fmt_number(baseline.sd)
+    sd = f"{sd} {unit}" if unit and unit != "%" else sd
     if baseline.is_fixed:
-        return f"lab mean {fmt_value(path, baseline.centre)}, SD {fmt_number(baseline.sd)}"
+        return f"lab mean {fmt_value(path, baseline.centre)}, SD {sd}"
     return (
-        f"median {fmt_value(path, baseline.centre)}, robust SD {fmt_number(baseline.sd)} "
+        f"median {fmt_value(path, baseline.centre)}, robust SD {sd} "
         f"over {baseline.n_runs} accepted runs"
     )
 
@@ -177,7 +180,12 @@ def _hit_phrase(path: str, hit: Hit, baseline: Baseline | None) -> str:
     if field.startswith("diff_"):
         diff = fmt_value(path, compared) if metric_unit(path) == "ppm" else fmt_number(compared)
         return f"{diff} from {base}, {hit.limit.replace('baseline difference ', '')}"
-    return f"z = {compared:+.1f} against {base}, {hit.limit}"
+    if isinstance(th, tuple):
+        lo, hi = th
+        beyond = f"beyond ±{hi:g} SD" if lo == -hi else f"outside {lo:g} to {hi:g} SD"
+    else:
+        beyond = f"{'above' if field == 'z_above' else 'below'} {th:g} SD"
+    return f"z = {compared:+.1f} against {base}, {beyond}"
 
 
 def limit_message(
