@@ -103,12 +103,14 @@ def make_run(
     noise_peaks: int = 60,
     seed: int = 7,
     rt_start_s: float = 1.0,
+    intensity_jitter: float = 0.0,
 ) -> list[Scan]:
     """A DDA-like run: an MS1 scan every ``cycle_s`` followed by ``ms2_per_cycle`` MS2 scans.
 
     Args:
         state_profile: when False, ``Scan.is_profile`` is left None (readers that cannot tell).
         noise_peaks: random background peaks per MS1 scan (100-1000 m/z, 1e3-2e4 counts).
+        intensity_jitter: relative SD of multiplicative noise on every MS1 point (e.g. 0.03).
     """
     rng = np.random.default_rng(seed)
     targets = [c.mz for c in calibrants]
@@ -133,6 +135,8 @@ def make_run(
             if all(abs(mz_noise - t) / t * 1e6 > 200.0 for t in targets):
                 peaks.append((float(mz_noise), float(rng.uniform(1e3, 2e4))))
         mz, intensity = profile_arrays(peaks) if profile else centroid_arrays(peaks)
+        if intensity_jitter:
+            intensity = intensity * (1.0 + intensity_jitter * rng.standard_normal(intensity.size))
         scans.append(
             Scan(
                 index=index,

@@ -41,15 +41,18 @@ def test_constant_offset_recovered(
         calibrants=[Calibrant(SILOXANE_MZ, ppm=lambda _rt: offset_ppm)],
         profile=profile,
         state_profile=state_profile,
+        intensity_jitter=0.02 if profile else 0.0,
     )
     drift = _measure(scans, SILOXANE).calibrants[0]
     # synthetic ground truth: every MS1 scan holds the calibrant shifted by offset_ppm
     assert drift.median_ppm == pytest.approx(offset_ppm, abs=tol_ppm)
     assert drift.found_fraction == 1.0
     assert drift.scans_found == 60
-    assert drift.median_intensity == pytest.approx(2.0e5, rel=1e-3)
+    assert drift.median_intensity == pytest.approx(2.0e5, rel=0.05)
     assert drift.mad_ppm == pytest.approx(0.0, abs=tol_ppm)
-    assert drift.slope_ppm_per_h == pytest.approx(0.0, abs=tol_ppm)
+    assert drift.slope_ppm_per_h is not None
+    # over the 2-min run the fitted drift stays within the ppm tolerance
+    assert abs(drift.slope_ppm_per_h) * 120 / 3600 < tol_ppm
 
 
 @pytest.mark.parametrize(("profile", "tol_ppm"), [(False, 0.05), (True, 0.3)])
@@ -63,6 +66,7 @@ def test_linear_drift_slope_and_median(profile: bool, tol_ppm: float) -> None:
         calibrants=[Calibrant(SILOXANE_MZ, ppm=lambda rt: -1.0 + slope_ppm_per_h * rt / 3600)],
         profile=profile,
         noise_peaks=10,
+        intensity_jitter=0.02 if profile else 0.0,
     )
     drift = _measure(scans, SILOXANE).calibrants[0]
     rts = np.array([s.rt_s for s in scans if s.ms_level == 1], dtype=np.float64)

@@ -63,39 +63,54 @@ def find_peak(
         top += 1
     while top > 0 and intensity[top - 1] > intensity[top]:
         top -= 1
-    apex_mz, apex_intensity = refine_apex(mz, intensity, top)
+    apex_mz, apex_intensity = refine_apex(mz, intensity, top, wide=True)
     if abs(apex_mz - mz_target) > half_width:
         return None
     return apex_mz, apex_intensity
 
 
-def refine_apex(x: FloatArray, y: FloatArray, i: int) -> tuple[float, float]:
-    """Apex position and height from sample ``i`` and its two neighbours.
+def refine_apex(x: FloatArray, y: FloatArray, i: int, *, wide: bool = False) -> tuple[float, float]:
+    """Apex position and height from sample ``i`` and one point on either side of it.
 
-    A parabola through the log intensities is exact for a Gaussian peak, which ToF and
-    Orbitrap profile peaks and chromatographic peaks approximate; the top sample alone can be
-    off by half the spacing (1-3 ppm in m/z). Falls back to a parabola through the raw
-    intensities when a neighbour is not positive, and to the sample itself at an array edge or
-    on a flat top.
+    A parabola through the log intensities of three points is exact for a Gaussian peak, which
+    ToF and Orbitrap profile peaks and chromatographic peaks approximate; the top sample alone
+    can be off by half the spacing (1-3 ppm in m/z). With ``wide`` the side points are the
+    outermost contiguous samples still at or above half the top height (the direct neighbours
+    when sampling is coarse): still exact for a Gaussian, but on a densely sampled peak the
+    three top samples differ by a percent or two, so point noise of that size would swing the
+    apex by a ppm; points near half height pin the curvature down. Falls back to a parabola
+    through the raw intensities when a side point is not positive, and to the sample itself at
+    an array edge or when the three points are not concave.
     """
-    if i <= 0 or i >= x.size - 1:
+    last = x.size - 1
+    if i <= 0 or i >= last or not y[i] > 0:
         return float(x[i]), float(y[i])
-    y0, y1, y2 = float(y[i - 1]), float(y[i]), float(y[i + 1])
-    if y1 <= 0 or y0 > y1 or y2 > y1:
-        return float(x[i]), y1
+    left, right = i - 1, i + 1
+    if wide:
+        half = 0.5 * float(y[i])
+        while left > 0 and y[left - 1] >= half and y[left - 1] <= y[left]:
+            left -= 1
+        while right < last and y[right + 1] >= half and y[right + 1] <= y[right]:
+            right += 1
+    return _vertex(
+        float(x[left]), float(y[left]), float(x[i]), float(y[i]), float(x[right]), float(y[right])
+    )
+
+
+def _vertex(
+    x0: float, y0: float, x1: float, y1: float, x2: float, y2: float
+) -> tuple[float, float]:
+    """Vertex of the (log-)parabola through three points, centred on the middle one."""
     gaussian = y0 > 0 and y2 > 0
-    if gaussian:
-        y0, y1, y2 = math.log(y0), math.log(y1), math.log(y2)
-    # Centre on x[i]: m/z values near 1000 squared would lose the sub-mDa differences.
-    h0 = float(x[i] - x[i - 1])
-    h2 = float(x[i + 1] - x[i])
+    v0, v1, v2 = (math.log(y0), math.log(y1), math.log(y2)) if gaussian else (y0, y1, y2)
+    # Centre on x1: m/z values near 1000 squared would lose the sub-mDa differences.
+    h0, h2 = x1 - x0, x2 - x1
     if h0 <= 0 or h2 <= 0:
-        return float(x[i]), float(y[i])
-    a = ((y0 - y1) / h0 + (y2 - y1) / h2) / (h0 + h2)
-    if a >= 0:  # three collinear points: a flat top has no better estimate than the sample
-        return float(x[i]), float(y[i])
-    b = (y2 - y1) / h2 - a * h2
-    u = -b / (2 * a)
-    top = y1 - b * b / (4 * a)
-    u = min(max(u, -h0), h2)
-    return float(x[i]) + u, math.exp(top) if gaussian else top
+        return x1, y1
+    a = ((v0 - v1) / h0 + (v2 - v1) / h2) / (h0 + h2)
+    if a >= 0:  # not concave: no better estimate than the top sample
+        return x1, y1
+    b = (v2 - v1) / h2 - a * h2
+    u = min(max(-b / (2 * a), -h0), h2)
+    top = v1 + a * u * u + b * u
+    return x1 + u, math.exp(top) if gaussian else top

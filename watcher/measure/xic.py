@@ -77,14 +77,14 @@ class XicTrace:
             return absent(self.ion)
         top = int(np.argmax(height))
         # Apex between scans: the same 3-point Gaussian refinement as in m/z, over RT.
-        apex_rt_s, apex_intensity = refine_apex(rt, height, top)
+        apex_rt_s, apex_intensity = refine_apex(rt, height, top, wide=True)
         return ExpectedIonResult(
             name=self.ion.name,
             mz=self.ion.mz,
             found=apex_intensity >= self.min_intensity,
             apex_rt_s=apex_rt_s,
             apex_intensity=apex_intensity,
-            ppm=ppm_error(float(peak_mz[top]), self.ion.mz),
+            ppm=ppm_error(_apex_mz(peak_mz, height, top), self.ion.mz),
             fwhm_s=fwhm(rt, height, top, apex_intensity / 2),
             m1_ratio=float(m1[top] / height[top]),
             m1_ratio_expected=self.ion.m1_ratio_expected,
@@ -104,6 +104,25 @@ def absent(ion: ResolvedIon) -> ExpectedIonResult:
         m1_ratio=None,
         m1_ratio_expected=ion.m1_ratio_expected,
     )
+
+
+def _apex_mz(peak_mz: FloatArray, height: FloatArray, top: int) -> float:
+    """Intensity-weighted mean peak m/z over the contiguous scans at or above half the top scan.
+
+    One scan's profile apex carries its own sampling noise (a few tenths of a ppm); the scans
+    across the top of the elution measure the same ion, so their weighted mean is steadier.
+    """
+    half = 0.5 * float(height[top])
+    left = top
+    while left > 0 and height[left - 1] >= half and math.isfinite(peak_mz[left - 1]):
+        left -= 1
+    right = top
+    while (
+        right < height.size - 1 and height[right + 1] >= half and math.isfinite(peak_mz[right + 1])
+    ):
+        right += 1
+    weights = height[left : right + 1]
+    return float((peak_mz[left : right + 1] * weights).sum() / weights.sum())
 
 
 def fwhm(rt_s: FloatArray, height: FloatArray, top: int, half: float) -> float | None:
