@@ -1,9 +1,12 @@
-"""Entry point of the measuring child process: one run file in, its RunMetrics or ReadError out.
+"""Entry point of the measuring child process: run files in, RunMetrics or ReadError out.
 
-Run as ``python -m watcher.childmeasure``. The parent writes a pickle of ``(config, path,
-memory_mb)`` to stdin; the child caps its own address space (RLIMIT_AS) before importing the
-readers, measures, and writes a pickle of ``("ok", metrics)`` or ``("error", kind, reason)`` to
-stdout. Both ends are this package, so pickle carries the frozen records as they are.
+Run as ``python -m watcher.childmeasure``. The child imports the readers once, writes one ready
+byte, then serves requests until stdin closes. Each request is a length-prefixed pickle of
+``(config, path, memory_mb)``; before measuring, the child lowers its soft address-space limit
+(RLIMIT_AS) to ``memory_mb``, and it answers with a length-prefixed pickle of
+``("ok", metrics)`` or ``("error", kind, reason)``. Both ends are this package, so pickle
+carries the frozen records as they are. After running out of memory the child answers and
+exits, because a MemoryError can leave the interpreter in a poor state.
 """
 
 from __future__ import annotations
@@ -13,11 +16,14 @@ import os
 import pickle
 import resource
 import signal
+import struct
 import sys
 from pathlib import Path
-from typing import Any
+from typing import Any, BinaryIO
 
 _PR_SET_PDEATHSIG = 1
+READY = b"R"
+HEADER = struct.Struct(">Q")
 
 
 def _die_with_parent() -> None:
@@ -33,11 +39,23 @@ def _die_with_parent() -> None:
 
 def _limit_memory(memory_mb: int) -> None:
     limit = memory_mb * 1024 * 1024
+    _, hard = resource.getrlimit(resource.RLIMIT_AS)
+    if hard != resource.RLIM_INFINITY:
+        limit = min(limit, hard)
     try:
-        resource.setrlimit(resource.RLIMIT_AS, (limit, limit))
+        # Only the soft limit: the next request may need a larger one (it scales with file size).
+        resource.setrlimit(resource.RLIMIT_AS, (limit, hard))
     except (OSError, ValueError):
         # A seccomp filter without prlimit64 refuses it; the wall-clock limit and the unit's
         # MemoryMax still bound the child.
+        return
+
+
+def _no_limit() -> None:
+    _, hard = resource.getrlimit(resource.RLIMIT_AS)
+    try:
+        resource.setrlimit(resource.RLIMIT_AS, (hard, hard))
+    except (OSError, ValueError):
         return
 
 
@@ -58,17 +76,40 @@ def measure(config: Any, path: Path, memory_mb: int) -> tuple[Any, ...]:
         return ("error", "corrupt", f"{type(exc).__name__}: {first_line}")
 
 
+def read_frame(stream: BinaryIO) -> bytes | None:
+    """One length-prefixed frame, or None at end of stream."""
+    header = stream.read(HEADER.size)
+    if len(header) < HEADER.size:
+        return None
+    (length,) = HEADER.unpack(header)
+    data = stream.read(length)
+    return data if len(data) == length else None
+
+
+def frame(data: bytes) -> bytes:
+    return HEADER.pack(len(data)) + data
+
+
 def main() -> int:
     _die_with_parent()
-    config, path, memory_mb = pickle.loads(sys.stdin.buffer.read())  # noqa: S301 - our parent
-    _limit_memory(int(memory_mb))
-    result = measure(config, Path(path), int(memory_mb))
-    try:
-        data = pickle.dumps(result)
-    except MemoryError:
-        data = pickle.dumps(("error", "memory", f"out of memory (limit {memory_mb} MB)"))
-    sys.stdout.buffer.write(data)
-    sys.stdout.buffer.flush()
+    import watcher.measure.run  # noqa: F401 - imported once, before the ready byte
+
+    out = sys.stdout.buffer
+    out.write(READY)
+    out.flush()
+    while (data := read_frame(sys.stdin.buffer)) is not None:
+        config, path, memory_mb = pickle.loads(data)  # noqa: S301 - sent by our parent
+        _limit_memory(int(memory_mb))
+        result = measure(config, Path(path), int(memory_mb))
+        _no_limit()
+        try:
+            answer = pickle.dumps(result)
+        except MemoryError:
+            answer = pickle.dumps(("error", "memory", f"out of memory (limit {memory_mb} MB)"))
+        out.write(frame(answer))
+        out.flush()
+        if result[0] == "error" and result[1] == "memory":
+            return 0
     return 0
 
 

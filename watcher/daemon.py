@@ -183,6 +183,8 @@ class Daemon:
         self.wake_worker.set()
         if self._worker is not None:
             self._worker.join(10.0)
+        if self.pipeline is not None:
+            self.pipeline.child.close()
         if self.notifier is not None and self.conn is not None:
             with db.write(self.conn):
                 self.notifier.record_event(self.conn, "daemon.stopped", self.clock())

@@ -8,9 +8,11 @@ Nothing slow happens inside a transaction: hashing, the child and judging come f
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import os
 import pickle
+import select
 import signal
 import sqlite3
 import subprocess
@@ -18,13 +20,14 @@ import sys
 import threading
 import time
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
 import structlog
 
+from watcher.childmeasure import HEADER, READY, frame
 from watcher.config import Config, Limits
 from watcher.records import RunFile, RunMetrics, Status, Verdict
 from watcher.store import db, jobs
@@ -71,65 +74,136 @@ def sha256_file(path: Path, stop: threading.Event | None = None) -> str:
     return digest.hexdigest()
 
 
-def measure_in_child(
-    config: Config, path: Path, size: int, stop: threading.Event | None = None
-) -> ChildResult:
-    """Run ``python -m watcher.childmeasure`` with both limits; kill it past either."""
-    limit_s = time_limit_s(config.limits, size)
-    memory_mb = memory_limit_mb(config.limits, size)
-    env = dict(os.environ)
-    # One thread per numeric library: BLAS thread pools reserve address space under RLIMIT_AS.
-    env.update(OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1", MKL_NUM_THREADS="1")
-    proc = subprocess.Popen(
-        [sys.executable, "-m", "watcher.childmeasure"],
-        stdin=subprocess.PIPE,
-        stdout=subprocess.PIPE,
-        stderr=subprocess.PIPE,
-        env=env,
-    )
-    payload = pickle.dumps((config, str(path), memory_mb))
-    deadline = time.monotonic() + limit_s
-    out = err = b""
-    first = True
-    while True:
+class MeasuringChild:
+    """One long-lived ``python -m watcher.childmeasure``, spawned on demand, killed past a limit.
+
+    The child pays the interpreter start and the reader imports (about a second) once, not per
+    run, so a burst of small files is not bound by process start-up. Past the wall-clock limit
+    the child is killed and the next run starts a fresh one; it is also recycled every
+    ``recycle_after`` runs so that no slow growth accumulates over months.
+    """
+
+    def __init__(self, *, startup_limit_s: float = 120.0, recycle_after: int = 500) -> None:
+        self._proc: subprocess.Popen[bytes] | None = None
+        self._served = 0
+        self._startup_limit_s = startup_limit_s
+        self._recycle_after = recycle_after
+
+    def measure(
+        self, config: Config, path: Path, size: int, stop: threading.Event | None = None
+    ) -> ChildResult:
+        """Measure one file in the child; kill it past the time limit, report memory exhaustion."""
+        limit_s = time_limit_s(config.limits, size)
+        memory_mb = memory_limit_mb(config.limits, size)
+        proc = self._ensure(stop)
+        payload = frame(pickle.dumps((config, str(path), memory_mb)))
         try:
-            out, err = proc.communicate(
-                input=payload if first else None,
-                timeout=max(0.01, min(0.25, deadline - time.monotonic())),
-            )
-            break
-        except subprocess.TimeoutExpired:
-            first = False
-            if stop is not None and stop.is_set():
-                _kill(proc)
-                raise Stopped from None
-            if time.monotonic() >= deadline:
-                _kill(proc)
+            if proc.stdin is None:
+                raise BrokenPipeError
+            proc.stdin.write(payload)
+            proc.stdin.flush()
+        except (BrokenPipeError, OSError):
+            return self._died(memory_mb)
+        data = self._read_frame(proc, time.monotonic() + limit_s, stop)
+        if data is None:
+            if proc.poll() is None:  # still running: the time limit passed
+                self.close()
                 shown = f"{limit_s:.0f}" if limit_s >= 10 else f"{limit_s:.2g}"
                 return ChildResult(None, "timeout", f"timeout after {shown} s")
-    if proc.returncode == 0 and out:
+            return self._died(memory_mb)
+        self._served += 1
         try:
-            result: tuple[Any, ...] = pickle.loads(out)  # noqa: S301 - our own child
+            result: tuple[Any, ...] = pickle.loads(data)  # noqa: S301 - our own child
         except (pickle.UnpicklingError, EOFError, AttributeError, ValueError) as exc:
+            self.close()
             return ChildResult(None, "corrupt", f"measuring process sent no result ({exc})")
+        if self._served >= self._recycle_after or result[1:2] == ("memory",):
+            self.close()
         if result[0] == "ok":
             return ChildResult(result[1])
         return ChildResult(None, str(result[1]), str(result[2]))
-    text = err.decode("utf-8", "replace")
-    if "MemoryError" in text or proc.returncode == -signal.SIGKILL:
-        return ChildResult(None, "memory", f"out of memory (limit {memory_mb} MB)")
-    last = (text.strip().splitlines() or ["no message"])[-1][:200]
-    return ChildResult(
-        None, "corrupt", f"measuring process failed (exit {proc.returncode}): {last}"
-    )
+
+    def close(self) -> None:
+        """Stop the child (kill: it holds nothing worth saving)."""
+        proc, self._proc = self._proc, None
+        self._served = 0
+        if proc is None:
+            return
+        if proc.poll() is None:
+            proc.kill()
+        for stream in (proc.stdin, proc.stdout):
+            if stream is not None:
+                with contextlib.suppress(OSError):
+                    stream.close()
+        proc.wait(timeout=10)
+
+    def _ensure(self, stop: threading.Event | None) -> subprocess.Popen[bytes]:
+        if self._proc is not None and self._proc.poll() is None:
+            return self._proc
+        self.close()
+        env = dict(os.environ)
+        # One thread per numeric library: BLAS thread pools reserve address space under RLIMIT_AS.
+        env.update(OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1", MKL_NUM_THREADS="1")
+        proc = subprocess.Popen(
+            [sys.executable, "-m", "watcher.childmeasure"],
+            stdin=subprocess.PIPE,
+            stdout=subprocess.PIPE,
+            stderr=subprocess.DEVNULL,
+            env=env,
+        )
+        self._proc = proc
+        if proc.stdout is None:
+            raise ChildStartError("the measuring process has no output pipe")
+        ready = _read_exact(proc.stdout.fileno(), 1, time.monotonic() + self._startup_limit_s, stop)
+        if ready != READY:
+            self.close()
+            raise ChildStartError("the measuring process did not start")
+        return proc
+
+    def _read_frame(
+        self, proc: subprocess.Popen[bytes], deadline: float, stop: threading.Event | None
+    ) -> bytes | None:
+        if proc.stdout is None:
+            return None
+        fd = proc.stdout.fileno()
+        header = _read_exact(fd, HEADER.size, deadline, stop)
+        if header is None:
+            return None
+        (length,) = HEADER.unpack(header)
+        return _read_exact(fd, length, deadline, stop)
+
+    def _died(self, memory_mb: int) -> ChildResult:
+        proc = self._proc
+        code = proc.wait(timeout=10) if proc is not None else None
+        self.close()
+        if code == -signal.SIGKILL:  # killed by the kernel's OOM killer or the unit's MemoryMax
+            return ChildResult(None, "memory", f"out of memory (limit {memory_mb} MB)")
+        return ChildResult(None, "corrupt", f"measuring process died (exit {code})")
 
 
-def _kill(proc: subprocess.Popen[bytes]) -> None:
-    proc.kill()
-    try:
-        proc.communicate(timeout=5)
-    except (subprocess.TimeoutExpired, ValueError):
-        proc.wait(timeout=5)
+class ChildStartError(Exception):
+    """The measuring child did not come up (it is retried with the next run)."""
+
+
+def _read_exact(fd: int, n: int, deadline: float, stop: threading.Event | None) -> bytes | None:
+    """``n`` bytes from ``fd`` by ``deadline``; None on timeout or end of stream."""
+    chunks: list[bytes] = []
+    got = 0
+    while got < n:
+        if stop is not None and stop.is_set():
+            raise Stopped
+        wait_s = min(0.25, deadline - time.monotonic())
+        if wait_s <= 0:
+            return None
+        readable, _, _ = select.select([fd], [], [], wait_s)
+        if not readable:
+            continue
+        chunk = os.read(fd, min(n - got, 1 << 20))
+        if not chunk:
+            return None
+        chunks.append(chunk)
+        got += len(chunk)
+    return b"".join(chunks)
 
 
 @dataclass(slots=True)
@@ -150,6 +224,7 @@ class Pipeline:
     stop: threading.Event
     clock: Callable[[], float] = time.time
     last_file: str | None = None
+    child: MeasuringChild = field(default_factory=MeasuringChild)
 
     def process(self, job: jobs.Job) -> str:
         """Take a claimed job to ``done`` (back to ``queued`` when stopping); returns outcome."""
@@ -158,6 +233,7 @@ class Pipeline:
         try:
             return self._process(config, job)
         except Stopped:
+            self.child.close()
             with db.write(self.conn):
                 jobs.release(self.conn, job.id, self.clock())
             log.info("run.requeued", reason="daemon stopping")
@@ -200,7 +276,7 @@ class Pipeline:
                 log.info("run.duplicate", same_as=str(twin.path), run_id=twin.run_id)
                 return "duplicate"
             started = time.monotonic()
-            result = measure_in_child(config, path, job.size, self.stop)
+            result = self.child.measure(config, path, job.size, self.stop)
             if result.metrics is not None:
                 log.info(
                     "run.measured",
