@@ -9,6 +9,8 @@ tell whether it is a compression type, so it is loaded lazily, on first use.
 from __future__ import annotations
 
 import functools
+import gzip
+from importlib import resources
 from typing import Any
 
 COMPRESSION_PARENT = "MS:1000572"  # binary data compression type
@@ -23,11 +25,17 @@ def disable_remote() -> None:
 
 @functools.cache
 def load_cv() -> Any:
-    """The PSI-MS CV as a psims ``ControlledVocabulary``; the same object on every call."""
-    disable_remote()
-    from psims.controlled_vocabulary.controlled_vocabulary import load_psims
+    """The PSI-MS CV as a psims ``ControlledVocabulary``; the same object on every call.
 
-    return load_psims()
+    Read straight from the copy psims bundles (its own loader leaves that file open, which
+    shows up as a ResourceWarning), with remote fetching off for any later psims use.
+    """
+    disable_remote()
+    from psims.controlled_vocabulary.controlled_vocabulary import ControlledVocabulary
+
+    bundled = resources.files("psims.controlled_vocabulary.vendor") / "psi-ms.obo.gz"
+    with bundled.open("rb") as raw, gzip.GzipFile(fileobj=raw) as obo:
+        return ControlledVocabulary.from_obo(obo)
 
 
 def term_name(accession: str) -> str | None:

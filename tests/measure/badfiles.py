@@ -1,0 +1,140 @@
+"""Helpers that craft broken and hostile run files in a test's tmp_path from the reference files.
+
+Every file is derived from /work/shared/reference/ (mzML examples of HUPO-PSI, pymzML and
+pyteomics; the mzXML and MGF files of pyteomics' tests): cut, damaged or wrapped, never invented
+from scratch, so the damage is the only thing that differs from a file known to parse.
+"""
+
+from __future__ import annotations
+
+import base64
+import csv
+import gzip
+import hashlib
+import re
+import zlib
+from collections.abc import Iterator
+from pathlib import Path
+
+REFERENCE = Path("/work/shared/reference")
+TINY = REFERENCE / "mzml" / "tiny.pwiz.1.1.mzML"  # indexed, uncompressed, mixed RT units
+EXAMPLE = REFERENCE / "mzml" / "example.mzML"  # indexed, zlib arrays
+PLAIN = REFERENCE / "mzml" / "adv_mzqc_in_mzml.mzML"  # not indexed
+MZXML = REFERENCE / "mzxml" / "test.mzXML"
+MGF = REFERENCE / "mgf" / "test.mgf"
+SECRET_MARKER = "IONWARDEN-SECRET-7f3a9c"  # noqa: S105 - a marker, not a password
+
+
+def tsv_rows(name: str) -> list[dict[str, str]]:
+    """Rows of a reference TSV, skipping its '#' provenance lines (reference/README.md)."""
+    with (REFERENCE / name).open(encoding="utf-8") as fh:
+        return list(csv.DictReader((ln for ln in fh if not ln.startswith("#")), delimiter="\t"))
+
+
+def write(tmp: Path, name: str, data: bytes) -> Path:
+    """Write ``data`` to ``tmp/name`` and return the path."""
+    path = tmp / name
+    path.write_bytes(data)
+    return path
+
+
+def reindexed(data: bytes) -> bytes:
+    """Recompute the offset index and SHA-1 of an indexedmzML after its body was edited."""
+    body_end = data.index(b"<indexList")
+    head = data[:body_end]
+    lines = []
+    for match in re.finditer(rb'<spectrum index="\d+" id="([^"]*)"', head):
+        lines.append(b'      <offset idRef="%s">%d</offset>' % (match.group(1), match.start()))
+    index = (
+        b'<indexList count="1">\n    <index name="spectrum">\n'
+        + b"\n".join(lines)
+        + b"\n    </index>\n  </indexList>\n"
+    )
+    prefix = head + index + b"  <indexListOffset>%d</indexListOffset>\n  <fileChecksum>" % len(head)
+    digest = hashlib.sha1(prefix).hexdigest().encode()  # noqa: S324 - mzML's own checksum
+    return prefix + digest + b"</fileChecksum>\n</indexedmzML>\n"
+
+
+def replace_first_binary(data: bytes, new_text: bytes, *, after: int = 0) -> bytes:
+    """Swap the text of the first ``<binary>`` element at or after byte ``after``."""
+    start = data.index(b"<binary>", after) + len(b"<binary>")
+    end = data.index(b"</binary>", start)
+    return data[:start] + new_text + data[end:]
+
+
+def with_compression(data: bytes, accession: bytes, name: bytes) -> bytes:
+    """Relabel every array's compression term (no-compression -> ``accession``)."""
+    return data.replace(
+        b'accession="MS:1000576" name="no compression"',
+        b'accession="' + accession + b'" name="' + name + b'"',
+    )
+
+
+def bad_zlib(example: bytes) -> bytes:
+    """example.mzML with the first zlib array's bytes damaged, then re-encoded as valid base64."""
+    start = example.index(b"<binary>") + len(b"<binary>")
+    end = example.index(b"</binary>", start)
+    raw = bytearray(base64.b64decode(example[start:end]))
+    raw[2:12] = b"\xff" * 10  # inside the deflate stream: invalid block header
+    return reindexed(example[:start] + base64.b64encode(bytes(raw)) + example[end:])
+
+
+def gz(data: bytes) -> bytes:
+    """gzip ``data`` (mtime fixed so the bytes are reproducible)."""
+    return gzip.compress(data, mtime=0)
+
+
+def zlib_ok(data: bytes) -> bool:
+    """True when ``data`` inflates (used to make sure a 'bad zlib' case really is bad)."""
+    try:
+        zlib.decompress(data)
+    except zlib.error:
+        return False
+    return True
+
+
+# --- hostile XML (RELIABILITY.md item 1) ----------------------------------------------------
+
+
+def attack_files(tmp: Path) -> Iterator[tuple[str, Path]]:
+    """The four entity attacks, each as mzML and as mzXML; the secret file holds the marker."""
+    secret = tmp / "secret.txt"
+    secret.write_text(SECRET_MARKER, encoding="utf-8")
+    dtd = tmp / "evil.dtd"
+    dtd.write_text(f'<!ENTITY leak SYSTEM "{secret.as_uri()}">\n', encoding="utf-8")
+    mzml_body = TINY.read_bytes()
+    mzxml_body = MZXML.read_bytes()
+    for fmt, body, root in (("mzML", mzml_body, b"indexedmzML"), ("mzXML", mzxml_body, b"mzXML")):
+        prolog_end = body.index(b"?>") + 2
+        decl, rest = body[:prolog_end], body[prolog_end:]
+        doctypes = {
+            "xxe_general": (
+                b'<!DOCTYPE %s [<!ENTITY xxe SYSTEM "%s">]>' % (root, secret.as_uri().encode()),
+                b"&xxe;",
+            ),
+            "xxe_param_dtd": (
+                b'<!DOCTYPE %s [<!ENTITY %% ext SYSTEM "%s"> %%ext;]>'
+                % (root, dtd.as_uri().encode()),
+                b"&leak;",
+            ),
+            "billion_laughs": (_laughs(root), b"&l9;"),
+            "quadratic_blowup": (
+                b'<!DOCTYPE %s [<!ENTITY big "%s">]>' % (root, b"B" * 100_000),
+                b"&big;" * 20_000,
+            ),
+        }
+        for attack, (doctype, ref) in doctypes.items():
+            # The reference goes where pyteomics would copy it into a record: an element's text.
+            tag = b"<spectrum " if fmt == "mzML" else b"<scan "
+            at = rest.index(tag)
+            close = rest.index(b">", at) + 1
+            payload = rest[:close] + b"<note>" + ref + b"</note>" + rest[close:]
+            suffix = ".mzML" if fmt == "mzML" else ".mzXML"
+            yield f"{attack}-{fmt}", write(tmp, attack + suffix, decl + b"\n" + doctype + payload)
+
+
+def _laughs(root: bytes) -> bytes:
+    parts = [b'<!ENTITY l0 "lol">']
+    for level in range(1, 10):
+        parts.append(b'<!ENTITY l%d "%s">' % (level, b"&l%d;" % (level - 1) * 10))
+    return b"<!DOCTYPE " + root + b" [" + b"".join(parts) + b"]>"
