@@ -347,10 +347,16 @@ ION_CASES = [
         id="duplicate-ion",
     ),
     pytest.param(
-        "calibrants:\n  - {name: caf, formula: C8H10N4O2}  #<\n",
-        "calibrants[0]",
-        "a formula ion needs an adduct",
-        id="formula-no-adduct",
+        "calibrants:\n  - {name: lock, mz: 445.12, adduct: '+H'}  #<\n",
+        "calibrants[0].adduct",
+        "adduct does not apply to an ion given by mz",
+        id="adduct-with-mz",
+    ),
+    pytest.param(
+        "calibrants:\n  - {name: caf, formula: C8H10N4O2, adduct: 'H+'}  #<\n",
+        "calibrants[0].adduct",
+        "expected an adduct such as +H",
+        id="adduct-syntax",
     ),
     pytest.param(
         "calibrants:\n  - {name: lock.1, mz: 445.12}  #<\n",
@@ -359,10 +365,10 @@ ION_CASES = [
         id="name-with-dot",
     ),
     pytest.param(
-        "calibrants:\n  - {name: lock, peptide: yggfl}  #<\n",
+        "calibrants:\n  - {name: lock, peptide: YGG1L}  #<\n",
         "calibrants[0].peptide",
         "expected a peptide in one-letter amino-acid codes",
-        id="peptide-lowercase",
+        id="peptide-digit",
     ),
     pytest.param(
         "calibrants:\n  - {name: lock, mz: 445.12, serch_ppm: 30}  #<\n",

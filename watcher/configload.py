@@ -401,14 +401,8 @@ def _ion(v: Values, path: KeyPath, m: dict[str, Any]) -> IonSpec | None:
     v.put(kw, m, path, "adduct", lambda p, x: v.pattern(p, x, "adduct"))
     v.put(kw, m, path, "charge", lambda p, x: v.integer(p, x, ne=0))
     v.put(kw, m, path, "search_ppm", lambda p, x: v.number(p, x, gt=0))
-    if "adduct" in m and "formula" not in m:
-        v.problem((*path, "adduct"), "adduct applies only to a formula ion (peptides are [M+zH]z+)")
-        ok = False
-    if "formula" in m and "adduct" not in m:
-        v.problem(path, "a formula ion needs an adduct, such as '+H' or '-H'")
-        ok = False
-    if "peptide" in m and isinstance(kw.get("charge"), int) and kw["charge"] < 0:
-        v.problem((*path, "charge"), f"expected a peptide charge >= 1, got {kw['charge']}")
+    if "adduct" in m and "mz" in m:
+        v.problem((*path, "adduct"), "adduct does not apply to an ion given by mz")
         ok = False
     if not ok or "name" not in kw:
         return None
@@ -619,15 +613,21 @@ _COMPARE: dict[str, Callable[[float, float], bool]] = {
     "<=": operator.le,
 }
 _TIME_RE = re.compile(r"^([01]?[0-9]|2[0-3]):([0-5][0-9])$")
+# Syntax only, as watcher.measure.ions reads them; elements and residues are checked when the
+# ions are resolved (that needs pyteomics, which `validate` does not load).
+_ADDUCT_TERMS = r"(?:[+-][0-9]*(?:[A-Z][A-Za-z0-9]*|\.))+"
 _PATTERNS = {
-    "formula": (re.compile(r"^(?:[A-Z][a-z]?[0-9]*)+$"), "an elemental formula such as C8H10N4O2"),
+    "formula": (
+        re.compile(r"^(?:[A-Z][a-z]?[0-9]*|\(|\)[0-9]*)+$"),
+        "an elemental formula such as C8H10N4O2 or (C2H6SiO)6",
+    ),
     "peptide": (
-        re.compile(r"^[ACDEFGHIKLMNPQRSTVWYUO]+$"),
+        re.compile(r"^[ACDEFGHIKLMNPQRSTVWYUO]+$", re.IGNORECASE),
         "a peptide in one-letter amino-acid codes such as YGGFL",
     ),
     "adduct": (
-        re.compile(r"^(?:(?:[+-][0-9]*[A-Z][A-Za-z0-9]*)+|M[+-]\.)$"),
-        "an adduct such as +H, +Na, +NH4, -H, M+. or M-.",
+        re.compile(rf"^(?:M?{_ADDUCT_TERMS}|\[M?{_ADDUCT_TERMS}\][0-9]*[+-]\.?)$"),
+        "an adduct such as +H, +Na, +NH4, -H, +2H, [M+2H]2+, M+. or M-.",
     ),
 }
 
