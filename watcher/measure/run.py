@@ -6,10 +6,9 @@ check, reader) and turns a file without spectra into a ReadError.
 
 from __future__ import annotations
 
-from collections.abc import Callable, Iterable, Iterator
+from collections.abc import Callable, Iterable
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any
 
 from watcher.config import Config, IonSpec
 from watcher.errors import ConfigError, ConfigProblem, ReadError
@@ -117,8 +116,7 @@ def measure_file(
 
     formats.check_complete(path)
     needs_arrays = bool(config.calibrants or config.expected_ions)
-    opened = read.open_run(path, ms1_arrays=needs_arrays, progress=progress)
-    with _OpenedRun(opened) as (header, scans):
+    with read.open_run(path, ms1_arrays=needs_arrays, progress=progress) as (header, scans):
         metrics = measure_scans(header, scans, config, file_name=path.name)
     if metrics.signal.ms1_count + metrics.signal.ms2_count == 0:
         raise ReadError(path, "no spectra in file", kind="empty")
@@ -160,36 +158,3 @@ def _parse_acquired_at(text: str | None) -> datetime | None:
     if stamp.tzinfo is None:
         stamp = stamp.replace(tzinfo=UTC)
     return stamp.astimezone(UTC)
-
-
-class _OpenedRun:
-    """Adapt what ``read.open_run`` returns to ``(header, scans)`` and close it afterwards.
-
-    Accepts a ``(header, scans)`` pair, or an object with a ``header`` attribute that iterates
-    scans (optionally a context manager, or with ``scans`` / ``close``).
-    """
-
-    def __init__(self, opened: Any) -> None:
-        self._opened = opened
-        self._entered: Any = None
-
-    def __enter__(self) -> tuple[RunHeader, Iterator[Scan]]:
-        opened = self._opened
-        if isinstance(opened, tuple):
-            header, scans = opened
-            return header, iter(scans)
-        if hasattr(opened, "__enter__"):
-            self._entered = opened.__enter__()
-            opened = self._entered if self._entered is not None else opened
-            if isinstance(opened, tuple):
-                header, scans = opened
-                return header, iter(scans)
-        header = opened.header
-        scans = opened.scans if hasattr(opened, "scans") else opened
-        return header, iter(scans() if callable(scans) else scans)
-
-    def __exit__(self, *exc_info: object) -> None:
-        if hasattr(self._opened, "__exit__"):
-            self._opened.__exit__(*exc_info)
-        elif hasattr(self._opened, "close"):
-            self._opened.close()
