@@ -70,13 +70,17 @@ def with_compression(data: bytes, accession: bytes, name: bytes) -> bytes:
     )
 
 
-def bad_zlib(example: bytes) -> bytes:
-    """example.mzML with the first zlib array's bytes damaged, then re-encoded as valid base64."""
+def bad_zlib(example: bytes, *, reindex: bool = True) -> bytes:
+    """example.mzML with the first zlib array's bytes damaged, then re-encoded as valid base64.
+
+    ``reindex=False`` keeps the old SHA-1, as a file damaged after writing would.
+    """
     start = example.index(b"<binary>") + len(b"<binary>")
     end = example.index(b"</binary>", start)
     raw = bytearray(base64.b64decode(example[start:end]))
     raw[2:12] = b"\xff" * 10  # inside the deflate stream: invalid block header
-    return reindexed(example[:start] + base64.b64encode(bytes(raw)) + example[end:])
+    damaged = example[:start] + base64.b64encode(bytes(raw)) + example[end:]
+    return reindexed(damaged) if reindex else damaged
 
 
 def gz(data: bytes) -> bytes:
