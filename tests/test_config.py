@@ -7,6 +7,8 @@ import time
 from pathlib import Path
 
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
 
 from watcher import config as cfg
 from watcher.configload import load_config, load_config_text
@@ -370,3 +372,31 @@ def test_ewma_and_forecast_values_arrive_typed() -> None:
     assert check.cusum == cfg.CusumSpec()
     assert check.forecast == cfg.ForecastSpec(runs=5, warn_within_h=6.0, severity=Severity.WARNING)
     assert check.critical == cfg.Condition(below=1e4)
+
+
+@given(st.floats(allow_nan=False, allow_infinity=False))
+def test_any_float_written_by_python_reads_back(value: float) -> None:
+    """A float as Python prints it (1e-05, 2.5e+16, -0.0) reads back as the same float."""
+    data, _lines, problems = read_yaml(f"x: {value!r}\n", source="t.yaml")
+    assert problems == []
+    assert data["x"] == value
+    assert isinstance(data["x"], float)
+
+
+@given(
+    st.lists(
+        st.tuples(
+            st.integers(min_value=0, max_value=10_000), st.sampled_from(["s", "min", "h", "d"])
+        ),
+        min_size=1,
+        max_size=3,
+    )
+)
+def test_duration_is_sum_of_its_parts(parts: list[tuple[int, str]]) -> None:
+    """'1h30min'-style durations are the sum of number x unit (60 s/min, 3600 s/h, 86400 s/d)."""
+    seconds_per_unit = {"s": 1, "min": 60, "h": 3600, "d": 86400}  # common practice
+    expected = sum(n * seconds_per_unit[unit] for n, unit in parts)
+    text = "".join(f"{n}{unit}" for n, unit in parts)
+    yaml_text = f"limits: {{parse_timeout_s_per_gb: {text}}}\n"
+    config = load_config_text(yaml_text, source="lab.yaml")
+    assert config.limits.parse_timeout_s_per_gb == expected
