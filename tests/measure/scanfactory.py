@@ -104,6 +104,7 @@ def make_run(
     seed: int = 7,
     rt_start_s: float = 1.0,
     intensity_jitter: float = 0.0,
+    polarity: int = 1,
 ) -> list[Scan]:
     """A DDA-like run: an MS1 scan every ``cycle_s`` followed by ``ms2_per_cycle`` MS2 scans.
 
@@ -147,7 +148,7 @@ def make_run(
                 base_peak_intensity=float(intensity.max()) if mz.size else None,
                 injection_time_ms=20.0,
                 is_profile=profile if state_profile else None,
-                polarity=1,
+                polarity=polarity,
                 mz=mz,
                 intensity=intensity,
             )
@@ -166,7 +167,7 @@ def make_run(
                     precursor_mz=500.0,
                     precursor_charge=2 + (k % 2),
                     is_profile=False,
-                    polarity=1,
+                    polarity=polarity,
                 )
             )
             index += 1

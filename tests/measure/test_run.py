@@ -65,6 +65,27 @@ def test_demo_run_measures_every_metric() -> None:
     assert flat["signal.ms1_count"] == 330
 
 
+def test_negative_mode_run_finds_deprotonated_ion_only() -> None:
+    """In a negative-mode run [M-H]- caffeine is found; the positive [M+H]+ spec is not searched."""
+    negative = IonSpec(name="caffeine-neg", formula="C8H10N4O2", adduct="-H", charge=-1)
+    ion = resolve(negative)
+    scans = make_run(
+        duration_s=300,
+        polarity=-1,
+        analytes=[Analyte(mz=ion.mz, charge=-1, apex_rt_s=150.0, fwhm_rt_s=8.0, height=4e5)],
+        calibrants=[Calibrant(resolve(CAFFEINE).mz)],  # same m/z as a positive ion would have
+    )
+    config = Config(
+        calibrants=(CAFFEINE,),
+        expected_ions=(ExpectedIon(ion=negative, min_intensity=1e4),),
+    )
+    metrics = measure_scans(header(), scans, config, file_name="S02_0001.mzML")
+    # molmass (test_ions): caffeine [M-H]- at m/z 193.073099; scan polarity -1 throughout
+    assert metrics.expected_ions[0].found
+    assert metrics.expected_ions[0].apex_rt_s == pytest.approx(150.0, abs=2.0)
+    assert metrics.calibrants[0].found_fraction == 0.0
+
+
 def test_run_without_ms1_has_note_and_null_measures() -> None:
     """Without MS1 spectra, calibrant and XIC values are null with a note; counts remain."""
     scans = [

@@ -18,7 +18,7 @@ THEIL_SEN_MAX_POINTS = 2000
 
 
 def as_array(values: Sequence[float] | FloatArray) -> FloatArray:
-    """A float64 copy-free view of ``values`` with NaNs removed."""
+    """``values`` as a float64 array without NaN or infinite entries."""
     arr = np.asarray(values, dtype=np.float64)
     return arr[np.isfinite(arr)]
 

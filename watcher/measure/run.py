@@ -68,9 +68,9 @@ def measure_scans(
             if _polarity_matches(cal.ion, scan):
                 cal.add(scan.rt_s, mz, intensity, profile=profile)
         for xic in expected:
-            if _polarity_matches(xic.ion, scan) and xic.wants(scan.rt_s):
-                assert scan.rt_s is not None  # noqa: S101 - wants() rejects scans without RT
-                xic.add(scan.rt_s, mz, intensity, profile=profile)
+            rt_s = scan.rt_s
+            if rt_s is not None and _polarity_matches(xic.ion, scan) and xic.wants(rt_s):
+                xic.add(rt_s, mz, intensity, profile=profile)
     signal_metrics = signal.summary(config.signal)
     notes: list[str] = []
     drifts: tuple[CalibrantDrift, ...] = tuple(cal.summary() for cal in calibrants)
