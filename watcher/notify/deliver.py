@@ -31,7 +31,7 @@ with warnings.catch_warnings():
     import apprise
     from apprise.manager_plugins import NotificationManager
 
-    NotificationManager().load_modules()
+    NotificationManager().load_modules()  # type: ignore[no-untyped-call]
 
 from watcher.config import Alerts, Channel
 from watcher.errors import DeliveryError

@@ -43,8 +43,12 @@ def _dates(ax: Axes) -> None:
 
 
 def _x(times: Sequence[datetime]) -> list[float]:
-    """Datetimes as matplotlib date numbers (days), which the date axis formats."""
-    return [float(date2num(t)) for t in times]  # type: ignore[no-untyped-call]
+    """Datetimes as matplotlib date numbers (days), which the date axis formats.
+
+    Wall-clock time as given: matplotlib would convert aware datetimes to UTC, and the digest's
+    axes must read in the instrument's zone, as its tables do.
+    """
+    return [float(date2num(t.replace(tzinfo=None))) for t in times]  # type: ignore[no-untyped-call]
 
 
 def _png(fig: Figure) -> bytes:
@@ -87,7 +91,7 @@ def levey_jennings(
                     linewidth=1,
                     label=f"±{k} SD" if sign == 1 else None,
                 )
-        ax.legend(fontsize=7, loc="upper right")
+        ax.legend(fontsize=7, loc="best")
     ax.set_ylabel(ylabel, fontsize=8)
     if xs:
         _dates(ax)

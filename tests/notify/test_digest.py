@@ -1,0 +1,270 @@
+"""The daily digest from real history rows: summary text, HTML content, and headless Chromium."""
+
+from __future__ import annotations
+
+import argparse
+import base64
+import io
+import re
+import shutil
+import subprocess
+from contextlib import redirect_stdout
+from datetime import UTC, date, datetime, timedelta
+from pathlib import Path
+
+import pytest
+
+from watcher import cmd_digest
+from watcher.config import (
+    BaselineSpec,
+    Check,
+    Condition,
+    Config,
+    ExpectedIon,
+    Instrument,
+    IonSpec,
+)
+from watcher.notify import digest as digest_mod
+from watcher.records import (
+    CalibrantDrift,
+    ExpectedIonResult,
+    Finding,
+    RunFile,
+    RunMetrics,
+    Severity,
+    SignalMetrics,
+    Status,
+    Verdict,
+)
+from watcher.store import db, history
+
+# m/z from shared/reference/check-ions.tsv (molmass column).
+SILOXANE_MZ = 445.120025
+CAFFEINE_MZ = 195.087652
+
+CONFIG = Config(
+    instrument=Instrument(name="Kestrel-2 Q-TOF", timezone="Europe/Oslo"),
+    calibrants=(IonSpec(name="siloxane-445", mz=SILOXANE_MZ, search_ppm=30),),
+    expected_ions=(
+        ExpectedIon(
+            ion=IonSpec(name="caffeine", formula="C8H10N4O2", adduct="+H"),
+            rt_window_min=(2.0, 4.0),
+        ),
+    ),
+    checks=(
+        Check(
+            name="calibration drift",
+            metric="calibrant.siloxane-445.median_ppm",
+            warning=Condition(outside=(-3.0, 3.0)),
+            baseline=BaselineSpec(mean=0.0, sd=1.0),
+        ),
+    ),
+)
+
+DAY = date(2026, 3, 10)
+
+
+def _verdict(i: int, at: datetime, ppm: float, *, findings: tuple[Finding, ...] = ()) -> Verdict:
+    metrics = RunMetrics(
+        file=f"QC_{i:03d}.mzML",
+        format="mzML",
+        acquired_at=at,
+        signal=SignalMetrics(
+            ms1_count=600,
+            ms2_count=0,
+            rt_start_s=0.0,
+            rt_end_s=720.0,
+            tic_median=2.0e7 * (1 - 0.05 * i),
+            bpi_median=1.0e6,
+            dropouts=0,
+            longest_dropout_s=0.0,
+        ),
+        calibrants=(
+            CalibrantDrift(
+                name="siloxane-445",
+                mz=SILOXANE_MZ,
+                median_ppm=ppm,
+                mad_ppm=0.3,
+                p05_ppm=ppm - 0.5,
+                p95_ppm=ppm + 0.5,
+                found_fraction=1.0,
+                median_intensity=4.0e4,
+                slope_ppm_per_h=0.0,
+            ),
+        ),
+        expected_ions=(
+            ExpectedIonResult(
+                name="caffeine",
+                mz=CAFFEINE_MZ,
+                found=True,
+                apex_rt_s=180.0 + i,
+                apex_intensity=3.0e6,
+                ppm=ppm,
+                fwhm_s=6.0,
+                m1_ratio=0.10,
+                m1_ratio_expected=0.1032,
+            ),
+        ),
+    )
+    status = Status.WARNING if findings else Status.OK
+    return Verdict(
+        run_file=RunFile(path=Path(f"/exports/QC_{i:03d}.mzML"), size=10, mtime_ns=i),
+        status=status,
+        metrics=metrics,
+        findings=findings,
+        judged_at=at + timedelta(minutes=13),
+    )
+
+
+@pytest.fixture(scope="module")
+def state(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """A state database with 8 QC runs on 10 March (Oslo), the last one drifting to +3.8 ppm."""
+    state_dir = tmp_path_factory.mktemp("state")
+    conn = db.connect(state_dir, daemon=True)
+    start = datetime(2026, 3, 10, 0, 30, tzinfo=UTC)
+    with db.write(conn):
+        for i in range(8):
+            ppm = [0.2, -0.4, 0.6, 0.1, 1.2, 1.9, 2.7, 3.8][i]
+            findings: tuple[Finding, ...] = ()
+            if ppm > 3:
+                findings = (
+                    Finding(
+                        check="calibration drift",
+                        severity=Severity.WARNING,
+                        metric="calibrant.siloxane-445.median_ppm",
+                        subject="calibrant.siloxane-445.median_ppm",
+                        message="siloxane-445 is +3.8 ppm off",
+                        value=ppm,
+                        limit="outside [-3, 3]",
+                        rule="limit",
+                    ),
+                )
+            history.record_verdict(
+                conn, _verdict(i, start + timedelta(hours=2 * i), ppm, findings=findings)
+            )
+    conn.close()
+    return state_dir
+
+
+def test_build_digest_counts_and_findings(state: Path) -> None:
+    """8 runs, 1 warning, the finding row, calibrant mean of the 8 ppm values (sum 10.1 / 8)."""
+    conn = db.connect(state, readonly=True)
+    d = digest_mod.build_digest(conn, CONFIG, DAY)
+    conn.close()
+    assert d.run_count == 8
+    assert d.by_status == {"ok": 7, "warning": 1}
+    assert [(f.file, f.check, f.value) for f in d.findings] == [
+        ("QC_007.mzML", "calibration drift", "3.8")
+    ]
+    (cal,) = d.calibrants
+    assert cal.mean_ppm == pytest.approx(10.1 / 8)
+    assert cal.baseline == "fixed by check 'calibration drift'"
+    assert [c.kind for c in d.charts] == [
+        "levey-jennings",
+        "tic",
+        "ion-intensity",
+        "ion-rt",
+        "status",
+    ]
+    for chart in d.charts:
+        assert chart.png.startswith(b"\x89PNG\r\n\x1a\n")  # PNG signature (PNG spec, RFC 2083)
+    text = digest_mod.render_text(d)
+    assert "runs: 8 (ok 7, notice 0, warning 1, critical 0, unreadable 0)" in text
+    assert "QC_007.mzML warning calibration drift: 3.8" in text
+
+
+def test_day_bounds_follow_the_local_day() -> None:
+    """10 March in Oslo is 09 March 23:00 to 10 March 23:00 UTC (CET = UTC+1, IANA tzdata)."""
+    start, end = digest_mod.day_bounds(DAY, "Europe/Oslo")
+    assert start == datetime(2026, 3, 9, 23, 0, tzinfo=UTC)
+    assert end == datetime(2026, 3, 10, 23, 0, tzinfo=UTC)
+
+
+def test_html_is_self_contained(state: Path) -> None:
+    """The page has inline PNGs only: no scripts, no external src or href."""
+    conn = db.connect(state, readonly=True)
+    page = digest_mod.render_html(digest_mod.build_digest(conn, CONFIG, DAY))
+    conn.close()
+    assert "<script" not in page
+    assert not re.search(r'(src|href)="(?!data:)', page)
+    images = re.findall(r'src="data:image/png;base64,([^"]+)"', page)
+    assert len(images) == 5
+    assert all(base64.b64decode(i).startswith(b"\x89PNG") for i in images)
+
+
+def test_digest_command_prints_summary_and_writes_html(state: Path, tmp_path: Path) -> None:
+    """ionwarden digest --date prints the summary and the HTML path, exit 0."""
+    cfg = tmp_path / "lab.yaml"
+    cfg.write_text(
+        "instrument: {name: Kestrel-2 Q-TOF, timezone: Europe/Oslo}\n"
+        f"state_dir: {state}\n"
+        "calibrants:\n  - {name: siloxane-445, mz: 445.120025, search_ppm: 30}\n"
+    )
+    out_html = tmp_path / "d.html"
+    buf = io.StringIO()
+    with redirect_stdout(buf):
+        code = cmd_digest.main(
+            argparse.Namespace(config=str(cfg), date="2026-03-10", out=str(out_html))
+        )
+    assert code == 0
+    assert "Kestrel-2 Q-TOF: digest for 2026-03-10" in buf.getvalue()
+    assert f"HTML: {out_html}" in buf.getvalue()
+    assert "siloxane-445" in out_html.read_text()
+    with redirect_stdout(io.StringIO()):
+        bad = cmd_digest.main(argparse.Namespace(config=str(cfg), date="10/03/2026", out=None))
+    assert bad == 2
+
+
+CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
+FLAGS = [
+    "--headless",
+    "--no-sandbox",
+    "--disable-gpu",
+    "--no-first-run",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+    "--enable-logging=stderr",
+    "--v=0",
+]
+
+
+@pytest.mark.skipif(CHROMIUM is None, reason="chromium is not installed (CI installs it)")
+def test_digest_html_opens_in_headless_chromium(state: Path, tmp_path: Path) -> None:
+    """Chromium renders the page without console errors; its DOM has the names, rows, images."""
+    conn = db.connect(state, readonly=True)
+    page = tmp_path / "digest.html"
+    page.write_text(digest_mod.render_html(digest_mod.build_digest(conn, CONFIG, DAY)))
+    conn.close()
+    assert CHROMIUM is not None
+    shot = tmp_path / "shot.png"
+    dom = subprocess.run(
+        [CHROMIUM, *FLAGS, f"--user-data-dir={tmp_path / 'p1'}", "--dump-dom", page.as_uri()],
+        capture_output=True,
+        text=True,
+        timeout=60,
+        check=True,
+    )
+    subprocess.run(
+        [
+            CHROMIUM,
+            *FLAGS,
+            f"--user-data-dir={tmp_path / 'p2'}",
+            f"--screenshot={shot}",
+            "--window-size=1100,2400",
+            page.as_uri(),
+        ],
+        capture_output=True,
+        timeout=60,
+        check=True,
+    )
+    assert "Uncaught" not in dom.stderr
+    assert "ERROR:CONSOLE" not in dom.stderr
+    assert "siloxane-445" in dom.stdout
+    assert dom.stdout.count('<tr class="finding">') == 1
+    assert "QC_007.mzML" in dom.stdout
+    assert (
+        len(re.findall(r'<img [^>]*src="data:image/png;base64,[A-Za-z0-9+/=]{100,}', dom.stdout))
+        == 5
+    )
+    assert shot.read_bytes().startswith(b"\x89PNG")
