@@ -7,12 +7,13 @@ import time
 from pathlib import Path
 
 import pytest
-from hypothesis import given
+import yaml
+from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from watcher import config as cfg
-from watcher.configload import load_config, load_config_text
-from watcher.errors import ConfigError
+from watcher.configload import KEYS, load_config, load_config_text
+from watcher.errors import ConfigError, ConfigProblem
 from watcher.records import CalibrantDrift, ExpectedIonResult, Severity, SignalMetrics
 from watcher.yamllines import MAX_NODES, format_path, read_yaml, resolve_plain
 
@@ -400,3 +401,60 @@ def test_duration_is_sum_of_its_parts(parts: list[tuple[int, str]]) -> None:
     yaml_text = f"limits: {{parse_timeout_s_per_gb: {text}}}\n"
     config = load_config_text(yaml_text, source="lab.yaml")
     assert config.limits.parse_timeout_s_per_gb == expected
+
+
+@pytest.mark.parametrize(
+    ("text", "fragment"),
+    [
+        ("secrets_file: ''\n", "expected non-empty text, got ''"),
+        ("secrets_file: 5\n", "expected non-empty text, got 5"),
+        ("secrets_file: missing.yaml\n", "cannot read secrets file"),
+        ("secrets_file: list.yaml\n", "expected a mapping of NAME: value"),
+    ],
+)
+def test_secrets_file_problems(tmp_path: Path, text: str, fragment: str) -> None:
+    """A secrets_file that is not a readable private mapping is one problem at its line."""
+    (tmp_path / "list.yaml").write_text("- a\n- b\n")
+    (tmp_path / "list.yaml").chmod(0o600)
+    lab = tmp_path / "lab.yaml"
+    lab.write_text(text)
+    with pytest.raises(ConfigError) as caught:
+        load_config(lab)
+    assert len(caught.value.problems) == 1
+    assert str(caught.value).startswith(f"{lab}:1: secrets_file: ")
+    assert fragment in str(caught.value)
+
+
+_WORDS = sorted({key for keys in KEYS.values() for key in keys})
+_LEAVES = (
+    st.none()
+    | st.booleans()
+    | st.integers(min_value=-5, max_value=10**6)
+    | st.floats(allow_nan=True, allow_infinity=True)
+    | st.sampled_from(["", "4h", "07:30", "1-3s", "QC_*", "re:(", "+H", "C8H10N4O2", "notice"])
+    | st.text(max_size=8)
+)
+_TREES = st.recursive(
+    _LEAVES,
+    lambda inner: (
+        st.lists(inner, max_size=4)
+        | st.dictionaries(st.sampled_from(_WORDS) | st.text(max_size=5), inner, max_size=5)
+    ),
+    max_leaves=30,
+)
+
+
+@settings(max_examples=150, deadline=None)
+@given(st.dictionaries(st.sampled_from(_WORDS), _TREES, max_size=6))
+def test_any_yaml_gives_a_config_or_config_error(data: dict[str, object]) -> None:
+    """Whatever shape the YAML has, loading returns a Config or raises ConfigError, nothing else."""
+    text = yaml.safe_dump(data)
+    config: cfg.Config | None = None
+    problems: list[ConfigProblem] = []
+    try:
+        config = load_config_text(text, source="lab.yaml", environ={})
+    except ConfigError as exc:
+        problems = exc.problems
+    if config is None:
+        assert problems
+        assert all(p.file == "lab.yaml" and p.message for p in problems)

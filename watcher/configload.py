@@ -132,7 +132,10 @@ KEYS: dict[str, tuple[str, ...]] = {
     "health_log": ("dir", "keep_days"),
     "limits": ("parse_timeout_s", "parse_timeout_s_per_gb", "parse_memory_mb", "queue_max"),
 }
-_BASELINE_ONLY = frozenset(k for k in KEYS["condition"] if k.endswith("_ratio") or k[:2] in "diz_")
+_BASELINE_ONLY = frozenset(
+    {"below_ratio", "above_ratio", "diff_above", "diff_below", "diff_outside"}
+    | {"z_above", "z_below", "z_outside"}
+)
 _SEVERITIES = ("notice", "warning", "critical")
 _TRENDS = ("westgard", "ewma", "cusum", "forecast")
 _VAR_RE = re.compile(r"\$(\$\{)|\$\{([A-Za-z_][A-Za-z0-9_]*)(?::-([^}]*))?\}")
@@ -182,8 +185,10 @@ def load_config_text(
         raise ConfigError(problems)
     values = Values(source, lines, base)
     env = dict(os.environ if environ is None else environ)
-    if isinstance(data, dict) and isinstance(data.get("secrets_file"), str):
+    if isinstance(data, dict) and "secrets_file" in data:
         env = _with_secrets(values, data["secrets_file"], env)
+    if isinstance(data, dict):
+        data.pop("secrets_file", None)  # read above; expanding it again would repeat its problems
     data = _expand(values, data, (), env)
     config = _config(values, data, Path(source))
     if values.problems:
@@ -191,13 +196,17 @@ def load_config_text(
     return config
 
 
-def _with_secrets(v: Values, raw: str, env: dict[str, str]) -> dict[str, str]:
+def _with_secrets(v: Values, raw: Any, env: dict[str, str]) -> dict[str, str]:
     """``env`` overlaid with the names in the secrets file (which win over the environment)."""
     path_key: KeyPath = ("secrets_file",)
+    known_problems = len(v.problems)
     expanded = _expand(v, raw, path_key, env)
-    if not isinstance(expanded, str):
+    if len(v.problems) > known_problems:
         return env
-    path = v.path(path_key, expanded)
+    try:
+        path = v.path(path_key, expanded)
+    except Bad:
+        return env
     try:
         mode = path.stat().st_mode
         if mode & (stat.S_IRWXG | stat.S_IRWXO):
