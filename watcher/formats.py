@@ -77,35 +77,36 @@ def sniff(path: Path) -> Sniffed:
 def completeness(path: Path) -> str | None:
     """None when the file is structurally whole, else a short human reason why it is not.
 
-    A file that is not (yet) a run file at all raises instead: ``ReadError`` with
-    ``kind="wrong-format"`` or ``"xml-doctype"`` (see ``sniff_format``); waiting cannot fix it.
-    Empty files and files that start with NUL bytes get a reason: they may still be written.
+    Never raises. A file that can never become a run file (wrong format, a DOCTYPE) is not a
+    completeness question: the answer is None and ``open_run`` refuses it at once, rather than
+    intake waiting for it. Empty files, files that start with NUL bytes and files cut before
+    their root element get a reason: they may still be being written.
     """
     try:
         size = path.stat().st_size
-    except OSError as exc:
-        raise ReadError(path, f"cannot read file: {exc.strerror or exc}", kind="io") from exc
-    if size == 0:
-        return "file is empty (still being written?)"
-    head = _read_head(path)
-    if head[:1] == b"\x00":
-        return "file starts with NUL bytes (preallocated, still being written?)"
-    try:
+        if size == 0:
+            return "file is empty (still being written?)"
+        head = _read_head(path)
+        if head[:1] == b"\x00":
+            return "file starts with NUL bytes (preallocated, still being written?)"
         found = sniff(path)
+        if found.format == "mzML.gz":
+            return _gzip_completeness(path, found.root)
+        tail = _read_tail(path, size)
+        if found.format == "MGF":
+            return _mgf_completeness(path, tail)
+        return _xml_completeness(path, found.root, tail, size)
     except ReadError as exc:
-        if exc.kind == "empty":
-            return exc.reason
-        raise
-    if found.format == "mzML.gz":
-        return _gzip_completeness(path, found.root)
-    tail = _read_tail(path, size)
-    if found.format == "MGF":
-        return _mgf_completeness(path, tail)
-    return _xml_completeness(path, found.root, tail, size)
+        return exc.reason if exc.kind in ("empty", "io") else None
+    except OSError as exc:
+        return f"cannot read file: {exc.strerror or exc}"
 
 
 def check_complete(path: Path) -> None:
-    """Raise ``ReadError(kind="truncated")`` (``"empty"`` for a zero-byte file) unless whole."""
+    """Raise ``ReadError(kind="truncated")`` (``"empty"`` for a zero-byte file) unless whole.
+
+    Files of no known format pass here; ``open_run`` refuses them with ``kind="wrong-format"``.
+    """
     reason = completeness(path)
     if reason is not None:
         kind = "empty" if reason.startswith("file is empty") else "truncated"
@@ -171,6 +172,9 @@ def _sniff_xml(path: Path, text: bytes, where: str) -> Sniffed:
             )
         raise ReadError(path, f"{where}: no root element in the first 64 KiB", kind="wrong-format")
     match = _ROOT_RE.match(text, prolog_end)
+    rest = text[prolog_end:]
+    if match is None and len(text) < _HEAD_BYTES and _is_root_prefix(rest):
+        raise ReadError(path, f"{where} ends inside the root start tag", kind="empty")
     if match is None:
         raise ReadError(
             path,
@@ -179,6 +183,11 @@ def _sniff_xml(path: Path, text: bytes, where: str) -> Sniffed:
         )
     root = match.group(1).decode()
     return Sniffed("mzXML" if root == "mzXML" else "mzML", root)
+
+
+def _is_root_prefix(rest: bytes) -> bool:
+    # "<indexedmz" with nothing after it: a file caught in the first moments of being written.
+    return any(name.startswith(rest) for name in (b"<indexedmzML", b"<mzML", b"<mzXML"))
 
 
 def _prolog_end(text: bytes) -> int:
@@ -213,7 +222,10 @@ def _looks_like_mgf(text: bytes) -> bool:
         if exc.start < len(text) - 4:  # a multi-byte character cut at the 64 KiB boundary is fine
             return False
         decoded = text[: exc.start].decode("utf-8")
-    for line in decoded.splitlines():
+    lines = decoded.splitlines()
+    if lines and not decoded.endswith("\n") and "BEGIN IONS".startswith(lines[-1].strip().upper()):
+        lines.pop()  # a last line still being written ("BEGIN IO") says nothing either way
+    for line in lines:
         stripped = line.strip()
         if not stripped or stripped.startswith(_MGF_COMMENT_PREFIXES):
             continue
@@ -310,7 +322,7 @@ def _mgf_completeness(path: Path, tail: bytes) -> str | None:
     begins, ends = _count_mgf_blocks(path)
     if begins != ends:
         return f"MGF has {begins} BEGIN IONS but {ends} END IONS"
-    if begins and last_line.upper() != b"END IONS":
+    if last_line.upper() != b"END IONS":
         return "MGF does not end with END IONS (truncated while copying?)"
     return None
 

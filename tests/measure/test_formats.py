@@ -160,6 +160,27 @@ def test_mgf_cut_after_begin_ions(tmp_path: Path) -> None:
     assert reason == "MGF has 2 BEGIN IONS but 1 END IONS"
 
 
+@pytest.mark.parametrize(
+    ("name", "data"),
+    [
+        ("QC_start.mzML", b'<?xml version="1.0"?>\n<indexedmz'),
+        ("QC_start.mgf", b"COM=Kestrel-2\nBEGIN IO"),
+    ],
+)
+def test_file_caught_while_starting_to_be_written(tmp_path: Path, name: str, data: bytes) -> None:
+    """A file cut inside its root tag or first BEGIN IONS line gets a reason, not a refusal."""
+    assert completeness(bf.write(tmp_path, name, data)) is not None
+
+
+def test_completeness_never_raises_on_foreign_files(tmp_path: Path) -> None:
+    """A JPEG named .mzML is not a completeness question: None, and open_run refuses it."""
+    path = bf.write(tmp_path, "QC_photo.mzML", b"\xff\xd8\xff\xe0\x00\x10JFIF" + bytes(200))
+    assert completeness(path) is None
+    with pytest.raises(ReadError) as info:
+        sniff_format(path)
+    assert info.value.kind == "wrong-format"
+
+
 def test_file_starting_with_nul_is_still_being_written(tmp_path: Path) -> None:
     """A preallocated file of NUL bytes gets a reason (wait), not a wrong-format refusal."""
     reason = completeness(bf.write(tmp_path, "QC_pre.mzML", b"\x00" * 4096))
