@@ -243,11 +243,14 @@ def _adduct_delta(name: str, adduct: str, charge: int) -> tuple[dict[str, int], 
     """Elements the adduct adds (negative: removes) and the ion's signed charge."""
     text = adduct.replace(" ", "")
     stated_charge: int | None = None
-    bracket = re.fullmatch(r"\[(.*)\](\d*)([+-])\.?", text)
+    bracket = re.fullmatch(r"\[(.*)\](\d*)([+-])(\.?)", text)
     if bracket:
         text = bracket.group(1)
         stated_charge = int(bracket.group(2) or 1) * (1 if bracket.group(3) == "+" else -1)
     text = text.removeprefix("M")
+    if bracket and not text and bracket.group(4):
+        # "[M]+." / "[M]-.": the radical ion written with the charge outside the bracket.
+        text = f"{bracket.group(3)}{bracket.group(2)}."
     terms = _ADDUCT_TERM.findall(text)
     if not terms or "".join(s + c + g for s, c, g in terms) != text:
         raise ValueError(
