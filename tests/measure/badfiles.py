@@ -43,8 +43,10 @@ def reindexed(data: bytes) -> bytes:
     body_end = data.index(b"<indexList")
     head = data[:body_end]
     lines = []
-    for match in re.finditer(rb'<spectrum index="\d+" id="([^"]*)"', head):
-        lines.append(b'      <offset idRef="%s">%d</offset>' % (match.group(1), match.start()))
+    for match in re.finditer(rb"<spectrum\s[^>]*>", head):
+        found = re.search(rb'\sid="([^"]*)"', match.group(0))
+        assert found is not None
+        lines.append(b'      <offset idRef="%s">%d</offset>' % (found.group(1), match.start()))
     index = (
         b'<indexList count="1">\n    <index name="spectrum">\n'
         + b"\n".join(lines)
@@ -53,6 +55,33 @@ def reindexed(data: bytes) -> bytes:
     prefix = head + index + b"  <indexListOffset>%d</indexListOffset>\n  <fileChecksum>" % len(head)
     digest = hashlib.sha1(prefix).hexdigest().encode()  # noqa: S324 - mzML's own checksum
     return prefix + digest + b"</fileChecksum>\n</indexedmzML>\n"
+
+
+def as_indexed(plain: bytes) -> bytes:
+    """Wrap a plain mzML in indexedmzML with a correct offset index and SHA-1."""
+    decl_end = plain.index(b"?>") + 2
+    body = plain[decl_end:].strip()
+    wrapped = (
+        plain[:decl_end]
+        + b'\n<indexedmzML xmlns="http://psi.hupo.org/ms/mzml">\n'
+        + body
+        + b'\n  <indexList count="1"></indexList>'
+    )
+    return reindexed(wrapped)
+
+
+def inline_param_groups(data: bytes) -> bytes:
+    """Replace each referenceableParamGroupRef by the group's own cvParam lines."""
+    groups = dict(
+        re.findall(
+            rb'<referenceableParamGroup id="([^"]+)">\s*(.*?)\s*</referenceableParamGroup>',
+            data,
+            flags=re.S,
+        )
+    )
+    return re.sub(
+        rb'<referenceableParamGroupRef ref="([^"]+)"/>', lambda m: groups[m.group(1)], data
+    )
 
 
 def replace_first_binary(data: bytes, new_text: bytes, *, after: int = 0) -> bytes:

@@ -19,6 +19,7 @@ import pynumpress
 import pytest
 from lxml import etree
 
+from tests.measure import badfiles as bf
 from tests.measure.badfiles import EXAMPLE, REFERENCE, TINY, gz, tsv_rows, write
 from watcher.errors import ReadError
 from watcher.measure import cv, mzml
@@ -64,8 +65,37 @@ def _spectra_of(local_path: str) -> list[dict[str, str]]:
 @pytest.mark.parametrize("local_path", sorted({r["file"] for r in SPECTRA}), ids=lambda p: str(p))
 def test_per_spectrum_values_match_spectra_tsv(local_path: str) -> None:
     """Header values, RT in seconds, precursor and MS1 array sums match spectra.tsv per spectrum."""
-    scans = _read(REFERENCE / local_path)
-    rows = _spectra_of(local_path)
+    _check_against(_read(REFERENCE / local_path), _spectra_of(local_path))
+
+
+def test_byte_level_header_path_matches_spectra_tsv(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """tiny.pwiz with its param groups written inline is read without any XML header parse."""
+    data = bf.reindexed(bf.inline_param_groups(TINY.read_bytes()))
+    path = write(tmp_path, "QC_inline.mzML", data)
+
+    def no_xml_header(*_args: Any, **_kwargs: Any) -> Any:
+        raise AssertionError("XML header parse used")
+
+    monkeypatch.setattr(mzml, "scan_from_element", no_xml_header)
+    monkeypatch.setattr(mzml, "stream_scans", no_xml_header)
+    _check_against(_read(path), _spectra_of("mzml/tiny.pwiz.1.1.mzML"))
+
+
+def test_non_canonical_attribute_order_falls_back_to_xml(tmp_path: Path) -> None:
+    """adv_mzqc (unitAccession before unitCvRef) indexed gives the same scans as streamed."""
+    indexed = write(tmp_path, "QC_adv.mzML", bf.as_indexed(bf.PLAIN.read_bytes()))
+    streamed, through_index = _read(bf.PLAIN), _read(indexed)
+    assert [_fields(s) for s in through_index] == [_fields(s) for s in streamed]
+    for a, b in zip(through_index, streamed, strict=True):
+        assert a.intensity is not None
+        assert b.intensity is not None
+        assert np.array_equal(a.intensity, b.intensity)
+    _check_against(through_index, _spectra_of("mzml/adv_mzqc_in_mzml.mzML"))
+
+
+def _check_against(scans: list[Scan], rows: list[dict[str, str]]) -> None:
     assert len(scans) == len(rows)
     for scan, row in zip(scans, rows, strict=True):
         assert scan.ms_level == int(row["ms_level"])  # spectra.tsv ms_level
@@ -254,6 +284,15 @@ def test_index_missing_a_spectrum_falls_back_to_streaming() -> None:
     """example.mzML's index lists 10 of its 11 spectra: all 11 are still read, in order."""
     scans = _read(EXAMPLE)
     assert [s.index for s in scans] == list(range(11))  # files.tsv n_spectra = 11
+
+
+def test_empty_spectrum_index_falls_back_to_streaming(tmp_path: Path) -> None:
+    """An indexedmzML whose spectrum index is empty still yields all of its spectra."""
+    data = bf.as_indexed(bf.PLAIN.read_bytes())
+    start = data.index(b'<index name="spectrum">') + len(b'<index name="spectrum">')
+    end = data.index(b"</index>", start)
+    path = write(tmp_path, "QC_noentries.mzML", data[:start] + data[end:])
+    assert len(_read(path)) == 3  # files.tsv: adv_mzqc_in_mzml.mzML has 3 spectra
 
 
 def test_ms1_arrays_off_decodes_nothing() -> None:

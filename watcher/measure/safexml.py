@@ -8,6 +8,7 @@ prolog is checked here first, with lxml set to resolve nothing, load nothing and
 
 from __future__ import annotations
 
+import threading
 from collections.abc import Iterator
 from pathlib import Path
 from typing import Any, Protocol
@@ -52,7 +53,14 @@ def safe_iterparse(
 
 def parse_fragment(data: bytes) -> Any:
     """Parse one well-formed XML fragment (a spectrum element cut from a file) safely."""
-    return etree.fromstring(data, parser=safe_parser())
+    # Building a parser costs more than parsing a spectrum header: keep one per thread.
+    parser = getattr(_local, "parser", None)
+    if parser is None:
+        parser = _local.parser = safe_parser()
+    return etree.fromstring(data, parser=parser)
+
+
+_local = threading.local()
 
 
 def assert_no_doctype(source: Path | Readable, *, name: str | None = None) -> None:
