@@ -44,6 +44,22 @@ def test_profile_gaussian_apex_between_samples(phase: float, offset_ppm: float) 
     assert peak[1] == pytest.approx(3e5, rel=1e-4)
 
 
+def test_wide_side_points_steady_the_apex_under_point_noise() -> None:
+    """With 2 % point noise, half-height side points give a far steadier apex than neighbours."""
+    rng = np.random.default_rng(21)
+    true_mz = shifted(SILOXANE_MZ, 2.0)
+    mz, clean = profile_arrays([(true_mz, 3e5)], spacing_ppm=3.0)
+    wide_ppm, narrow_ppm = [], []
+    for _ in range(200):
+        noisy = clean * (1.0 + 0.02 * rng.standard_normal(clean.size))
+        top = int(np.argmax(noisy))
+        wide_ppm.append(ppm_error(refine_apex(mz, noisy, top, wide=True)[0], true_mz))
+        narrow_ppm.append(ppm_error(refine_apex(mz, noisy, top)[0], true_mz))
+    # synthetic ground truth: the same Gaussian (35 ppm FWHM, 3 ppm sampling) under noise
+    assert float(np.median(wide_ppm)) == pytest.approx(0.0, abs=0.3)
+    assert float(np.std(wide_ppm)) < 0.5 * float(np.std(narrow_ppm))
+
+
 def test_profile_top_sample_alone_would_be_off() -> None:
     """Without refinement the top sample is off by up to half a step; refinement fixes it."""
     true_mz = shifted(SILOXANE_MZ, 2.0)

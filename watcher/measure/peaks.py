@@ -1,7 +1,9 @@
 """Find one peak near a target m/z in a spectrum, and refine an apex between sampled points.
 
 Centroid spectra: the most intense point in the window. Profile spectra: the local maximum,
-refined by 3-point Gaussian interpolation. Pure numpy; no knowledge of ions or runs.
+refined by 3-point Gaussian interpolation (a parabola through log intensities; the side points
+are the outermost samples above half height, see ``refine_apex``). Pure numpy; no knowledge of
+ions or runs.
 """
 
 from __future__ import annotations
@@ -33,7 +35,7 @@ def find_peak(
     *,
     profile: bool,
 ) -> tuple[float, float] | None:
-    """The peak nearest in kind to ``mz_target`` within +-``tol_ppm``.
+    """The peak of the ion at ``mz_target``: its apex m/z and height within +-``tol_ppm``.
 
     Args:
         mz: ascending m/z values of one spectrum.
@@ -88,9 +90,9 @@ def refine_apex(x: FloatArray, y: FloatArray, i: int, *, wide: bool = False) -> 
     left, right = i - 1, i + 1
     if wide:
         half = 0.5 * float(y[i])
-        while left > 0 and y[left - 1] >= half and y[left - 1] <= y[left]:
+        while left > 0 and y[left - 1] >= half:
             left -= 1
-        while right < last and y[right + 1] >= half and y[right + 1] <= y[right]:
+        while right < last and y[right + 1] >= half:
             right += 1
     return _vertex(
         float(x[left]), float(y[left]), float(x[i]), float(y[i]), float(x[right]), float(y[right])
