@@ -229,6 +229,13 @@ def test_pyteomics_error_message_loses_the_absolute_path(tmp_path: Path) -> None
     assert "QC_mgf_peak.mgf" in str(error)
 
 
+def test_unclosed_mgf_spectrum_is_named(tmp_path: Path) -> None:
+    """An MGF whose last block lacks END IONS is reported as such, not as a parser crash."""
+    error = _read_error(_mgf_missing_end(tmp_path))
+    assert error is not None
+    assert "spectrum 2 has no END IONS" in error.reason  # test.mgf holds 2 spectra
+
+
 def test_stale_index_with_junk_streams_fast(tmp_path: Path) -> None:
     """A 160 KB no-whitespace run inside a spectrum with a stale index reads in well under 2 s."""
     # RELIABILITY.md item 1: pyteomics' byte indexer needs >120 s on this input.

@@ -23,6 +23,8 @@ def read_scans(source: IO[str]) -> Iterator[Scan]:
     )
     with reader:
         for index, spectrum in enumerate(reader):
+            if spectrum is None:  # pyteomics' way of saying the last block never closed
+                raise ValueError(f"spectrum {index + 1} has no END IONS (truncated while copying?)")
             yield _scan(spectrum, index)
 
 

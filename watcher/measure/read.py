@@ -21,7 +21,7 @@ from contextlib import ExitStack, contextmanager
 from pathlib import Path
 from typing import IO, Any
 
-from lxml import etree  # type: ignore[import-untyped]
+from lxml import etree  # type: ignore[import-untyped, unused-ignore]
 
 from watcher.errors import ReadError
 from watcher.formats import sniff
