@@ -39,6 +39,17 @@ def test_unreachable_socket_returns_false(tmp_path):
     assert notify("WATCHDOG=1", env={"NOTIFY_SOCKET": str(tmp_path / "none.sock")}) is False
 
 
+def test_full_receiver_never_blocks(tmp_path):
+    """A receiver that stops reading (its datagram queue full) gets False, and the call returns."""
+    path = tmp_path / "full.sock"
+    with socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM) as server:
+        server.bind(str(path))
+        env = {"NOTIFY_SOCKET": str(path)}
+        results = [notify("STATUS=x" * 100, env=env) for _ in range(2000)]
+    assert results[0] is True
+    assert results[-1] is False
+
+
 def test_watchdog_interval_is_half_the_period():
     """Ping at half of WATCHDOG_USEC, and only when WATCHDOG_PID is this process."""
     assert watchdog_interval_s({"WATCHDOG_USEC": "60000000"}) == 30.0

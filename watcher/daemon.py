@@ -446,7 +446,8 @@ class Daemon:
             self._busy_limit_s = time_limit_s(self.config.limits, job.size)
             self._busy_since = time.monotonic()
             try:
-                pipeline.process(job)
+                if pipeline.process(job) == "requeued" and not self.stop_event.is_set():
+                    self.stop_event.wait(5.0)  # the child could not start: do not spin
             except Exception:
                 log.exception("run.failed", file=str(job.path))
                 try:

@@ -103,14 +103,14 @@ class MeasuringChild:
             proc.stdin.write(payload)
             proc.stdin.flush()
         except (BrokenPipeError, OSError):
-            return self._died(memory_mb)
+            return self._died(memory_mb, stop)
         data = self._read_frame(proc, time.monotonic() + limit_s, stop)
         if data is None:
             if proc.poll() is None:  # still running: the time limit passed
                 self.close()
                 shown = f"{limit_s:.0f}" if limit_s >= 10 else f"{limit_s:.2g}"
                 return ChildResult(None, "timeout", f"timeout after {shown} s")
-            return self._died(memory_mb)
+            return self._died(memory_mb, stop)
         self._served += 1
         try:
             result: tuple[Any, ...] = pickle.loads(data)  # noqa: S301 - our own child
@@ -157,6 +157,8 @@ class MeasuringChild:
         ready = _read_exact(proc.stdout.fileno(), 1, time.monotonic() + self._startup_limit_s, stop)
         if ready != READY:
             self.close()
+            if stop is not None and stop.is_set():
+                raise Stopped
             raise ChildStartError("the measuring process did not start")
         return proc
 
@@ -172,10 +174,12 @@ class MeasuringChild:
         (length,) = HEADER.unpack(header)
         return _read_exact(fd, length, deadline, stop)
 
-    def _died(self, memory_mb: int) -> ChildResult:
+    def _died(self, memory_mb: int, stop: threading.Event | None) -> ChildResult:
         proc = self._proc
         code = proc.wait(timeout=10) if proc is not None else None
         self.close()
+        if stop is not None and stop.is_set():
+            raise Stopped  # systemd signals the whole cgroup on stop: not the file's fault
         if code == -signal.SIGKILL:  # killed by the kernel's OOM killer or the unit's MemoryMax
             return ChildResult(None, "memory", f"out of memory (limit {memory_mb} MB)")
         return ChildResult(None, "corrupt", f"measuring process died (exit {code})")
@@ -232,11 +236,12 @@ class Pipeline:
         structlog.contextvars.bind_contextvars(job_id=job.id, file=str(job.path))
         try:
             return self._process(config, job)
-        except Stopped:
+        except (Stopped, ChildStartError) as exc:
             self.child.close()
             with db.write(self.conn):
                 jobs.release(self.conn, job.id, self.clock())
-            log.info("run.requeued", reason="daemon stopping")
+            why = "daemon stopping" if isinstance(exc, Stopped) else str(exc)
+            log.info("run.requeued", reason=why)
             return "requeued"
         finally:
             structlog.contextvars.unbind_contextvars("job_id", "file", "run_id")
@@ -259,10 +264,10 @@ class Pipeline:
                 sha256 = sha256_file(path, self.stop)
             except OSError as exc:
                 return self._drop(job, f"cannot be read: {exc.strerror}")
-            with db.write(self.conn):
-                jobs.set_hash(self.conn, job.id, sha256)
-                twin = jobs.same_content(self.conn, sha256, job.id)
-                if twin is not None:
+            # One worker: no other job can finish between this read and the write below.
+            twin = jobs.same_content(self.conn, sha256, job.id)
+            if twin is not None:
+                with db.write(self.conn):
                     jobs.finish(
                         self.conn,
                         job.id,
@@ -271,8 +276,8 @@ class Pipeline:
                         outcome="duplicate",
                         run_id=twin.run_id,
                         duplicate_of=twin.id,
+                        sha256=sha256,
                     )
-            if twin is not None:
                 log.info("run.duplicate", same_as=str(twin.path), run_id=twin.run_id)
                 return "duplicate"
             started = time.monotonic()
@@ -301,9 +306,10 @@ class Pipeline:
                 outcome=str(verdict.status),
                 run_id=run_id,
                 verdict_blob=blob,
+                sha256=sha256,
             )
         structlog.contextvars.bind_contextvars(run_id=run_id)
-        self.write_health(job.id, verdict, run_id)
+        self.write_health(verdict, run_id)
         self.last_file = path.name
         log.info(
             "run.judged",
@@ -313,12 +319,10 @@ class Pipeline:
         )
         return str(verdict.status)
 
-    def write_health(self, job_id: int, verdict: Verdict, run_id: int | None) -> None:
-        """The health-log line after the commit (idempotent), then remember it was written."""
+    def write_health(self, verdict: Verdict, run_id: int) -> None:
+        """The health-log line, after the commit; idempotent by run_id."""
         if self.notifier is not None:
             self.notifier.write_health(verdict, run_id)
-        with db.write(self.conn):
-            jobs.mark_health_written(self.conn, job_id)
 
     def _judge(
         self, config: Config, run_file: RunFile, result: ChildResult
@@ -362,11 +366,11 @@ class Pipeline:
         return "skipped"
 
     def resume_health_lines(self) -> int:
-        """Start-up: health lines a kill cut off between commit and write; returns the count."""
-        rows = jobs.health_unwritten(self.conn)
-        for job_id, run_id, blob in rows:
+        """Start-up: re-offer the newest health lines (a kill may have cut one off)."""
+        rows = jobs.recent_verdicts(self.conn)
+        for run_id, blob in reversed(rows):
             verdict: Verdict = pickle.loads(blob)  # noqa: S301 - written by this daemon
-            self.write_health(job_id, verdict, run_id)
+            self.write_health(verdict, run_id)
         return len(rows)
 
 

@@ -29,7 +29,9 @@ def notify(message: str, *, env: dict[str, str] | None = None) -> bool:
         return False  # vsock and other address kinds are not used here
     try:
         with socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM | socket.SOCK_CLOEXEC) as sock:
-            sock.sendto(message.encode(), target)
+            # Never block: a receiver whose queue is full (max_dgram_qlen, 10 by default) would
+            # otherwise stall the main loop inside a status update.
+            sock.sendto(message.encode(), socket.MSG_DONTWAIT, target)
     except OSError:
         return False
     return True

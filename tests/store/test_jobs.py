@@ -54,19 +54,27 @@ def test_claim_oldest_first_and_requeue_after_crash(tmp_path):
     c2.close()
 
 
-def test_finish_and_health_bookkeeping(conn):
-    """A finished job stores run id and verdict; health lines not yet written are listed."""
+def test_finish_keeps_verdict_and_hash(conn):
+    """A finished job stores run id, hash and verdict; the newest verdicts come first."""
     with db.write(conn):
-        job_id = jobs.enqueue(conn, Path("/x/a.mzML"), 1, 1, 0.0)
-        assert job_id is not None
-        jobs.claim_next(conn, 1.0)
-        jobs.finish(
-            conn, job_id, 2.0, state=jobs.JobState.DONE, outcome="ok", run_id=7, verdict_blob=b"v"
-        )
-    assert jobs.health_unwritten(conn) == [(job_id, 7, b"v")]
-    with db.write(conn):
-        jobs.mark_health_written(conn, job_id)
-    assert jobs.health_unwritten(conn) == []
+        for n, name in enumerate(["a.mzML", "b.mzML"]):
+            job_id = jobs.enqueue(conn, Path("/x") / name, 1, 1, float(n))
+            assert job_id is not None
+            jobs.claim_next(conn, 1.0)
+            jobs.finish(
+                conn,
+                job_id,
+                2.0 + n,
+                state=jobs.JobState.DONE,
+                outcome="ok",
+                run_id=7 + n,
+                verdict_blob=name.encode(),
+                sha256=f"h{n}",
+            )
+    assert jobs.recent_verdicts(conn) == [(8, b"b.mzML"), (7, b"a.mzML")]
+    job = jobs.get(conn, 1)
+    assert job is not None
+    assert (job.sha256, job.state, job.run_id) == ("h0", jobs.JobState.DONE, 7)
     assert jobs.claim_next(conn, 3.0) is None
 
 

@@ -38,7 +38,6 @@ CREATE TABLE IF NOT EXISTS jobs (
     run_id INTEGER,
     duplicate_of INTEGER REFERENCES jobs(id),
     outcome TEXT,
-    health_written INTEGER NOT NULL DEFAULT 0,
     verdict BLOB,
     incomplete TEXT,
     UNIQUE (path, size, mtime_ns)
@@ -188,26 +187,28 @@ def finish(
     run_id: int | None = None,
     duplicate_of: int | None = None,
     verdict_blob: bytes | None = None,
+    sha256: str | None = None,
 ) -> None:
     """Mark a job ``done`` or ``failed`` (in the same transaction as its verdict)."""
     conn.execute(
         "UPDATE jobs SET state = ?, outcome = ?, run_id = ?, duplicate_of = ?, verdict = ?,"
-        " updated_s = ? WHERE id = ?",
-        (str(state), outcome, run_id, duplicate_of, verdict_blob, now_s, job_id),
+        " sha256 = coalesce(?, sha256), updated_s = ? WHERE id = ?",
+        (str(state), outcome, run_id, duplicate_of, verdict_blob, sha256, now_s, job_id),
     )
 
 
-def mark_health_written(conn: sqlite3.Connection, job_id: int) -> None:
-    conn.execute("UPDATE jobs SET health_written = 1 WHERE id = ?", (job_id,))
+def recent_verdicts(conn: sqlite3.Connection, limit: int = 3) -> list[tuple[int, bytes]]:
+    """(run_id, verdict blob) of the last judged jobs, newest first.
 
-
-def health_unwritten(conn: sqlite3.Connection) -> list[tuple[int, int | None, bytes]]:
-    """(job id, run_id, verdict blob) of done jobs whose health-log line may be missing."""
+    One worker finishes one job at a time, so a kill between a commit and its health-log line
+    can only affect the newest; re-writing a few is idempotent (the log skips known run ids).
+    """
     rows = conn.execute(
-        "SELECT id, run_id, verdict FROM jobs WHERE state = 'done' AND health_written = 0"
-        " AND verdict IS NOT NULL ORDER BY id"
+        "SELECT run_id, verdict FROM jobs WHERE state = 'done' AND verdict IS NOT NULL"
+        " AND run_id IS NOT NULL ORDER BY updated_s DESC, id DESC LIMIT ?",
+        (limit,),
     ).fetchall()
-    return [(r[0], r[1], r[2]) for r in rows]
+    return [(r[0], r[1]) for r in rows]
 
 
 def get(conn: sqlite3.Connection, job_id: int) -> Job | None:
