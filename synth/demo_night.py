@@ -58,34 +58,87 @@ class DemoRun:
 
 
 QUEUE: tuple[DemoRun, ...] = (
-    DemoRun(file="QC_001_mix.mzML", drift_ppm=0.4, story="first QC of the evening",
-            expect_status="ok"),
+    DemoRun(
+        file="QC_001_mix.mzML", drift_ppm=0.4, story="first QC of the evening", expect_status="ok"
+    ),
     DemoRun(file="S01_plasma-A01.mzML", drift_ppm=0.8, story="sample", expect_status="ok"),
-    DemoRun(file="S02_plasma-A02.mzML", drift_ppm=1.3, story="sample, calibration creeping up",
-            expect_status="ok"),
-    DemoRun(file="QC_002_mix.mzML", drift_ppm=1.9, story="QC, drift still inside tolerance",
-            expect_status="ok"),
-    DemoRun(file="S03_plasma-A03.mzML", drift_ppm=2.5, story="sample, drift near the limit",
-            expect_status="notice"),
-    DemoRun(file="S04_plasma-A04.mzML", drift_ppm=3.4, story="sample, drift past +3 ppm",
-            expect_status="warning"),
-    DemoRun(file="QC_003_mix.mzML", drift_ppm=6.2, story="QC, calibration jumped out (+6 ppm)",
-            expect_status="critical"),
-    DemoRun(file="S05_plasma-A05.mzML", drift_ppm=0.3,
-            story="queued re-calibration ran; spray failed for 90 s mid-run",
-            expect_status="critical", dropouts=[(300.0, 390.0, 0.01)]),
-    DemoRun(file="S06_plasma-A06.mzML", drift_ppm=-0.2, story="sample, spray stable again",
-            expect_status="ok"),
-    DemoRun(file="QC_004_mix.mzML", drift_ppm=0.1, story="QC injection without reserpine",
-            expect_status="critical", missing=("reserpine",)),
-    DemoRun(file="S07_plasma-A07.mzML.gz", drift_ppm=-0.4, story="sample, exported compressed",
-            expect_status="ok", fmt="mzML.gz"),
-    DemoRun(file="S08_plasma-A08.mzXML", drift_ppm=0.2, story="sample, exported as mzXML",
-            expect_status="ok", fmt="mzXML"),
-    DemoRun(file="QC_005_mix.mzML", drift_ppm=-0.1, story="export cut off while copying",
-            expect_status="unreadable", truncate_at=0.6),
-    DemoRun(file="QC_006_mix.mzML", drift_ppm=0.2, story="QC, everything back in spec",
-            expect_status="ok"),
+    DemoRun(
+        file="S02_plasma-A02.mzML",
+        drift_ppm=1.3,
+        story="sample, calibration creeping up",
+        expect_status="ok",
+    ),
+    DemoRun(
+        file="QC_002_mix.mzML",
+        drift_ppm=1.9,
+        story="QC, drift still inside tolerance",
+        expect_status="ok",
+    ),
+    DemoRun(
+        file="S03_plasma-A03.mzML",
+        drift_ppm=2.5,
+        story="sample, drift near the limit",
+        expect_status="notice",
+    ),
+    DemoRun(
+        file="S04_plasma-A04.mzML",
+        drift_ppm=3.4,
+        story="sample, drift past +3 ppm",
+        expect_status="warning",
+    ),
+    DemoRun(
+        file="QC_003_mix.mzML",
+        drift_ppm=6.2,
+        story="QC, calibration jumped out (+6 ppm)",
+        expect_status="critical",
+    ),
+    DemoRun(
+        file="S05_plasma-A05.mzML",
+        drift_ppm=0.3,
+        story="queued re-calibration ran; spray failed for 90 s mid-run",
+        expect_status="critical",
+        dropouts=[(300.0, 390.0, 0.01)],
+    ),
+    DemoRun(
+        file="S06_plasma-A06.mzML",
+        drift_ppm=-0.2,
+        story="sample, spray stable again",
+        expect_status="ok",
+    ),
+    DemoRun(
+        file="QC_004_mix.mzML",
+        drift_ppm=0.1,
+        story="QC injection without reserpine",
+        expect_status="critical",
+        missing=("reserpine",),
+    ),
+    DemoRun(
+        file="S07_plasma-A07.mzML.gz",
+        drift_ppm=-0.4,
+        story="sample, exported compressed",
+        expect_status="ok",
+        fmt="mzML.gz",
+    ),
+    DemoRun(
+        file="S08_plasma-A08.mzXML",
+        drift_ppm=0.2,
+        story="sample, exported as mzXML",
+        expect_status="ok",
+        fmt="mzXML",
+    ),
+    DemoRun(
+        file="QC_005_mix.mzML",
+        drift_ppm=-0.1,
+        story="export cut off while copying",
+        expect_status="unreadable",
+        truncate_at=0.6,
+    ),
+    DemoRun(
+        file="QC_006_mix.mzML",
+        drift_ppm=0.2,
+        story="QC, everything back in spec",
+        expect_status="ok",
+    ),
 )
 
 
@@ -98,20 +151,41 @@ def spec_for(run: DemoRun, index: int) -> RunSpec:
             if name in run.missing:
                 continue
             targets.append(
-                TargetTruth(name=name, mz=mz, charge=charge, m1_ratio=m1, m2_ratio=m2,
-                            apex_rt_s=apex_rt_s, sigma_s=7.0, height=8e5,
-                            offset_ppm=run.drift_ppm)
+                TargetTruth(
+                    name=name,
+                    mz=mz,
+                    charge=charge,
+                    m1_ratio=m1,
+                    m2_ratio=m2,
+                    apex_rt_s=apex_rt_s,
+                    sigma_s=7.0,
+                    height=8e5,
+                    offset_ppm=run.drift_ppm,
+                )
             )
     calibrants = [
-        CalibrantTruth(name="siloxane-445", mz=SILOXANE_MZ, offset_ppm=run.drift_ppm,
-                       jitter_ppm=0.3, intensity=3e5),
-        CalibrantTruth(name="leu-enk", mz=LEU_ENK_MZ, offset_ppm=run.drift_ppm,
-                       jitter_ppm=0.4, intensity=1.5e5),
+        CalibrantTruth(
+            name="siloxane-445",
+            mz=SILOXANE_MZ,
+            offset_ppm=run.drift_ppm,
+            jitter_ppm=0.3,
+            intensity=3e5,
+        ),
+        CalibrantTruth(
+            name="leu-enk", mz=LEU_ENK_MZ, offset_ppm=run.drift_ppm, jitter_ppm=0.4, intensity=1.5e5
+        ),
     ]
     return RunSpec(
-        duration_s=DURATION_S, ms1_interval_s=3.0, ms2_per_cycle=1, ms2_peaks=40,
-        background_peaks=80, calibrants=calibrants, targets=targets,
-        dropouts=list(run.dropouts), tic_scale=run.tic_scale, seed=1000 + index,
+        duration_s=DURATION_S,
+        ms1_interval_s=3.0,
+        ms2_per_cycle=1,
+        ms2_peaks=40,
+        background_peaks=80,
+        calibrants=calibrants,
+        targets=targets,
+        dropouts=list(run.dropouts),
+        tic_scale=run.tic_scale,
+        seed=1000 + index,
         start_time=(QUEUE_START + index * SPACING).astimezone(ZoneInfo("UTC")),
     )
 

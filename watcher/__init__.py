@@ -1,3 +1,3 @@
-"""ionwarden: watch an instrument's export folder and judge the health of every mass-spectrometry run."""
+"""ionwarden: watch an instrument's export folder and judge the health of every MS run."""
 
 __version__ = "0.1.0"

@@ -73,7 +73,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--date", metavar="YYYY-MM-DD", help="day in the instrument's time zone")
     p.add_argument("--out", metavar="PATH", help="where to write the HTML (default: state_dir)")
 
-    p = sub.add_parser("status", help="the daemon's state: last runs, open alerts, pending messages")
+    p = sub.add_parser(
+        "status", help="the daemon's state: last runs, open alerts, pending messages"
+    )
     config_arg(p, required=True)
     p.add_argument("--json", action="store_true")
 

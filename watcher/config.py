@@ -1,4 +1,4 @@
-"""The typed configuration every stage reads; ``load()`` turns a YAML file into it or raises ConfigError.
+"""The typed configuration every stage reads; ``load()`` builds it from YAML or raises ConfigError.
 
 The types below are the contract between stages. Loading (safe YAML with line numbers, ``${ENV}``
 expansion, validation that names file, line and key) lives in ``watcher/configload.py``.
@@ -37,9 +37,9 @@ class Watch:
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class IonSpec:
-    """An ion given one of three ways: ``mz``; ``formula`` + ``adduct`` + ``charge``; ``peptide`` + ``charge``.
+    """An ion given one of three ways: ``mz``; ``formula`` + ``adduct`` + ``charge``; ``peptide``.
 
-    ``adduct`` examples: ``+H``, ``+Na``, ``+K``, ``+NH4``, ``-H``, ``+e-`` style radicals as ``M+.``
+    ``adduct`` examples: ``+H``, ``+Na``, ``+K``, ``+NH4``, ``-H``; radicals as ``M+.``
     (radical cation: electron removed) and ``M-.`` (radical anion). Resolution to m/z and the
     expected (M+1)/M ratio is done by ``watcher.measure.ions.resolve``.
     """
@@ -108,7 +108,7 @@ class BaselineSpec:
 @dataclass(frozen=True, slots=True, kw_only=True)
 class EwmaSpec:
     lam: float = 0.2  # lambda, weight of the newest run
-    L: float = 3.0  # control-limit width in sigma of the EWMA statistic  # noqa: N815
+    L: float = 3.0  # control-limit width in sigma of the EWMA statistic
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

@@ -71,4 +71,4 @@ class StoreError(IonwardenError):
 
 
 class DeliveryError(IonwardenError):
-    """An alert channel cannot be used (apprise refused its URL); names the channel, never the URL."""
+    """An alert channel cannot be used (apprise refused its URL); names the channel, not the URL."""

@@ -16,7 +16,7 @@ from typing import Any
 
 
 class Status(StrEnum):
-    """A run's status: the highest finding severity, or ``unreadable`` when it could not be measured."""
+    """A run's status: the highest finding severity, or ``unreadable`` when it was not measured."""
 
     OK = "ok"
     NOTICE = "notice"
@@ -61,7 +61,7 @@ class RunFile:
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class SignalMetrics:
-    """Signal strength and acquisition shape of one run, from MS1/MS2 spectrum headers and arrays."""
+    """Signal strength and acquisition shape of one run, from MS1/MS2 headers and arrays."""
 
     ms1_count: int
     ms2_count: int
@@ -163,7 +163,8 @@ class RunMetrics:
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready nested dict (datetimes as ISO-8601 strings)."""
-        return _jsonable(dataclasses.asdict(self))
+        out: dict[str, Any] = _jsonable(dataclasses.asdict(self))
+        return out
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -195,12 +196,13 @@ class Finding:
     forecast_h: float | None = None
 
     def to_dict(self) -> dict[str, Any]:
-        return _jsonable(dataclasses.asdict(self))
+        out: dict[str, Any] = _jsonable(dataclasses.asdict(self))
+        return out
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class Verdict:
-    """The judged outcome of one run: its status, why, and what was measured (None if unreadable)."""
+    """The judged outcome of one run: its status, why, and what was measured (None: unreadable)."""
 
     run_file: RunFile
     status: Status
@@ -211,7 +213,8 @@ class Verdict:
     judged_at: datetime | None = None
 
     def to_dict(self) -> dict[str, Any]:
-        return _jsonable(dataclasses.asdict(self))
+        out: dict[str, Any] = _jsonable(dataclasses.asdict(self))
+        return out
 
 
 class AlertAction(StrEnum):

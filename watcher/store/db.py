@@ -41,9 +41,9 @@ def filesystem_type(path: Path) -> str | None:
         if len(fields) < 5 or not right:
             continue
         mount_point = fields[4].replace("\\040", " ")
-        if target == mount_point or target.startswith(mount_point.rstrip("/") + "/"):
-            if best is None or len(mount_point) > best[0]:
-                best = (len(mount_point), right.split()[0])
+        inside = target == mount_point or target.startswith(mount_point.rstrip("/") + "/")
+        if inside and (best is None or len(mount_point) > best[0]):
+            best = (len(mount_point), right.split()[0])
     return best[1] if best else None
 
 
@@ -74,13 +74,18 @@ def connect(state_dir: Path, *, daemon: bool = False, readonly: bool = False) ->
             if not path.exists():
                 raise StoreError(f"no state database at {path} (has the daemon run yet?)")
             conn = sqlite3.connect(
-                f"file:{path}?mode=ro", uri=True, timeout=BUSY_TIMEOUT_MS / 1000,
-                isolation_level=None, check_same_thread=False,
+                f"file:{path}?mode=ro",
+                uri=True,
+                timeout=BUSY_TIMEOUT_MS / 1000,
+                isolation_level=None,
+                check_same_thread=False,
             )
         else:
             state_dir.mkdir(parents=True, exist_ok=True)
             conn = sqlite3.connect(
-                path, timeout=BUSY_TIMEOUT_MS / 1000, isolation_level=None,
+                path,
+                timeout=BUSY_TIMEOUT_MS / 1000,
+                isolation_level=None,
                 check_same_thread=False,
             )
         conn.row_factory = sqlite3.Row
