@@ -251,3 +251,21 @@ def test_bad_config_at_start_exits_2(lab: Lab) -> None:
     assert d.proc.wait(timeout=20) == 2
     assert "Traceback" not in d.stderr()
     assert "settle_s" in d.stderr()
+
+
+def test_heartbeat_missed_once_then_resumed(lab: Lab, receiver: Receiver) -> None:
+    """No run for expect_run_every: one 'heartbeat.missed' alert; a new run clears it."""
+    lab.write_config(
+        alerts={"channels": [{"name": "lab-chat", "url": receiver.url}], "expect_run_every": "1s"}
+    )
+    d = lab.start()
+
+    def kinds() -> list[str]:
+        return [str(r.get("kind")) for r in lab.health() if r.get("type") == "event"]
+
+    wait_for(lambda: "heartbeat.missed" in kinds(), 10, "heartbeat.missed in the health log")
+    wait_for(lambda: receiver.bodies, 10, "the heartbeat alert")
+    lab.drop("QC_back.mzML", 1)
+    wait_for(lambda: "heartbeat.resumed" in kinds(), 10, "heartbeat.resumed")
+    assert kinds().count("heartbeat.missed") == 1
+    assert d.stop() == 0
