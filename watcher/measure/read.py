@@ -98,7 +98,7 @@ def _open(
     if found.format == "mzML" and found.root == "indexedmzML":
         fd = os.open(path, os.O_RDONLY)
         stack.callback(os.close, fd)
-        index = mzml.load_offset_index(fd, os.fstat(fd).st_size, safexml.parse_fragment)
+        index = mzml.load_offset_index(fd, os.fstat(fd).st_size)
         if index is not None:
             scans = mzml.indexed_scans(
                 fd,
