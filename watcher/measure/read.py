@@ -25,7 +25,7 @@ from lxml import etree  # type: ignore[import-untyped, unused-ignore]
 
 from watcher.errors import ReadError
 from watcher.formats import sniff
-from watcher.measure import mgf, mzml, mzxml, safexml
+from watcher.measure import mgf, mzml, mzmlindex, mzxml, safexml
 from watcher.measure.cv import disable_remote
 from watcher.measure.scan import RunHeader, Scan
 
@@ -98,9 +98,9 @@ def _open(
     if found.format == "mzML" and found.root == "indexedmzML":
         fd = os.open(path, os.O_RDONLY)
         stack.callback(os.close, fd)
-        index = mzml.load_offset_index(fd, os.fstat(fd).st_size)
+        index = mzmlindex.load_offset_index(fd, os.fstat(fd).st_size)
         if index is not None:
-            scans = mzml.indexed_scans(
+            scans = mzmlindex.indexed_scans(
                 fd,
                 index,
                 pre,
@@ -118,7 +118,7 @@ def _with_fallback(
     """Index-guided scans; if the index turns out wrong midway, stream the rest sequentially."""
     try:
         yield from scans
-    except mzml.IndexDoubt as doubt:
+    except mzmlindex.IndexDoubt as doubt:
         source = stack.enter_context(path.open("rb"))
         events = safexml.safe_iterparse(source, events=("start", "end"), tag=mzml.stream_tags())
         pre = mzml.read_preamble(events)
