@@ -346,3 +346,17 @@ def test_no_network_while_reading(monkeypatch: pytest.MonkeyPatch) -> None:
     finally:
         cv.load_cv.cache_clear()
     assert calls == []
+
+
+def test_progress_is_throttled() -> None:
+    """A burst of 10 000 progress points within a few ms reaches the callback at most twice."""
+    from watcher.measure.read import _Throttle
+
+    calls: list[int] = []
+    throttle = _Throttle(lambda done, _total: calls.append(done), 10_000)
+    started = time.monotonic()
+    for done in range(10_000):
+        throttle.at(done)
+    elapsed_s = time.monotonic() - started
+    assert len(calls) <= 1 + elapsed_s / 0.05  # 50 ms between calls (~20/s, the brief's limit)
+    assert calls[0] == 0  # the first point is reported at once
