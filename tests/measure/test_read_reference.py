@@ -287,6 +287,21 @@ def test_index_missing_a_spectrum_falls_back_to_streaming() -> None:
     assert [s.index for s in scans] == list(range(11))  # files.tsv n_spectra = 11
 
 
+@pytest.mark.parametrize("inline", [False, True], ids=["xml-header", "byte-header"])
+def test_precursor_without_selected_mz_uses_isolation_target(tmp_path: Path, inline: bool) -> None:
+    """Without a selected ion m/z the isolation window target is the precursor m/z."""
+    data = TINY.read_bytes()
+    data = bf.inline_param_groups(data) if inline else data
+    start = data.index(b'accession="MS:1000744"', data.index(b'id="scan=20"'))
+    line_start = data.rindex(b"<cvParam", 0, start)
+    line_end = data.index(b"/>", start) + 2
+    path = write(tmp_path, "QC_iso.mzML", bf.reindexed(data[:line_start] + data[line_end:]))
+    scans = _read(path)
+    # tiny.pwiz.1.1.mzML scan=20: isolation window target m/z 445.3, charge 2 (from the file)
+    assert scans[1].precursor_mz == pytest.approx(445.3, rel=1e-12)
+    assert scans[1].precursor_charge == 2
+
+
 def test_empty_spectrum_index_falls_back_to_streaming(tmp_path: Path) -> None:
     """An indexedmzML whose spectrum index is empty still yields all of its spectra."""
     data = bf.as_indexed(bf.PLAIN.read_bytes())

@@ -219,7 +219,9 @@ def _read_precursor(precursor_list: Any, scan: Scan, groups: Groups, where: str)
                 for ion in part:
                     if local_name(ion.tag) == "selectedIon":
                         params = _params_of(ion, groups)
-                        scan.precursor_mz = params.number(SELECTED_ION_MZ, where)
+                        selected_mz = params.number(SELECTED_ION_MZ, where)
+                        if selected_mz is not None:  # else keep the isolation target m/z
+                            scan.precursor_mz = selected_mz
                         charge = params.number(CHARGE_STATE, where)
                         scan.precursor_charge = None if charge is None else int(charge)
                         break
