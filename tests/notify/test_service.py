@@ -96,8 +96,8 @@ def test_raise_no_repeat_escalate_remind_clear_sequence(
         "Kestrel-2 Q-TOF: STILL OPEN alerts",
         "Kestrel-2 Q-TOF: OK QC_006.mzML",
     ]
-    assert bodies[0]["message"].splitlines()[1].startswith("NEW warning: calibration drift")
-    assert "3.4, limit outside [-3, 3], rule limit" in bodies[0]["message"]
+    assert bodies[0]["message"].splitlines()[1].startswith("NEW warning: calibrant.siloxane-445.median_ppm is 3.4")
+    assert "status warning" in bodies[0]["message"].splitlines()[0]
     assert bodies[1]["message"].splitlines()[1].startswith("WORSE critical")
     # The reminder repeats the latest finding (warning again, 4.1), not the escalation's.
     assert bodies[2]["message"].splitlines()[1].startswith("STILL warning")
@@ -124,8 +124,8 @@ def test_one_message_per_run_gathers_all_findings(harness: Harness, receiver: Re
     (body,) = receiver.wait_for(1)
     lines = body["message"].splitlines()
     assert len(lines) == 3
-    assert lines[1].startswith("NEW critical: caffeine present")
-    assert lines[2].startswith("NEW warning: calibration drift")
+    assert lines[1].startswith("NEW critical: expected_ion.caffeine.found is False")
+    assert lines[2].startswith("NEW warning: calibrant.siloxane-445")
 
 
 def test_sample_run_does_not_clear_qc_only_alert(harness: Harness, receiver: Receiver) -> None:
@@ -158,7 +158,7 @@ def test_unreadable_run_raises_and_next_readable_run_clears(
     bodies = receiver.wait_for(2)
     assert bodies[0]["title"] == "Kestrel-2 Q-TOF: UNREADABLE QC_030.mzML"
     assert "XML ends inside spectrum 812" in bodies[0]["message"]
-    assert bodies[1]["message"].splitlines()[1] == "OK AGAIN: unreadable (file)"
+    assert bodies[1]["message"].splitlines()[1] == "OK AGAIN: unreadable"
 
 
 def test_channel_filters_min_severity_and_checks(

@@ -100,3 +100,18 @@ def test_forecast_gives_nothing_without_an_approaching_limit(
 ) -> None:
     """No forecast from too few points, a flat line, a line moving away, or a crossed limit."""
     assert forecast(times_h, values, upper=upper, lower=lower) is None
+
+
+def test_forecast_gives_nothing_right_after_a_step_back_to_zero() -> None:
+    """A recalibration (step back to ~0) after a steady climb ends the forecast: the line no longer fits."""
+    # Constructed: +0.5 ppm per run every 25 min, then the queued recalibration brings it to 0.3.
+    times_h = [i * 25 / 60 for i in range(8)]
+    values = [0.4, 0.8, 1.3, 1.9, 2.5, 3.4, 4.1, 0.3]
+    assert forecast(times_h, values, upper=5.0, lower=-5.0) is None
+
+
+def test_forecast_gives_nothing_for_scatter_around_zero() -> None:
+    """Scatter with no real slope is not a trend to extrapolate."""
+    times_h = [i * 0.5 for i in range(8)]
+    values = [0.3, -0.2, 0.1, -0.4, 0.2, -0.1, 0.25, -0.3]
+    assert forecast(times_h, values, upper=5.0, lower=-5.0) is None

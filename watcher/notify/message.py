@@ -51,19 +51,24 @@ def local_time(at: datetime, timezone: str) -> str:
     return at.astimezone(ZoneInfo(timezone)).strftime("%Y-%m-%d %H:%M %Z")
 
 
-def item_line(item: Item) -> str:
-    """One line per alert change: action, severity, check, value against limit, rule, forecast."""
+def item_line(item: Item, run_file: str | None = None) -> str:
+    """One line per alert change: action and severity, then the finding's own sentence.
+
+    The rules engine writes each finding's message for a person (what, how far off, what it means);
+    the run's name is already in the message head, so a leading ``<file>: `` is dropped. The rule
+    is named when it is not a plain limit (a Westgard rule, a trend, a forecast).
+    """
     f = item.finding
     if item.action is AlertAction.CLEAR:
-        return f"{_ACTION_WORD[item.action]}: {f.check} ({f.subject})"
-    line = f"{_ACTION_WORD[item.action]} {f.severity}: {f.check}"
-    if f.subject not in (f.check, "file"):
-        line += f" [{f.subject}]"
-    if f.metric and f.metric != "file":
-        line += f": {format_value(f.value)}, limit {f.limit}, rule {f.rule}"
-    else:
-        line += f": {f.message}"
-    if f.forecast_h is not None:
+        what = f.check if f.subject in (f.check, "file") else f"{f.check} ({f.subject})"
+        return f"{_ACTION_WORD[item.action]}: {what}"
+    text = f.message
+    for prefix in {f"{run_file}: " if run_file else "", f"{f.check}: "} - {""}:
+        text = text.removeprefix(prefix)
+    line = f"{_ACTION_WORD[item.action]} {f.severity}: {text}"
+    if f.rule not in ("limit", "baseline") and f.rule not in text:
+        line += f" [rule {f.rule}]"
+    if f.forecast_h is not None and "forecast" not in f.rule:
         line += f", forecast: critical in {f.forecast_h:.1f} h"
     return line
 
@@ -76,6 +81,7 @@ def compose(
     timezone: str,
     status: str,
     items: Sequence[Item],
+    at_what: str = "judged",
 ) -> Text:
     """The message for one run (or one reminder round) on one channel.
 
@@ -86,6 +92,7 @@ def compose(
         timezone: IANA name the time is shown in.
         status: the run's status word (``critical``), or a short state for non-run messages.
         items: the alert changes, in the order they are listed.
+        at_what: what ``at`` is the time of (``judged``, or ``acquired`` when the file says).
     """
     open_items = [i for i in items if i.action is not AlertAction.CLEAR]
     if open_items:
@@ -95,6 +102,6 @@ def compose(
         notify_type = "success"
     about = run_file or "alerts"
     title = f"{instrument}: {status.upper()} {about}"
-    head = f"{about} | {local_time(at, timezone)} | status {status}"
-    body = "\n".join([head, *(item_line(i) for i in items)])
+    head = f"{about} | {at_what} {local_time(at, timezone)} | status {status}"
+    body = "\n".join([head, *(item_line(i, run_file) for i in items)])
     return Text(title=title, body=body, notify_type=notify_type)

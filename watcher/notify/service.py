@@ -126,7 +126,8 @@ class Notifier:
         file_name = verdict.run_file.path.name
         configured = {c.name for c in self.config.checks}
         clearable = machine.clearable_checks(self.config.checks, file_name, readable=readable)
-        at = verdict.judged_at or datetime.fromtimestamp(now_s, UTC)
+        acquired_at = verdict.metrics.acquired_at if verdict.metrics is not None else None
+        at = acquired_at or verdict.judged_at or datetime.fromtimestamp(now_s, UTC)
         for channel in self.config.alerts.channels:
             wanted: dict[tuple[str, str], Finding] = {}
             for f in findings:
@@ -153,6 +154,7 @@ class Notifier:
                     timezone=self.config.instrument.timezone,
                     status=str(verdict.status),
                     items=items,
+                    at_what="acquired" if acquired_at is not None else "judged",
                 )
                 self._enqueue(conn, channel, "alert", ref, now_s, text, items)
 

@@ -130,7 +130,8 @@ def forecast(
 
     Returns:
         None with fewer than ``MIN_FORECAST_POINTS`` points, a flat line, a line heading away from
-        every limit, or a fitted value already beyond the limit it heads for.
+        every limit, a fitted value already beyond the limit it heads for, or a line that does not
+        describe the data (see ``_trend_holds``).
     """
     if len(times_h) < MIN_FORECAST_POINTS:
         return None
@@ -139,6 +140,8 @@ def forecast(
     except ValueError:
         return None
     fitted_now = intercept + slope * times_h[-1]
+    if not _trend_holds(times_h, values, slope, intercept):
+        return None
     if slope > 0.0 and upper is not None:
         limit = upper
     elif slope < 0.0 and lower is not None:
@@ -149,3 +152,23 @@ def forecast(
     if not hours > 0.0 or not math.isfinite(hours):
         return None
     return Forecast(slope_per_h=slope, fitted_now=fitted_now, limit=limit, hours=hours)
+
+
+def _trend_holds(
+    times_h: Sequence[float], values: Sequence[float], slope: float, intercept: float
+) -> bool:
+    """Whether a straight line is a fair account of the window, so extrapolating it means something.
+
+    Two guards, both on the residuals' robust spread (1.4826 x MAD): the current run must sit on
+    the line (within 3 spreads) — after a recalibration or any other step change the old slope says
+    nothing about the future — and the line must rise or fall by more than 2 spreads across the
+    window, or the "trend" is scatter.
+    """
+    residuals = [v - (intercept + slope * t) for t, v in zip(times_h, values, strict=True)]
+    centre = statistics.median(residuals)
+    spread = 1.4826 * statistics.median(abs(r - centre) for r in residuals)
+    # Noise-free data have a spread of 0: allow for float rounding relative to the values' size.
+    spread = max(spread, 1e-9 * (1.0 + max(abs(v) for v in values)))
+    if abs(residuals[-1] - centre) > 3.0 * spread:
+        return False
+    return abs(slope * (times_h[-1] - times_h[0])) > 2.0 * spread
