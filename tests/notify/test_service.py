@@ -96,7 +96,8 @@ def test_raise_no_repeat_escalate_remind_clear_sequence(
         "Kestrel-2 Q-TOF: STILL OPEN alerts",
         "Kestrel-2 Q-TOF: OK QC_006.mzML",
     ]
-    assert bodies[0]["message"].splitlines()[1].startswith("NEW warning: calibrant.siloxane-445.median_ppm is 3.4")
+    first_line = bodies[0]["message"].splitlines()[1]
+    assert first_line.startswith("NEW warning: calibrant.siloxane-445.median_ppm is 3.4")
     assert "status warning" in bodies[0]["message"].splitlines()[0]
     assert bodies[1]["message"].splitlines()[1].startswith("WORSE critical")
     # The reminder repeats the latest finding (warning again, 4.1), not the escalation's.

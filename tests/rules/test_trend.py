@@ -103,7 +103,7 @@ def test_forecast_gives_nothing_without_an_approaching_limit(
 
 
 def test_forecast_gives_nothing_right_after_a_step_back_to_zero() -> None:
-    """A recalibration (step back to ~0) after a steady climb ends the forecast: the line no longer fits."""
+    """A recalibration (a step back to ~0) after a steady climb ends the forecast."""
     # Constructed: +0.5 ppm per run every 25 min, then the queued recalibration brings it to 0.3.
     times_h = [i * 25 / 60 for i in range(8)]
     values = [0.4, 0.8, 1.3, 1.9, 2.5, 3.4, 4.1, 0.3]
