@@ -215,6 +215,7 @@ def _truth_record(run: DemoRun, index: int, truth: RunTruth) -> dict[str, Any]:
         "story": run.story,
         "expect_status": run.expect_status,
         "truncated": run.truncate_at is not None,
+        "duration_s": DURATION_S,
         "ms1_count": truth.ms1_count,
         "ms2_count": truth.ms2_count,
         "tic_median": clean(truth.tic_median),

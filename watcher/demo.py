@@ -20,7 +20,7 @@ import sys
 import tempfile
 import threading
 import time
-from datetime import date, datetime
+from datetime import date, datetime, timedelta
 from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
 from importlib import resources
 from pathlib import Path
@@ -97,6 +97,8 @@ def write_demo_config(workdir: Path, channel_urls: list[str], *, settle_s: float
     data = yaml.safe_load(text)
     data["watch"]["folders"] = [str(workdir / "exports")]
     data["watch"]["settle_s"] = settle_s
+    # The demo's truncated export never completes; report it after seconds, not the default hours.
+    data["watch"]["max_wait_s"] = 5
     data["state_dir"] = str(workdir / "state")
     data["alerts"]["channels"] = [
         {"name": f"demo-{i}" if i else "demo-receiver", "url": url, "min_severity": "warning"}
@@ -129,10 +131,16 @@ def _judged(state_dir: Path) -> dict[str, str]:
         conn.close()
 
 
-def _arrive(src: Path, exports: Path) -> None:
-    """Copy a run in as an instrument export does: write under a temporary name, then rename."""
+def _arrive(src: Path, exports: Path, finished_at: datetime) -> None:
+    """Copy a run in as an instrument export does: write under a temporary name, then rename.
+
+    The file's mtime is set to when the instrument would have finished writing it, so formats
+    that carry no acquisition time (mzXML, a cut-off export) still fall on the queue's evening.
+    """
     part = exports / (src.name + ".part")
     shutil.copyfile(src, part)
+    stamp = finished_at.timestamp()
+    os.utime(part, (stamp, stamp))
     os.replace(part, exports / src.name)
 
 
@@ -220,7 +228,8 @@ def _feed(
         name = item["file"]
         stamp = datetime.fromisoformat(item["acquired_at"]).strftime("%H:%M")
         print(f"{stamp}  {name:26s} arrives  ({item['story']})", flush=True)
-        _arrive(drop / name, exports)
+        acquired_at = datetime.fromisoformat(item["acquired_at"])
+        _arrive(drop / name, exports, acquired_at + timedelta(seconds=item["duration_s"]))
         deadline = time.monotonic() + RUN_DEADLINE_S
         while True:
             status = _judged(state_dir).get(name)

@@ -78,8 +78,8 @@ def test_forecast_on_linear_drift_is_within_ten_percent() -> None:
 
 def test_forecast_heads_for_the_lower_limit_on_a_falling_drift() -> None:
     """A falling drift is forecast against the lower limit."""
-    times_h = [-3.0, -2.0, -1.0, 0.0]
-    values = [-1.0, -2.0, -3.0, -4.0]  # -1 ppm/h, at -4 now: -5 is 1 h away (hand)
+    times_h = [-4.0, -3.0, -2.0, -1.0, 0.0]
+    values = [0.0, -1.0, -2.0, -3.0, -4.0]  # -1 ppm/h, at -4 now: -5 is 1 h away (hand)
     fc = forecast(times_h, values, upper=5.0, lower=-5.0)
     assert fc is not None
     assert fc.hours == pytest.approx(1.0)
@@ -89,7 +89,7 @@ def test_forecast_heads_for_the_lower_limit_on_a_falling_drift() -> None:
 @pytest.mark.parametrize(
     ("times_h", "values", "upper", "lower"),
     [
-        ([-2.0, -1.0, 0.0], [1.0, 2.0, 3.0], 5.0, None),  # fewer than 4 points
+        ([-3.0, -2.0, -1.0, 0.0], [1.0, 2.0, 3.0, 4.0], 5.0, None),  # fewer than 5 points
         ([-3.0, -2.0, -1.0, 0.0], [1.0, 1.0, 1.0, 1.0], 5.0, -5.0),  # flat
         ([-3.0, -2.0, -1.0, 0.0], [4.0, 3.0, 2.0, 1.0], 5.0, None),  # heading away from the limit
         ([-3.0, -2.0, -1.0, 0.0], [4.0, 5.0, 6.0, 7.0], 5.0, None),  # already beyond it

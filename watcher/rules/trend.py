@@ -7,6 +7,7 @@ standardised values. Pure functions: values in, numbers out.
 
 from __future__ import annotations
 
+import itertools
 import math
 import statistics
 from collections.abc import Sequence
@@ -110,7 +111,10 @@ class Forecast:
     hours: float
 
 
-MIN_FORECAST_POINTS = 4
+MIN_FORECAST_POINTS = 5
+
+
+MIN_TREND_TAU = 0.5  # Kendall tau a forecast needs, in the direction of the slope
 
 
 def forecast(
@@ -133,6 +137,8 @@ def forecast(
         every limit, a fitted value already beyond the limit it heads for, or a line that does not
         describe the data (see ``_trend_holds``).
     """
+    start = _last_step(values)
+    times_h, values = list(times_h)[start:], list(values)[start:]
     if len(times_h) < MIN_FORECAST_POINTS:
         return None
     try:
@@ -162,7 +168,8 @@ def _trend_holds(
     Two guards, both on the residuals' robust spread (1.4826 x MAD): the current run must sit on
     the line (within 3 spreads) — after a recalibration or any other step change the old slope says
     nothing about the future — and the line must rise or fall by more than 2 spreads across the
-    window, or the "trend" is scatter.
+    window, or the "trend" is scatter; last, the runs must mostly move the line's way (Kendall's
+    tau of at least ``MIN_TREND_TAU``).
     """
     residuals = [v - (intercept + slope * t) for t, v in zip(times_h, values, strict=True)]
     centre = statistics.median(residuals)
@@ -171,4 +178,37 @@ def _trend_holds(
     spread = max(spread, 1e-9 * (1.0 + max(abs(v) for v in values)))
     if abs(residuals[-1] - centre) > 3.0 * spread:
         return False
-    return abs(slope * (times_h[-1] - times_h[0])) > 2.0 * spread
+    if abs(slope * (times_h[-1] - times_h[0])) <= 2.0 * spread:
+        return False
+    # Kendall's tau: most pairs of runs must agree with the direction of the fitted line. A few
+    # high runs followed by a recalibration can tilt a Theil-Sen line without being a trend.
+    concordant = discordant = 0
+    for i in range(len(values)):
+        for j in range(i + 1, len(values)):
+            product = (times_h[j] - times_h[i]) * (values[j] - values[i])
+            concordant += product > 0
+            discordant += product < 0
+    pairs = concordant + discordant
+    tau = (concordant - discordant) / pairs if pairs else 0.0
+    return tau * math.copysign(1.0, slope) >= MIN_TREND_TAU
+
+
+def _last_step(values: Sequence[float]) -> int:
+    """Index where the current segment starts: just after the last jump between consecutive runs.
+
+    A jump is a run-to-run change more than 4 robust spreads (1.4826 x MAD of all consecutive
+    changes) away from the typical change: a recalibration, a new column, a cleaned source. A line
+    fitted across it extrapolates a history that no longer applies, so only the runs after the
+    last jump are fitted.
+    """
+    if len(values) < 3:
+        return 0
+    diffs = [b - a for a, b in itertools.pairwise(values)]
+    centre = statistics.median(diffs)
+    spread = 1.4826 * statistics.median(abs(d - centre) for d in diffs)
+    spread = max(spread, 1e-9 * (1.0 + max(abs(v) for v in values)))
+    start = 0
+    for i, d in enumerate(diffs):
+        if abs(d - centre) > 4.0 * spread:
+            start = i + 1
+    return start
