@@ -20,7 +20,8 @@ History semantics (documented choices):
 - Westgard, EWMA and CUSUM findings take ``check.westgard_severity`` (1-2s alone: notice); the
   forecast takes ``check.forecast.severity`` and is skipped when the run is already critical on
   its limit. It fits the last ``forecast.runs`` runs (this one included; at least 5 after the
-  last step change) against acquisition time and heads for the critical ``above``/``below``/``outside`` limit.
+  last step change) against acquisition time and heads for the critical ``above``/``below``/
+  ``outside`` limit.
 """
 
 from __future__ import annotations
