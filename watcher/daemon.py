@@ -282,7 +282,7 @@ class Daemon:
     def _note(self, path: Path, now_s: float) -> None:
         if path not in self.pending:
             self.pending[path] = settle.new_pending(path, now_s, self.config.watch.settle_s)
-            log.debug("run.detected", file=str(path))
+            log.info("run.detected", file=str(path))
 
     def _settle_due(self, now_s: float) -> None:
         w = self.config.watch
@@ -315,6 +315,12 @@ class Daemon:
                     )
             if decision is settle.Decision.READY and stat is not None:
                 del self.pending[path]
+                log.info(
+                    "run.settled",
+                    file=str(path),
+                    size=stat.size,
+                    waited_s=round(now_s - pending.first_seen_s, 3),
+                )
                 ready.append((path, stat, None))
             elif decision is settle.Decision.GIVE_UP and stat is not None:
                 del self.pending[path]
