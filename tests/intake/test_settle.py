@@ -97,8 +97,10 @@ def test_backoff_doubles_and_caps(checks, expected):
 
 
 def test_incomplete_message_names_reason_and_hours():
-    """The give-up text reads 'incomplete: <reason> after <h> h'."""
+    """The give-up text reads 'incomplete: <reason>, still so after <duration>'."""
     assert incomplete_message("no closing </mzML>", 24 * 3600) == (
-        "incomplete: no closing </mzML> after 24 h"
+        "incomplete: no closing </mzML>, still so after 24 h"
     )
-    assert incomplete_message("x", 1800) == "incomplete: x after 0.5 h"
+    assert incomplete_message("x", 1800) == "incomplete: x, still so after 30 min"
+    assert incomplete_message("x", 5) == "incomplete: x, still so after 5 s"
+    assert incomplete_message("x", 3 * 3600) == "incomplete: x, still so after 3.0 h"

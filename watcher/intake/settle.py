@@ -121,7 +121,12 @@ def step(
 
 
 def incomplete_message(reason: str, waited_s: float) -> str:
-    """The verdict text for a file that never completed, e.g. ``incomplete: ... after 24 h``."""
-    hours = waited_s / 3600.0
-    shown = f"{hours:.0f}" if hours >= 10 else f"{hours:.2g}"
-    return f"incomplete: {reason} after {shown} h"
+    """Verdict text for a file that never completed: ``incomplete: <why>, still so after 24 h``."""
+    if waited_s < 120:
+        shown = f"{waited_s:.0f} s"
+    elif waited_s < 7200:
+        shown = f"{waited_s / 60:.0f} min"
+    else:
+        hours = waited_s / 3600.0
+        shown = f"{hours:.0f} h" if hours >= 10 else f"{hours:.1f} h"
+    return f"incomplete: {reason}, still so after {shown}"
