@@ -165,19 +165,17 @@ def _trend_holds(
 ) -> bool:
     """Whether a straight line is a fair account of the window, so extrapolating it means something.
 
-    Two guards, both on the residuals' robust spread (1.4826 x MAD): the current run must sit on
-    the line (within 3 spreads) — after a recalibration or any other step change the old slope says
-    nothing about the future — and the line must rise or fall by more than 2 spreads across the
-    window, or the "trend" is scatter; last, the runs must mostly move the line's way (Kendall's
-    tau of at least ``MIN_TREND_TAU``).
+    The line must rise or fall by more than 2 robust spreads of the residuals (1.4826 x MAD)
+    across the window, or the "trend" is scatter; and the runs must mostly move the line's way
+    (Kendall's tau of at least ``MIN_TREND_TAU``). Step changes are cut off before this
+    (``_last_step``); a run above the line in the trend's direction (an accelerating drift) is
+    exactly what should be forecast, so the current run is not required to sit on the line.
     """
     residuals = [v - (intercept + slope * t) for t, v in zip(times_h, values, strict=True)]
     centre = statistics.median(residuals)
     spread = 1.4826 * statistics.median(abs(r - centre) for r in residuals)
     # Noise-free data have a spread of 0: allow for float rounding relative to the values' size.
     spread = max(spread, 1e-9 * (1.0 + max(abs(v) for v in values)))
-    if abs(residuals[-1] - centre) > 3.0 * spread:
-        return False
     if abs(slope * (times_h[-1] - times_h[0])) <= 2.0 * spread:
         return False
     # Kendall's tau: most pairs of runs must agree with the direction of the fitted line. A few
