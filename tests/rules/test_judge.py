@@ -545,3 +545,20 @@ def test_status_is_the_max_finding_severity(sil: float, leu: float, tic: float) 
     )
     assert STATUS_RANK[status] == max((f.severity.rank for f in findings), default=0)
     assert len({(f.check, f.subject, f.rule) for f in findings}) == len(findings)
+
+
+def test_forecast_uses_every_earlier_run_when_history_is_shorter_than_its_window() -> None:
+    """With 4 earlier runs and a 10-run window, all 4 are fitted (5 points: enough for a forecast)."""
+    # Constructed: +0.5 ppm per hour, hourly, ending at +2.5 ppm; +5 ppm is (5 - 2.5) / 0.5 = 5 h
+    # away (hand computation). Fewer earlier runs than the window once dropped the oldest ones.
+    previous = [0.5, 1.0, 1.5, 2.0]
+    _, findings = judge(
+        make_metrics(siloxane_ppm=2.5),
+        file_name="S03.mzML",
+        acquired_at=T0,
+        checks=[FORECAST],
+        history=history_of("calibrant.siloxane-445.median_ppm", previous),
+    )
+    (f,) = findings
+    assert f.rule == "forecast"
+    assert f.forecast_h == pytest.approx(5.0, rel=0.05)

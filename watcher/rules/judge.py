@@ -196,7 +196,7 @@ def _sequence(ctx: _Context) -> list[float]:
 
 def _last(items: list[HistoryPoint], n: int) -> list[HistoryPoint]:
     """The last ``n`` items (none for n <= 0; a plain ``items[-n:]`` gives all of them for 0)."""
-    return items[len(items) - n :] if n > 0 else []
+    return items[max(0, len(items) - n) :] if n > 0 else []
 
 
 def _is_number(value: float | bool | None) -> bool:
