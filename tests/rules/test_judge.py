@@ -548,16 +548,21 @@ def test_status_is_the_max_finding_severity(sil: float, leu: float, tic: float) 
 
 
 def test_forecast_uses_every_earlier_run_when_history_is_shorter_than_its_window() -> None:
-    """With 4 earlier runs and a 10-run window, all 4 are fitted (5 points: enough for a forecast)."""
+    """With 4 earlier runs and an 8-run window, all 4 are fitted (5 points: enough to forecast)."""
     # Constructed: +0.5 ppm per hour, hourly, ending at +2.5 ppm; +5 ppm is (5 - 2.5) / 0.5 = 5 h
     # away (hand computation). Fewer earlier runs than the window once dropped the oldest ones.
-    previous = [0.5, 1.0, 1.5, 2.0]
+    check = Check(
+        name="calibration drift",
+        metric="calibrant.siloxane-445.median_ppm",
+        critical=Condition(outside=(-5.0, 5.0)),
+        forecast=ForecastSpec(runs=8, warn_within_h=12.0, severity=Severity.NOTICE),
+    )
     _, findings = judge(
         make_metrics(siloxane_ppm=2.5),
         file_name="S03.mzML",
         acquired_at=T0,
-        checks=[FORECAST],
-        history=history_of("calibrant.siloxane-445.median_ppm", previous),
+        checks=[check],
+        history=history_of("calibrant.siloxane-445.median_ppm", [0.5, 1.0, 1.5, 2.0]),
     )
     (f,) = findings
     assert f.rule == "forecast"
