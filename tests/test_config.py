@@ -17,6 +17,37 @@ from watcher.errors import ConfigError, ConfigProblem
 from watcher.records import CalibrantDrift, ExpectedIonResult, Severity, SignalMetrics
 from watcher.yamllines import MAX_NODES, format_path, read_yaml, resolve_plain
 
+# -- applies_to: which runs a check is evaluated on ------------------------------------------
+
+
+@pytest.mark.parametrize(
+    ("applies_to", "file_name", "expected"),
+    [
+        ((), "S01_liver.mzML", True),  # empty = every run
+        (("QC_*.mzML",), "QC_0412.mzML", True),
+        (("QC_*.mzML",), "S01_QC.mzML", False),
+        (("QC_*.mzML",), "qc_0412.mzml", False),  # case-sensitive on every platform
+        (("QC_*.mzML", "S*_*.mzML"), "S07_plasma.mzML", True),  # any pattern matches
+        (("re:QC_\\d{4}\\.mzML",), "QC_0412.mzML", True),
+        (("re:QC_\\d{4}\\.mzML",), "QC_0412.mzML.gz", False),  # regex must match the whole name
+        (("re:S\\d+_.*",), "S12_urine.mzXML", True),
+    ],
+)
+def test_applies_to_glob_and_regex(
+    applies_to: tuple[str, ...], file_name: str, expected: bool
+) -> None:
+    """applies_to selects runs by glob (fnmatchcase) or re:<regex> (fullmatch) on the file name."""
+    assert cfg.matches_applies_to(applies_to, file_name) is expected
+    check = cfg.Check(name="c", metric="signal.tic_median", applies_to=applies_to)
+    assert check.applies_to_file(file_name) is expected
+
+
+def test_applies_to_bad_regex_in_code_is_a_config_error() -> None:
+    """A check built in code with a broken re: pattern raises ConfigError, not re.error."""
+    with pytest.raises(ConfigError, match="invalid regex"):
+        cfg.matches_applies_to(("re:QC_(",), "QC_1.mzML")
+
+
 # -- YAML scalars ------------------------------------------------------------------------------
 
 # YAML 1.2.2 core schema, section 10.3.2 (tag resolution): ints, floats with or without a dot or

@@ -9,11 +9,17 @@ from __future__ import annotations
 
 import dataclasses
 import difflib
-from collections.abc import Iterable
+import functools
+import re
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
+from fnmatch import fnmatchcase
 from pathlib import Path
 
+from watcher.errors import ConfigError, ConfigProblem
 from watcher.records import Severity
+
+REGEX_PREFIX = "re:"  # an applies_to entry starting so is a regular expression, not a glob
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -141,6 +147,41 @@ class Check:
     cusum: CusumSpec | None = None
     forecast: ForecastSpec | None = None
     line: int | None = None  # where the check starts in the YAML, for messages
+
+    def applies_to_file(self, file_name: str) -> bool:
+        """Whether this check is evaluated on a run file named ``file_name``."""
+        return matches_applies_to(self.applies_to, file_name)
+
+
+def matches_applies_to(applies_to: Sequence[str], file_name: str) -> bool:
+    """Whether a run named ``file_name`` is selected by ``applies_to`` patterns.
+
+    Empty selects every run. An entry ``re:<regex>`` must match the whole name
+    (``re.fullmatch``); any other entry is a glob matched case-sensitively
+    (``fnmatch.fnmatchcase``), so ``QC_*.mzML`` never matches ``qc_1.mzml`` on one machine and
+    not on another. Every stage that asks "does this check apply to this run" calls this one
+    function, so judging, alert clearing, history and the digest always agree.
+    """
+    if not applies_to:
+        return True
+    for pattern in applies_to:
+        if pattern.startswith(REGEX_PREFIX):
+            if _compiled(pattern[len(REGEX_PREFIX) :]).fullmatch(file_name):
+                return True
+        elif fnmatchcase(file_name, pattern):
+            return True
+    return False
+
+
+@functools.lru_cache(maxsize=256)
+def _compiled(pattern: str) -> re.Pattern[str]:
+    # Loaded configs have valid regexes already; this guards checks built in code.
+    try:
+        return re.compile(pattern)
+    except re.error as exc:
+        raise ConfigError(
+            [ConfigProblem("", None, "applies_to", f"invalid regex {pattern!r}: {exc}")]
+        ) from exc
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

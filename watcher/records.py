@@ -227,6 +227,23 @@ class AlertAction(StrEnum):
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
+class AlertState:
+    """An open alert as last told to one channel (stepped by ``watcher.notify.alerts``).
+
+    Attributes:
+        severity: the highest severity sent since the alert was raised (escalation compares to it).
+        raised_at_s: epoch seconds of the raise.
+        last_sent_at_s: epoch seconds of the last raise, escalation or reminder sent.
+        finding: the latest finding behind the alert (reminders repeat its value).
+    """
+
+    severity: Severity
+    raised_at_s: float
+    last_sent_at_s: float
+    finding: Finding
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
 class AlertEvent:
     """One alert state change to tell people about. ``key`` is (instrument, check, subject)."""
 

@@ -1,4 +1,4 @@
-"""Which checks apply to a run, ``*`` expansion of metric paths, and condition truth tables."""
+"""``*`` expansion of metric paths, and condition truth tables."""
 
 from __future__ import annotations
 
@@ -6,7 +6,7 @@ import pytest
 
 from watcher.config import Condition
 from watcher.rules.baseline import Baseline
-from watcher.rules.checks import applies, critical_bounds, evaluate, expand, limit_text
+from watcher.rules.checks import critical_bounds, evaluate, expand, limit_text
 
 PATHS = [
     "signal.tic_median",
@@ -15,26 +15,6 @@ PATHS = [
     "calibrant.leu-enk.median_ppm",
     "expected_ion.caffeine.found",
 ]
-
-
-@pytest.mark.parametrize(
-    ("applies_to", "file_name", "expected"),
-    [
-        ((), "S01_liver.mzML", True),  # empty = every run
-        (("QC_*.mzML",), "QC_0412.mzML", True),
-        (("QC_*.mzML",), "S01_QC.mzML", False),
-        (("QC_*.mzML",), "qc_0412.mzml", False),  # case-sensitive on every platform
-        (("QC_*.mzML", "S*_*.mzML"), "S07_plasma.mzML", True),  # any pattern matches
-        (("re:QC_\\d{4}\\.mzML",), "QC_0412.mzML", True),
-        (("re:QC_\\d{4}\\.mzML",), "QC_0412.mzML.gz", False),  # regex must match the whole name
-        (("re:S\\d+_.*",), "S12_urine.mzXML", True),
-    ],
-)
-def test_applies_to_glob_and_regex(
-    applies_to: tuple[str, ...], file_name: str, expected: bool
-) -> None:
-    """applies_to selects runs by glob (fnmatchcase) or re:<regex> (fullmatch) on the file name."""
-    assert applies(applies_to, file_name) is expected
 
 
 def test_star_expands_to_one_path_per_calibrant() -> None:

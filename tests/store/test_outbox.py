@@ -4,8 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from watcher.notify.alerts import AlertState
-from watcher.records import Finding, Severity
+from watcher.records import AlertState, Finding, Severity
 from watcher.store import db, outbox
 
 

@@ -8,33 +8,14 @@ tested as a truth table without a database or a clock.
 
 from __future__ import annotations
 
-import fnmatch
-import re
-from dataclasses import dataclass, replace
+from dataclasses import replace
 
 from watcher.config import Channel, Check
-from watcher.records import AlertAction, Finding, Severity
+from watcher.records import AlertAction, AlertState, Finding
 
 # Pseudo-checks that are not in the config: an unreadable run file, and runs that stopped coming.
 UNREADABLE_CHECK = "unreadable"
 HEARTBEAT_CHECK = "heartbeat"
-
-
-@dataclass(frozen=True, slots=True, kw_only=True)
-class AlertState:
-    """An open alert as last told to one channel.
-
-    Attributes:
-        severity: the highest severity sent since the alert was raised (escalation compares to it).
-        raised_at_s: epoch seconds of the raise.
-        last_sent_at_s: epoch seconds of the last raise, escalation or reminder sent.
-        finding: the latest finding behind the alert (reminders repeat its value).
-    """
-
-    severity: Severity
-    raised_at_s: float
-    last_sent_at_s: float
-    finding: Finding
 
 
 def step(
@@ -93,19 +74,6 @@ def passes(channel: Channel, finding: Finding) -> bool:
     return not channel.checks or finding.check in channel.checks
 
 
-def check_applies(check: Check, file_name: str) -> bool:
-    """Whether a check is evaluated on a run file: ``applies_to`` globs or ``re:`` patterns."""
-    if not check.applies_to:
-        return True
-    for pattern in check.applies_to:
-        if pattern.startswith("re:"):
-            if re.search(pattern[3:], file_name):
-                return True
-        elif fnmatch.fnmatchcase(file_name, pattern):
-            return True
-    return False
-
-
 def clearable_checks(checks: tuple[Check, ...], file_name: str, *, readable: bool) -> set[str]:
     """Names of the checks whose alerts this run may clear (those it was evaluated on).
 
@@ -115,7 +83,7 @@ def clearable_checks(checks: tuple[Check, ...], file_name: str, *, readable: boo
     """
     if not readable:
         return set()
-    names = {c.name for c in checks if check_applies(c, file_name)}
+    names = {c.name for c in checks if c.applies_to_file(file_name)}
     names.add(UNREADABLE_CHECK)
     return names
 

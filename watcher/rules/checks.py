@@ -1,9 +1,7 @@
-"""Which checks apply to a run, which metric paths they watch, and whether a condition holds.
+"""Which metric paths a check watches, and whether its condition holds on a value.
 
-- ``applies_to``: a check applies when the list is empty or any entry matches the run's file
-  name: an entry ``re:<regex>`` is searched with ``re.fullmatch``, any other entry is a glob
-  matched case-sensitively (``fnmatch.fnmatchcase``), so ``QC_*.mzML`` never matches
-  ``qc_1.mzml`` on one machine and not on another.
+- ``applies_to``: which runs a check is evaluated on is ``Check.applies_to_file`` in
+  ``watcher.config`` (globs, or ``re:<regex>`` matching the whole name), shared with notify.
 - Metric paths: ``*`` stands for one or more characters, so ``calibrant.*.median_ppm`` expands
   to one path per calibrant in ``RunMetrics.flat()`` (names may themselves contain dots).
 - Missing values: a metric that is None or NaN was not measured; no condition holds on it, so it
@@ -18,41 +16,14 @@ import dataclasses
 import functools
 import math
 import re
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable
 from dataclasses import dataclass
-from fnmatch import fnmatchcase
 
 from watcher.config import Condition
-from watcher.errors import ConfigError, ConfigProblem
 from watcher.rules.baseline import Baseline
-
-REGEX_PREFIX = "re:"
 
 Value = float | bool | None
 Bounds = tuple[float, float]
-
-
-@functools.lru_cache(maxsize=256)
-def _compiled(pattern: str) -> re.Pattern[str]:
-    try:
-        return re.compile(pattern)
-    except re.error as exc:
-        raise ConfigError(
-            [ConfigProblem("", None, "applies_to", f"invalid regex {pattern!r}: {exc}")]
-        ) from exc
-
-
-def applies(applies_to: Sequence[str], file_name: str) -> bool:
-    """Whether a check with these ``applies_to`` patterns applies to a run named ``file_name``."""
-    if not applies_to:
-        return True
-    for pattern in applies_to:
-        if pattern.startswith(REGEX_PREFIX):
-            if _compiled(pattern[len(REGEX_PREFIX) :]).fullmatch(file_name):
-                return True
-        elif fnmatchcase(file_name, pattern):
-            return True
-    return False
 
 
 @functools.lru_cache(maxsize=256)

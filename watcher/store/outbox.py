@@ -12,8 +12,7 @@ import sqlite3
 from dataclasses import dataclass
 from enum import StrEnum
 
-from watcher.notify.alerts import AlertState
-from watcher.records import Finding, Severity
+from watcher.records import AlertState, Finding, Severity
 from watcher.store.db import register_schema
 
 SCHEMA = """
