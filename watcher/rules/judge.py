@@ -31,12 +31,11 @@ from dataclasses import dataclass
 from datetime import UTC, datetime
 from typing import Protocol
 
-from watcher.config import Check, Condition
+from watcher.config import Check, Condition, matches_applies_to
 from watcher.records import STATUS_RANK, Finding, RunMetrics, Severity, Status
 from watcher.rules import messages, trend, westgard
 from watcher.rules.baseline import Baseline, from_spec
 from watcher.rules.checks import (
-    applies,
     critical_bounds,
     evaluate,
     expand,
@@ -90,7 +89,7 @@ def _points(
             p
             for p in raw
             if not is_missing(p.value)
-            and applies(applies_to, p.file_name)
+            and matches_applies_to(applies_to, p.file_name)
             and (not accepted_only or p.status in ACCEPTED)
         ]
         if len(kept) >= limit or len(raw) < fetch:
@@ -328,7 +327,7 @@ def judge(
     flat = metrics.flat()
     findings: list[Finding] = []
     for check in checks:
-        if not applies(check.applies_to, file_name):
+        if not check.applies_to_file(file_name):
             continue
         for path in expand(check.metric, flat):
             value = flat[path]
