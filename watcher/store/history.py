@@ -26,8 +26,8 @@ from datetime import UTC, datetime
 from fnmatch import fnmatchcase
 from typing import Any
 
+from watcher.config import matches_applies_to
 from watcher.records import Finding, Severity, Status, Verdict
-from watcher.rules.checks import applies
 from watcher.rules.judge import HistoryPoint
 from watcher.store.db import register_schema
 
@@ -290,7 +290,7 @@ class StoreHistory:
             ).fetchall()
             for r in rows:
                 point = _point(tuple(r)[1:])
-                if applies(self._applies_to, point.file_name):
+                if matches_applies_to(self._applies_to, point.file_name):
                     newest_first.append(point)
                     if len(newest_first) == limit:
                         break
