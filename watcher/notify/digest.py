@@ -21,7 +21,6 @@ from zoneinfo import ZoneInfo
 
 from watcher.config import Check, Config
 from watcher.notify import plots
-from watcher.notify.alerts import check_applies
 from watcher.notify.message import format_value
 
 _ACCEPTED = ("ok", "notice")
@@ -126,7 +125,7 @@ def _check_for(config: Config, metric: str) -> Check | None:
 
 
 def _applies(check: Check | None, run: Any) -> bool:
-    return check is None or check_applies(check, str(_get(run, "file_name") or ""))
+    return check is None or check.applies_to_file(str(_get(run, "file_name") or ""))
 
 
 def _baseline(
