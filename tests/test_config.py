@@ -12,7 +12,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from watcher import config as cfg
-from watcher.configload import KEYS, load_config, load_config_text
+from watcher.configkeys import KEYS
+from watcher.configload import load_config, load_config_text
 from watcher.errors import ConfigError, ConfigProblem
 from watcher.records import CalibrantDrift, ExpectedIonResult, Severity, SignalMetrics
 from watcher.yamllines import MAX_NODES, format_path, read_yaml, resolve_plain

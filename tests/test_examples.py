@@ -10,7 +10,8 @@ from typing import Any
 import jsonschema
 import pytest
 
-from watcher.configload import KEYS, load_config, load_config_text
+from watcher.configkeys import KEYS
+from watcher.configload import load_config, load_config_text
 from watcher.errors import ConfigError
 from watcher.yamllines import read_yaml
 
