@@ -15,6 +15,7 @@ from enum import StrEnum
 from pathlib import Path
 
 from watcher.store.db import register_schema
+from watcher.store.rows import columns, from_row
 
 
 class JobState(StrEnum):
@@ -72,26 +73,10 @@ class Job:
 
 
 def _job(row: sqlite3.Row) -> Job:
-    return Job(
-        id=row["id"],
-        path=Path(row["path"]),
-        size=row["size"],
-        mtime_ns=row["mtime_ns"],
-        sha256=row["sha256"],
-        state=JobState(row["state"]),
-        first_seen_s=row["first_seen_s"],
-        attempts=row["attempts"],
-        run_id=row["run_id"],
-        duplicate_of=row["duplicate_of"],
-        outcome=row["outcome"],
-        incomplete=row["incomplete"],
-    )
+    return from_row(Job, row, path=Path(row["path"]), state=JobState(row["state"]))
 
 
-_COLUMNS = (
-    "id, path, size, mtime_ns, sha256, state, first_seen_s, attempts, run_id, duplicate_of,"
-    " outcome, incomplete"
-)
+_COLUMNS = columns(Job)
 
 
 def enqueue(

@@ -14,6 +14,7 @@ from enum import StrEnum
 
 from watcher.records import AlertState, Finding, Severity
 from watcher.store.db import register_schema
+from watcher.store.rows import from_row
 
 SCHEMA = """
 CREATE TABLE IF NOT EXISTS alert_state (
@@ -229,24 +230,7 @@ _MESSAGE_SQL = (
 
 
 def _message(row: sqlite3.Row) -> Message:
-    return Message(
-        message_id=row["message_id"],
-        channel=row["channel"],
-        kind=row["kind"],
-        ref=row["ref"],
-        created_at_s=row["created_at_s"],
-        title=row["title"],
-        body=row["body"],
-        notify_type=row["notify_type"],
-        attachment=row["attachment"],
-        attachment_name=row["attachment_name"],
-        plot_metric=row["plot_metric"],
-        status=DeliveryStatus(row["status"]),
-        attempts=row["attempts"],
-        last_error=row["last_error"],
-        next_attempt_at_s=row["next_attempt_at_s"],
-        finished_at_s=row["finished_at_s"],
-    )
+    return from_row(Message, row, status=DeliveryStatus(row["status"]))
 
 
 def next_pending(conn: sqlite3.Connection, channel: str) -> Message | None:
