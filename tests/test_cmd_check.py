@@ -15,10 +15,11 @@ import jsonschema
 import pytest
 
 from synth import CalibrantTruth, RunSpec, TargetTruth, write_mzml
+from tests.refdata import REFERENCE as SHARED_REFERENCE
 from watcher.progress import ProgressBar
 
 ROOT = Path(__file__).resolve().parents[1]
-REFERENCE = Path("/work/shared/reference")
+REFERENCE = SHARED_REFERENCE
 SILOXANE_MZ = 445.120025  # reference/check-ions.tsv
 CAFFEINE_MZ = 195.087652  # reference/check-ions.tsv, caffeine [M+H]+
 

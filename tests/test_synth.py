@@ -19,8 +19,9 @@ from lxml import etree
 from pyteomics import mgf, mzml, mzxml
 
 from synth import CalibrantTruth, RunSpec, TargetTruth, simulate, write_mgf, write_mzml, write_mzxml
+from tests.refdata import REFERENCE as SHARED_REFERENCE
 
-REFERENCE = Path("/work/shared/reference")
+REFERENCE = SHARED_REFERENCE
 XSD_DIR = Path(psims.__file__).parent / "validation" / "xsd"  # psims ships the PSI mzML XSDs
 SILOXANE_MZ = 445.120025  # reference/check-ions.tsv, (C2H6SiO)6 + H+
 CAFFEINE_MZ = 195.087652  # reference/check-ions.tsv, caffeine [M+H]+

@@ -16,7 +16,9 @@ import zlib
 from collections.abc import Iterator
 from pathlib import Path
 
-REFERENCE = Path("/work/shared/reference")
+from tests.refdata import REFERENCE as SHARED_REFERENCE
+
+REFERENCE = SHARED_REFERENCE
 TINY = REFERENCE / "mzml" / "tiny.pwiz.1.1.mzML"  # indexed, uncompressed, mixed RT units
 EXAMPLE = REFERENCE / "mzml" / "example.mzML"  # indexed, zlib arrays
 PLAIN = REFERENCE / "mzml" / "adv_mzqc_in_mzml.mzML"  # not indexed

@@ -22,9 +22,10 @@ import pytest
 from molmass import Formula
 
 from synth import CalibrantTruth, RunSpec, RunTruth, TargetTruth, write_mgf, write_mzml, write_mzxml
+from tests.refdata import REFERENCE as SHARED_REFERENCE
 
 ROOT = Path(__file__).resolve().parents[2]
-REFERENCE = Path("/work/shared/reference")
+REFERENCE = SHARED_REFERENCE
 
 
 def _check_ions() -> dict[tuple[str, int], dict[str, float]]:

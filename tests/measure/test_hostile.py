@@ -9,6 +9,7 @@ from pathlib import Path
 import pytest
 
 from tests.measure.badfiles import SECRET_MARKER, attack_files
+from tests.refdata import REFERENCE as SHARED_REFERENCE
 from watcher.errors import ReadError
 from watcher.formats import completeness, sniff_format
 from watcher.measure.read import open_run
@@ -74,12 +75,12 @@ def test_prolog_check_reads_streams(attacks: dict[str, Path]) -> None:
 
 def test_prolog_check_passes_clean_file() -> None:
     """A real mzML without DOCTYPE passes the prolog check (reference tiny.pwiz.1.1.mzML)."""
-    assert_no_doctype(Path("/work/shared/reference/mzml/tiny.pwiz.1.1.mzML"))
+    assert_no_doctype(SHARED_REFERENCE / "mzml" / "tiny.pwiz.1.1.mzML")
 
 
 def test_undeclared_entity_is_an_error_not_a_leak(tmp_path: Path) -> None:
     """An entity reference without any DOCTYPE is a well-formedness error, nothing is expanded."""
-    body = Path("/work/shared/reference/mzml/adv_mzqc_in_mzml.mzML").read_bytes()
+    body = (SHARED_REFERENCE / "mzml" / "adv_mzqc_in_mzml.mzML").read_bytes()
     at = body.index(b"<spectrum ")
     close = body.index(b">", at) + 1
     path = tmp_path / "S01_undeclared.mzML"

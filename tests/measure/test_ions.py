@@ -3,15 +3,15 @@
 from __future__ import annotations
 
 import csv
-from pathlib import Path
 
 import pytest
 from molmass import Formula
 
+from tests.refdata import REFERENCE as SHARED_REFERENCE
 from watcher.config import IonSpec
 from watcher.measure.ions import isotope_ratios, ppm_error, resolve
 
-REFERENCE = Path("/work/shared/reference/check-ions.tsv")
+REFERENCE = SHARED_REFERENCE / "check-ions.tsv"
 
 
 def _check_ions() -> dict[tuple[str, int], dict[str, str]]:

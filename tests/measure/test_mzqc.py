@@ -13,6 +13,7 @@ from typing import Any
 import jsonschema
 import pytest
 
+from tests.refdata import REFERENCE as SHARED_REFERENCE
 from watcher.measure.mzqc import build_mzqc, write_mzqc
 from watcher.records import (
     CalibrantDrift,
@@ -23,7 +24,7 @@ from watcher.records import (
     Verdict,
 )
 
-REFERENCE = Path("/work/shared/reference")
+REFERENCE = SHARED_REFERENCE
 CREATED = datetime(2026, 3, 2, 9, 0, tzinfo=UTC)
 
 

@@ -10,13 +10,14 @@ import pytest
 
 from synth import CalibrantTruth, RunSpec, TargetTruth, write_mgf, write_mzml
 from tests.measure.scanfactory import Analyte, Calibrant, header, make_run
+from tests.refdata import REFERENCE as SHARED_REFERENCE
 from watcher.config import Config, ExpectedIon, IonSpec
 from watcher.errors import ConfigError, ReadError
 from watcher.measure.ions import resolve
 from watcher.measure.run import NO_MS1_NOTE, measure_file, measure_scans
 from watcher.measure.scan import Scan
 
-REFERENCE = Path("/work/shared/reference")
+REFERENCE = SHARED_REFERENCE
 
 # The demo scenario's calibrants and QC-mix ions (Larkfield Metabolomics Core, invented lab).
 SILOXANE = IonSpec(name="siloxane-445", mz=445.120025, search_ppm=30)
