@@ -12,7 +12,6 @@ lxml, numpy or pyteomics.
 
 from __future__ import annotations
 
-import gzip
 import hashlib
 import os
 import re
@@ -20,7 +19,7 @@ import zlib
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
-from typing import BinaryIO
+from typing import Any, BinaryIO
 
 from watcher.errors import ReadError
 
@@ -280,38 +279,32 @@ def _index_problem(fh: BinaryIO, tail: bytes, size: int) -> str | None:
     if not sums:
         return None  # fileChecksum is optional in practice; the tail tag and offset held
     expected = sums[-1].decode().lower()
+    tag_at = tail.rfind(_CHECKSUM_TAG)  # the last tag of the file lies in its tail
     fh.seek(0)
-    actual = _sha1_through_tag(_chunks(fh))
-    if actual is None:
-        return "indexedmzML <fileChecksum> tag not found"
+    actual = _sha1_of_prefix(fh, size - len(tail) + tag_at + len(_CHECKSUM_TAG))
     if actual != expected:
         return "indexedmzML SHA-1 mismatch (file changed or damaged after writing)"
     return None
 
 
+def _sha1_of_prefix(fh: BinaryIO, length: int) -> str:
+    """SHA-1 of the first ``length`` bytes, read into one reused buffer (no copies per chunk)."""
+    sha = hashlib.sha1()  # noqa: S324 - the mzML standard fixes SHA-1; not used for security
+    buffer = bytearray(_CHUNK_BYTES * 4)
+    view = memoryview(buffer)
+    left = length
+    while left > 0:
+        n = fh.readinto(view[: min(left, len(buffer))])  # type: ignore[attr-defined]
+        if not n:
+            break  # the file shrank under us: the digest will not match
+        sha.update(view[:n])
+        left -= n
+    return sha.hexdigest()
+
+
 def _chunks(fh: BinaryIO) -> Iterator[bytes]:
     while chunk := fh.read(_CHUNK_BYTES):
         yield chunk
-
-
-def _sha1_through_tag(chunks: Iterator[bytes]) -> str | None:
-    """SHA-1 over every byte up to and including the last ``<fileChecksum>`` tag.
-
-    The tag is near the end, so all but a held-back tail is hashed as it streams past.
-    """
-    sha = hashlib.sha1()  # noqa: S324 - the mzML standard fixes SHA-1; not used for security
-    held = b""
-    for chunk in chunks:
-        held += chunk
-        if len(held) > 2 * _TAIL_BYTES:
-            cut = len(held) - _TAIL_BYTES
-            sha.update(held[:cut])
-            held = held[cut:]
-    pos = held.rfind(_CHECKSUM_TAG)
-    if pos < 0:
-        return None
-    sha.update(held[: pos + len(_CHECKSUM_TAG)])
-    return sha.hexdigest()
 
 
 def _mgf_completeness(path: Path, tail: bytes) -> str | None:
@@ -349,46 +342,167 @@ def _count_lines(block: bytes, word: bytes) -> int:
 
 
 def _gzip_completeness(path: Path, root: str | None) -> str | None:
-    try:
-        with path.open("rb") as raw, gzip.GzipFile(fileobj=raw, mode="rb") as gz:
-            inner_size = 0
-            tail = b""
+    with path.open("rb") as raw:
+        check = GunzipCheck(raw, root)
+        check.drain()
+        return check.problem()
 
-            def counted() -> Iterator[bytes]:
-                nonlocal inner_size, tail
-                for chunk in _chunks(gz):  # type: ignore[arg-type]
-                    inner_size += len(chunk)
-                    tail = (tail + chunk)[-_TAIL_BYTES:]
-                    yield chunk
 
-            digest = _sha1_through_tag(counted())
-    except EOFError:
-        return "gzip stream ends early (truncated while copying?)"
-    except (OSError, zlib.error) as exc:
-        return f"gzip stream is corrupt ({_short(exc)})"
-    stripped, problem = _tail_problem(tail)
-    if problem:
-        return problem
-    closing = f"</{root}>".encode()
-    if not stripped.endswith(closing):
-        return f"XML inside gzip ends before </{root}> (truncated before compressing?)"
-    if root != "indexedmzML":
-        return None
-    sums = _CHECKSUM_RE.findall(tail)
-    if sums and digest is not None and digest != sums[-1].decode().lower():
-        return "indexedmzML SHA-1 mismatch inside gzip"
-    # The offset check needs random access into the decompressed stream: a second pass.
-    offsets = _INDEX_OFFSET_RE.findall(tail)
-    if not offsets:
-        return "indexedmzML has no indexListOffset"
-    offset = int(offsets[-1])
-    if offset >= inner_size:
-        return f"indexListOffset {offset} points past the end of the data"
-    with path.open("rb") as raw, gzip.GzipFile(fileobj=raw, mode="rb") as gz:
-        gz.seek(offset)
-        if not gz.read(256).lstrip().startswith(b"<indexList"):
+_IN_BYTES = 256 * 1024  # compressed bytes per read
+_OUT_BYTES = 1 << 20  # at most this much decompressed at a time: a gzip bomb stays bounded
+_OFFSET_SLACK = 256  # indexListOffset may point up to this far before <indexList (whitespace)
+_MAX_MARKS = 64
+_INDEX_LIST_TAG = b"<indexList"
+_ASCII_SPACE = b" \t\n\r\x0b\x0c"  # what bytes.lstrip() strips
+_SLACK_SPACES = _OFFSET_SLACK - len(_INDEX_LIST_TAG)  # the tag must fit in the 256 bytes read
+
+
+class GunzipCheck:
+    """Decompress a gzip stream once, for a parser and for the completeness proof at the same time.
+
+    ``read(n)`` hands out the decompressed bytes; alongside, every byte is hashed (SHA-1 up to
+    the last ``<fileChecksum>``), the last 64 KiB are kept for the closing tag and the index
+    offset, and the positions of ``<indexList`` are noted so the offset can be checked without
+    seeking back. The gzip trailer (CRC-32 and length) is checked by zlib at each member's end.
+    After the parser is done, ``drain()`` reads whatever it left, and ``problem()`` gives the
+    same reasons as ``completeness`` (None when whole). A truncated or corrupt stream ends
+    ``read`` early (the parser then fails) and is reported by ``problem()``.
+    """
+
+    def __init__(self, raw: BinaryIO, root: str | None) -> None:
+        self._raw = raw
+        self._root = root
+        self._inflate: Any = zlib.decompressobj(wbits=31)
+        self._in = b""  # compressed input not yet consumed
+        self._between = False  # at the end of a member (zero padding or another member may follow)
+        self._done = False
+        self._problem: str | None = None
+        self._out = b""  # decompressed bytes not yet handed to the reader
+        self._out_at = 0
+        self._sha = hashlib.sha1()  # noqa: S324 - the mzML standard fixes SHA-1
+        self._held = b""  # the last <= 64 KiB, not hashed yet (the checksum tag may be in it)
+        self._size = 0
+        self._marks: list[tuple[int, int]] = []  # (whitespace start, position) of "<indexList"
+        self._marks_overflow = False
+        self._prev = b""  # the last bytes of the previous output, for tags across chunks
+
+    def readable(self) -> bool:
+        return True
+
+    def read(self, size: int = -1) -> bytes:
+        """Up to ``size`` decompressed bytes (b"" at the end, or when the stream is bad)."""
+        if self._out_at >= len(self._out):
+            self._out, self._out_at = self._next(), 0
+        if size < 0:
+            size = len(self._out)
+        piece = self._out[self._out_at : self._out_at + size]
+        self._out_at += len(piece)
+        return piece
+
+    def drain(self) -> None:
+        """Decompress (and check) everything the reader has not asked for."""
+        self._out, self._out_at = b"", 0
+        while self._next():
+            pass
+
+    def problem(self) -> str | None:
+        """Why the stream is not a whole run file, or None; call after ``drain``."""
+        if self._problem is not None:
+            return self._problem
+        tail = self._held
+        stripped, problem = _tail_problem(tail)
+        if problem:
+            return problem
+        root = self._root
+        if not stripped.endswith(f"</{root}>".encode()):
+            return f"XML inside gzip ends before </{root}> (truncated before compressing?)"
+        if root != "indexedmzML":
+            return None
+        sums = _CHECKSUM_RE.findall(tail)
+        if sums:
+            sha = self._sha.copy()
+            sha.update(tail[: tail.rfind(_CHECKSUM_TAG) + len(_CHECKSUM_TAG)])
+            if sha.hexdigest() != sums[-1].decode().lower():
+                return "indexedmzML SHA-1 mismatch inside gzip"
+        offsets = _INDEX_OFFSET_RE.findall(tail)
+        if not offsets:
+            return "indexedmzML has no indexListOffset"
+        offset = int(offsets[-1])
+        if offset >= self._size:
+            return f"indexListOffset {offset} points past the end of the data"
+        if self._marks_overflow:
+            return "indexedmzML has too many <indexList tags to check its offset"
+        if not any(start <= offset <= at for start, at in self._marks):
             return f"indexListOffset {offset} does not point at <indexList>"
-    return None
+        return None
+
+    def _next(self) -> bytes:
+        """The next non-empty piece of decompressed data, b"" at the end or on a bad stream."""
+        while not self._done:
+            if not self._in:
+                self._in = self._raw.read(_IN_BYTES)
+                if not self._in:
+                    self._done = True
+                    if not self._between:
+                        self._problem = "gzip stream ends early (truncated while copying?)"
+                    break
+            if self._between:
+                self._in = self._in.lstrip(b"\x00")  # zero padding after a member is allowed
+                if not self._in:
+                    continue
+                self._inflate, self._between = zlib.decompressobj(wbits=31), False
+            try:
+                out: bytes = self._inflate.decompress(self._in, _OUT_BYTES)
+            except zlib.error as exc:
+                self._done = True
+                self._problem = f"gzip stream is corrupt ({_short(exc)})"
+                break
+            if self._inflate.eof:
+                self._in, self._between = self._inflate.unused_data, True
+            else:
+                self._in = self._inflate.unconsumed_tail
+            if out:
+                self._account(out)
+                return out
+        return b""
+
+    def _account(self, out: bytes) -> None:
+        self._note_marks(out)
+        self._size += len(out)
+        if len(out) >= _TAIL_BYTES:
+            self._sha.update(self._held)
+            self._sha.update(memoryview(out)[: len(out) - _TAIL_BYTES])
+            self._held = out[-_TAIL_BYTES:]
+        else:
+            joined = self._held + out
+            cut = max(0, len(joined) - _TAIL_BYTES)
+            self._sha.update(memoryview(joined)[:cut])
+            self._held = joined[cut:]
+
+    def _note_marks(self, out: bytes) -> None:
+        # A tag may straddle two pieces: search the seam (the previous bytes + this piece's
+        # start) and then the rest of this piece, each start position exactly once.
+        keep = _OFFSET_SLACK + len(_INDEX_LIST_TAG)
+        prev = self._prev
+        seam = prev + out[: keep + len(_INDEX_LIST_TAG)]
+        first = max(0, len(prev) - len(_INDEX_LIST_TAG) + 1)
+        self._find_marks(seam, self._size - len(prev), first, len(prev) + keep)
+        self._find_marks(out, self._size, keep, len(out))
+        self._prev = (prev + out[-keep:])[-keep:]
+
+    def _find_marks(self, data: bytes, base: int, begin: int, stop: int) -> None:
+        at = data.find(_INDEX_LIST_TAG, begin)
+        while 0 <= at < stop:
+            start = at  # whitespace before the tag: where the offset may point
+            while start > 0 and at - start < _SLACK_SPACES and data[start - 1] in _ASCII_SPACE:
+                start -= 1
+            mark = (base + start, base + at)
+            if mark not in self._marks:
+                if len(self._marks) >= _MAX_MARKS:
+                    self._marks_overflow = True
+                    return
+                self._marks.append(mark)
+            at = data.find(_INDEX_LIST_TAG, at + 1)
 
 
 def _short(exc: BaseException) -> str:
