@@ -359,9 +359,15 @@ class Pipeline:
         )
         return verdict, acquired_at
 
-    def _drop(self, job: jobs.Job, why: str) -> str:
+    def fail(self, job: jobs.Job, outcome: str) -> None:
+        """Mark a claimed job ``failed`` with ``outcome``, in its own transaction."""
         with db.write(self.conn):
-            jobs.finish(self.conn, job.id, self.clock(), state=jobs.JobState.FAILED, outcome=why)
+            jobs.finish(
+                self.conn, job.id, self.clock(), state=jobs.JobState.FAILED, outcome=outcome
+            )
+
+    def _drop(self, job: jobs.Job, why: str) -> str:
+        self.fail(job, why)
         log.info("run.skipped", reason=why)
         return "skipped"
 
