@@ -1,10 +1,11 @@
-"""The daemon's wiring and process life: watcher, settle loop, worker, signals, reload, sd_notify.
+"""The daemon's wiring and process life: watcher, settler, worker, signals, reload, sd_notify.
 
 ``ionwarden run -c CONFIG`` calls ``main(args)``; the demo drives a ``Daemon`` in-process with
 ``start()``, ``wait_idle()`` and ``close()``. Threads: watchdog's observer (hints only), one worker
-(measures one run at a time in a child process) and the main loop here, which settles files,
-queues jobs, checks the heartbeat, ticks the notifier and talks to systemd. Only the main loop
-pings the systemd watchdog, and only while the observer lives and the worker makes progress.
+(measures one run at a time in a child process) and the main loop here, which hands hints and
+scans to the settler (``watcher.intake.settler``), queues the files it settles as jobs, checks
+the heartbeat, ticks the notifier and talks to systemd. Only the main loop pings the systemd
+watchdog, and only while the observer lives and the worker makes progress.
 """
 
 from __future__ import annotations
@@ -29,7 +30,9 @@ from watcher import config as config_mod
 from watcher import logs, sdnotify
 from watcher.config import Config
 from watcher.errors import ConfigError, IonwardenError, StoreError
-from watcher.intake import catchup, settle, watch
+from watcher.intake import watch
+from watcher.intake.settle import FileStat
+from watcher.intake.settler import Settled, Settler
 from watcher.notify.service import Notifier
 from watcher.pipeline import Pipeline, time_limit_s
 from watcher.store import db, jobs
@@ -77,7 +80,7 @@ class Daemon:
         self.state_dir = state_dir_of(config)
         self.hints: queue.Queue[watch.Hint] = queue.Queue(maxsize=max(1, config.limits.queue_max))
         self.rescan = watch.RescanFlag()
-        self.pending: dict[Path, settle.Pending] = {}
+        self.settler = Settler(config.watch)
         self.stop_event = threading.Event()
         self.wake_worker = threading.Event()
         self._stop_requested = threading.Event()
@@ -242,7 +245,7 @@ class Daemon:
             self.step()
             counts = jobs.counts(self._conn())
             if (
-                not self.pending
+                not self.settler.pending
                 and self.hints.empty()
                 and counts["queued"] == 0
                 and counts["measuring"] == 0
@@ -253,99 +256,42 @@ class Daemon:
         return False
 
     def _full_scan(self, reason: str) -> None:
-        w = self.config.watch
-        seen = catchup.scan(w.folders, w.patterns, w.ignore, recursive=w.recursive)
-        new = catchup.unknown(seen, jobs.known_identities(self._conn()))
         now_s = self.clock()
-        added = 0
-        for item in new:
-            if item.path not in self.pending:
-                self.pending[item.path] = settle.new_pending(item.path, now_s, w.settle_s)
-                added += 1
+        files, added = self.settler.scan(jobs.known_identities(self._conn()), now_s)
         self._last_scan = now_s
-        log.info("scan.completed", reason=reason, files=len(seen), new=added)
+        log.info("scan.completed", reason=reason, files=files, new=added)
 
     def _drain_hints(self, now_s: float) -> None:
-        w = self.config.watch
         while True:
             try:
                 hint = self.hints.get_nowait()
             except queue.Empty:
                 return
-            if hint.is_dir:
-                # A folder moved in carries its files without an event per file: scan it.
-                for item in catchup.scan([hint.path], w.patterns, w.ignore, recursive=w.recursive):
-                    self._note(item.path, now_s)
-            else:
-                self._note(hint.path, now_s)
-
-    def _note(self, path: Path, now_s: float) -> None:
-        if path not in self.pending:
-            self.pending[path] = settle.new_pending(path, now_s, self.config.watch.settle_s)
-            log.info("run.detected", file=str(path))
+            self.settler.take_hint(hint, now_s)
 
     def _settle_due(self, now_s: float) -> None:
-        w = self.config.watch
-        ready: list[tuple[Path, settle.FileStat, str | None]] = []
-        for path, pending in list(self.pending.items()):
-            if pending.next_check_s > now_s:
-                continue
-            stat = _stat(path)
-            decision, nxt = settle.step(
-                pending,
-                stat,
-                now_s,
-                settle_s=w.settle_s,
-                max_wait_s=w.max_wait_s,
-                incomplete_reason=None,
-            )
-            if decision is settle.Decision.READY and stat is not None:
-                if jobs.known(self._conn(), path, stat.size, stat.mtime_ns):
-                    del self.pending[path]
-                    continue
-                why = _completeness(path)
-                if why is not None:
-                    decision, nxt = settle.step(
-                        pending,
-                        stat,
-                        now_s,
-                        settle_s=w.settle_s,
-                        max_wait_s=w.max_wait_s,
-                        incomplete_reason=why,
-                    )
-            if decision is settle.Decision.READY and stat is not None:
-                del self.pending[path]
-                log.info(
-                    "run.settled",
-                    file=str(path),
-                    size=stat.size,
-                    waited_s=round(now_s - pending.first_seen_s, 3),
-                )
-                ready.append((path, stat, None))
-            elif decision is settle.Decision.GIVE_UP and stat is not None:
-                del self.pending[path]
-                text = settle.incomplete_message(
-                    nxt.reason or "not whole", now_s - nxt.first_seen_s
-                )
-                log.warning("run.incomplete", file=str(path), reason=text)
-                ready.append((path, stat, text))
-            elif decision is settle.Decision.GONE:
-                del self.pending[path]
-            else:
-                self.pending[path] = nxt
+        ready = self.settler.due(now_s, self._is_known)
         if ready:
             self._enqueue(ready, now_s)
 
-    def _enqueue(self, ready: list[tuple[Path, settle.FileStat, str | None]], now_s: float) -> None:
+    def _is_known(self, path: Path, stat: FileStat) -> bool:
+        return jobs.known(self._conn(), path, stat.size, stat.mtime_ns)
+
+    def _enqueue(self, ready: list[Settled], now_s: float) -> None:
         added: list[tuple[int, Path]] = []
         resumed = False
         with db.write(self._conn()):
-            for path, stat, incomplete in ready:
+            for item in ready:
                 job_id = jobs.enqueue(
-                    self._conn(), path, stat.size, stat.mtime_ns, now_s, incomplete=incomplete
+                    self._conn(),
+                    item.path,
+                    item.stat.size,
+                    item.stat.mtime_ns,
+                    now_s,
+                    incomplete=item.incomplete,
                 )
                 if job_id is not None:
-                    added.append((job_id, path))
+                    added.append((job_id, item.path))
             if added:
                 self._last_arrival_s = now_s
                 if jobs.get_state(self._conn(), _HEARTBEAT_KEY) == "1":
@@ -387,7 +333,7 @@ class Daemon:
         counts = jobs.counts(self._conn())
         last = self.pipeline.last_file if self.pipeline else None
         sdnotify.notify(
-            f"STATUS=queued {counts['queued']}, settling {len(self.pending)}, "
+            f"STATUS=queued {counts['queued']}, settling {len(self.settler.pending)}, "
             f"done {counts['done']}; last run {last or 'none yet'}"
         )
 
@@ -414,6 +360,7 @@ class Daemon:
             return
         old = self.config
         self.config = new
+        self.settler.watch = new.watch
         if self.notifier is not None:
             self.notifier.stop_delivery(2.0)
         self.notifier = notifier
@@ -457,36 +404,11 @@ class Daemon:
             except Exception:
                 log.exception("run.failed", file=str(job.path))
                 try:
-                    with db.write(pipeline.conn):
-                        jobs.finish(
-                            pipeline.conn,
-                            job.id,
-                            self.clock(),
-                            state=jobs.JobState.FAILED,
-                            outcome="internal error (see the daemon log)",
-                        )
+                    pipeline.fail(job, "internal error (see the daemon log)")
                 except sqlite3.Error:
                     log.exception("run.failed", file=str(job.path))
             finally:
                 self._busy_since = None
-
-
-def _stat(path: Path) -> settle.FileStat | None:
-    try:
-        st = path.stat()
-    except OSError:
-        return None
-    return settle.FileStat(st.st_size, st.st_mtime_ns)
-
-
-def _completeness(path: Path) -> str | None:
-    from watcher.formats import completeness
-
-    try:
-        reason: str | None = completeness(path)
-    except OSError as exc:
-        return f"cannot be read ({exc.strerror})"
-    return reason
 
 
 def main(args: argparse.Namespace) -> int:
