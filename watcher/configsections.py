@@ -173,23 +173,13 @@ def _alerts(v: Values, data: Any, check_names: set[str]) -> Alerts:
     m = v.mapping(path, data, KEYS["alerts"], "alerts keys") or {}
     kw: dict[str, Any] = {}
     v.put(kw, m, path, "channels", lambda p, x: _channels(v, p, x, check_names))
-    v.put(
-        kw,
-        m,
-        path,
-        "remind_every",
-        lambda p, x: v.duration(p, x, allow_never=True),
-        field="remind_every_s",
-    )
+
+    def seconds_or_never(p: KeyPath, x: Any) -> float | None:
+        return v.duration(p, x, allow_never=True)
+
+    v.put(kw, m, path, "remind_every", seconds_or_never, field="remind_every_s")
     v.put(kw, m, path, "send_cleared", lambda p, x: v.boolean(p, x))
-    v.put(
-        kw,
-        m,
-        path,
-        "expect_run_every",
-        lambda p, x: v.duration(p, x, allow_never=True),
-        field="expect_run_every_s",
-    )
+    v.put(kw, m, path, "expect_run_every", seconds_or_never, field="expect_run_every_s")
     v.put(kw, m, path, "active_hours", lambda p, x: None if x is None else v.hours(p, x))
     for key in ("timeout_s", "connect_timeout_s", "read_timeout_s"):
         v.put(kw, m, path, key, lambda p, x: v.duration(p, x))
