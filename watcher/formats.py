@@ -19,7 +19,7 @@ import zlib
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, BinaryIO
+from typing import IO, Any, BinaryIO
 
 from watcher.errors import ReadError
 
@@ -73,8 +73,11 @@ def sniff(path: Path) -> Sniffed:
     return _sniff_plain(path, head, gz=False)
 
 
-def completeness(path: Path) -> str | None:
+def completeness(path: Path, *, whole_gzip: bool = True) -> str | None:
     """None when the file is structurally whole, else a short human reason why it is not.
+
+    With ``whole_gzip=False`` a .gz file gets only the cheap checks here (size, head, format):
+    the caller proves the stream whole while reading it (``GunzipCheck``).
 
     Never raises. A file that can never become a run file (wrong format, a DOCTYPE) is not a
     completeness question: the answer is None and ``open_run`` refuses it at once, rather than
@@ -90,7 +93,7 @@ def completeness(path: Path) -> str | None:
             return "file starts with NUL bytes (preallocated, still being written?)"
         found = sniff(path)
         if found.format == "mzML.gz":
-            return _gzip_completeness(path, found.root)
+            return _gzip_completeness(path, found.root) if whole_gzip else None
         tail = _read_tail(path, size)
         if found.format == "MGF":
             return _mgf_completeness(path, tail)
@@ -101,12 +104,13 @@ def completeness(path: Path) -> str | None:
         return f"cannot read file: {exc.strerror or exc}"
 
 
-def check_complete(path: Path) -> None:
+def check_complete(path: Path, *, whole_gzip: bool = True) -> None:
     """Raise ``ReadError(kind="truncated")`` (``"empty"`` for a zero-byte file) unless whole.
 
     Files of no known format pass here; ``open_run`` refuses them with ``kind="wrong-format"``.
+    ``whole_gzip`` as in ``completeness``.
     """
-    reason = completeness(path)
+    reason = completeness(path, whole_gzip=whole_gzip)
     if reason is not None:
         kind = "empty" if reason.startswith("file is empty") else "truncated"
         raise ReadError(path, reason, kind=kind)
@@ -369,7 +373,7 @@ class GunzipCheck:
     ``read`` early (the parser then fails) and is reported by ``problem()``.
     """
 
-    def __init__(self, raw: BinaryIO, root: str | None) -> None:
+    def __init__(self, raw: IO[bytes], root: str | None) -> None:
         self._raw = raw
         self._root = root
         self._inflate: Any = zlib.decompressobj(wbits=31)

@@ -194,3 +194,70 @@ def _resum(data: bytes) -> bytes:
     cut = data.rindex(tag) + len(tag)
     digest = hashlib.sha1(data[:cut]).hexdigest().encode()  # noqa: S324 - mzML's checksum
     return data[:cut] + digest + data[cut + 40 :]
+
+
+def _index_list_at(data: bytes, position: int) -> bytes:
+    """``data`` (indexedmzML) padded inside the spectrum list so <indexList starts at position."""
+    at = data.index(b"<spectrumList")
+    pad = position - data.index(b"<indexList")
+    return bf.reindexed(data[:at] + b" " * pad + data[at:])
+
+
+@pytest.mark.parametrize("seam", [-9, -4, -1, 0, 1, 200])
+def test_gzip_offset_check_across_decompressed_pieces(tmp_path: Path, seam: int) -> None:
+    """<indexList where the one-pass gunzip splits its 1 MiB pieces is still found, exactly."""
+    # 1 MiB is formats._OUT_BYTES; the tag is placed so that it straddles that boundary.
+    data = _index_list_at(bf.TINY.read_bytes(), (1 << 20) + seam)
+    assert data.index(b"<indexList") == (1 << 20) + seam
+    assert completeness(bf.write(tmp_path, "QC_seam.mzML.gz", bf.gz(data))) is None
+    index_at = data.index(b"<indexList")
+    # mzML spec: indexListOffset is the byte offset of <indexList>; 1 byte late is wrong.
+    moved = data.replace(
+        b"<indexListOffset>%d<" % index_at, b"<indexListOffset>%d<" % (index_at + 1)
+    )
+    digest = hashlib.sha1(moved[: moved.rindex(b"<fileChecksum>") + 14]).hexdigest()  # noqa: S324
+    moved = (
+        moved[: moved.rindex(b"<fileChecksum>") + 14]
+        + digest.encode()
+        + b"</fileChecksum>\n</indexedmzML>\n"
+    )
+    reason = completeness(bf.write(tmp_path, "QC_late.mzML.gz", bf.gz(moved)))
+    assert reason == f"indexListOffset {index_at + 1} does not point at <indexList>"
+
+
+def test_gzip_offset_may_point_at_whitespace_before_the_tag(tmp_path: Path) -> None:
+    """An offset a few bytes early, on whitespace before <indexList, passes inside .gz too."""
+    # psims writes the offset at the preceding newline (as the plain-file check allows).
+    data = bf.reindexed(bf.TINY.read_bytes())
+    index_at = data.index(b"<indexList")
+    early = data.replace(
+        b"<indexListOffset>%d<" % index_at, b"<indexListOffset>%d<" % (index_at - 1)
+    )
+    body = early[: early.rindex(b"<fileChecksum>") + 14]
+    early = body + hashlib.sha1(body).hexdigest().encode() + b"</fileChecksum>\n</indexedmzML>\n"  # noqa: S324
+    assert early[index_at - 1 : index_at] == b" "
+    plain = completeness(bf.write(tmp_path, "QC_early.mzML", early))
+    assert plain is None
+    assert completeness(bf.write(tmp_path, "QC_early.mzML.gz", bf.gz(early))) is None
+
+
+def test_gzip_bad_crc_and_trailing_garbage_are_reported(tmp_path: Path) -> None:
+    """A wrong CRC-32 in the gzip trailer, or junk after the stream, makes the file not whole."""
+    # Past the 64 KiB that sniffing gunzips (which alone would call a small file wrong-format):
+    # a comment of hex text that does not compress away.
+    noise = b"".join(hashlib.sha1(b"%d" % i).hexdigest().encode() for i in range(8000))  # noqa: S324
+    data = bf.TINY.read_bytes()
+    at = data.index(b"<spectrumList")
+    packed = bf.gz(bf.reindexed(data[:at] + b"<!-- " + noise + b" -->" + data[at:]))
+    assert len(packed) > 128 * 1024
+    # RFC 1952: the trailer is CRC-32 then ISIZE, 4 bytes each, little-endian.
+    bad_crc = packed[:-8] + bytes([packed[-8] ^ 0xFF]) + packed[-7:]
+    reason = completeness(bf.write(tmp_path, "QC_crc.mzML.gz", bad_crc))
+    assert reason is not None
+    assert reason.startswith("gzip stream is corrupt")
+    junk = completeness(bf.write(tmp_path, "QC_junk.mzML.gz", packed + b"junk"))
+    assert junk is not None
+    assert junk.startswith("gzip stream is corrupt")
+    # RFC 1952 allows several members; zero padding after the last is tolerated as gzip does.
+    padded = packed + b"\x00" * 7
+    assert completeness(bf.write(tmp_path, "QC_pad.mzML.gz", padded)) is None

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import gzip
 import shutil
 from datetime import UTC, datetime
 from pathlib import Path
@@ -248,3 +249,34 @@ def test_measure_file_truncated_is_error(tmp_path: Path) -> None:
     with pytest.raises(ReadError) as caught:
         measure_file(path, DEMO)
     assert caught.value.kind == "truncated"
+
+
+@pytest.mark.parametrize(
+    ("damage", "reason"),
+    [
+        ("crc", "gzip stream is corrupt"),
+        ("cut-after-spectra", "gzip stream ends early"),
+        ("checksum", "indexedmzML SHA-1 mismatch inside gzip"),
+    ],
+)
+def test_measure_file_refuses_gz_damaged_after_the_spectra(
+    tmp_path: Path, damage: str, reason: str
+) -> None:
+    """A .gz read in one pass gives no metrics when its stream fails after the last spectrum."""
+    plain = tmp_path / "QC_0002.mzML"
+    write_mzml(plain, _synth_spec(profile=False), indexed=True)
+    data = plain.read_bytes()
+    if damage == "checksum":  # a wrong hex digit in <fileChecksum> (mzML 1.1: SHA-1 of the file)
+        at = data.rindex(b"</fileChecksum>") - 1
+        data = data[:at] + (b"0" if data[at : at + 1] != b"0" else b"1") + data[at + 1 :]
+    packed = gzip.compress(data, mtime=0)
+    if damage == "crc":  # RFC 1952: CRC-32 is the first 4 bytes of the 8-byte trailer
+        packed = packed[:-8] + bytes([packed[-8] ^ 0xFF]) + packed[-7:]
+    elif damage == "cut-after-spectra":  # the index at the end of the file is cut away
+        packed = packed[:-64]
+    path = tmp_path / "QC_0002.mzML.gz"
+    path.write_bytes(packed)
+    with pytest.raises(ReadError) as info:
+        measure_file(path, DEMO)
+    assert reason in info.value.reason
+    assert info.value.kind == "truncated"

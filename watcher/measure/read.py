@@ -4,7 +4,9 @@
 parser sees it, picks the fastest safe path (index-guided for indexedmzML whose index checks
 out, sequential otherwise) and turns every parser, codec and I/O error into one ReadError line
 that names the file and no other path. It does not check completeness: the caller does that
-first (``watcher.formats.check_complete``), because readers yield intact spectra of a cut file.
+first (``watcher.formats.check_complete``), because readers yield intact spectra of a cut file --
+except, on request, for the gzip stream of a .mzML.gz, which is proven whole in the same
+decompressing pass as the parse (``watcher.formats.GunzipCheck``) instead of in a second one.
 """
 
 from __future__ import annotations
@@ -24,7 +26,7 @@ from typing import IO, Any
 from lxml import etree  # type: ignore[import-untyped, unused-ignore]
 
 from watcher.errors import ReadError
-from watcher.formats import sniff
+from watcher.formats import GunzipCheck, sniff
 from watcher.measure import mgf, mzml, mzmlindex, mzxml, safexml
 from watcher.measure.cv import disable_remote
 from watcher.measure.scan import RunHeader, Scan
@@ -37,7 +39,11 @@ _PATH_RE = re.compile(r"(?:[A-Za-z]:)?(?:[\\/][^\s'\"\\/:]+)+[\\/]([^\s'\"\\/:]+
 
 @contextmanager
 def open_run(
-    path: Path, *, ms1_arrays: bool = True, progress: Progress | None = None
+    path: Path,
+    *,
+    ms1_arrays: bool = True,
+    progress: Progress | None = None,
+    check_gzip: bool = False,
 ) -> Iterator[tuple[RunHeader, Iterator[Scan]]]:
     """Open ``path`` and yield ``(header, scans)``; scans come one at a time in file order.
 
@@ -46,6 +52,10 @@ def open_run(
         ms1_arrays: decode m/z and intensity arrays (float64, m/z ascending) of MS1 scans.
             MS2 arrays are never decoded.
         progress: called as ``progress(done, total)`` in bytes, at most ~20 times a second.
+        check_gzip: for mzML.gz, check the whole gzip stream (CRC-32, end of stream, closing
+            tag, index offset and SHA-1 inside) while parsing; after the last scan, ``scans``
+            raises ``ReadError(kind="truncated")`` if it is not whole. Pair it with
+            ``check_complete(path, whole_gzip=False)`` before the call.
 
     Raises:
         ReadError: from opening and from iterating ``scans``; the message names the file's
@@ -55,7 +65,9 @@ def open_run(
     throttle = _Throttle(progress, _size(path))
     with ExitStack() as stack:
         try:
-            header, scans = _open(path, stack, ms1_arrays=ms1_arrays, throttle=throttle)
+            header, scans = _open(
+                path, stack, ms1_arrays=ms1_arrays, throttle=throttle, check_gzip=check_gzip
+            )
         except ReadError:
             raise
         except Exception as exc:
@@ -64,7 +76,7 @@ def open_run(
 
 
 def _open(
-    path: Path, stack: ExitStack, *, ms1_arrays: bool, throttle: _Throttle
+    path: Path, stack: ExitStack, *, ms1_arrays: bool, throttle: _Throttle, check_gzip: bool
 ) -> tuple[RunHeader, Iterator[Scan]]:
     found = sniff(path)
     if found.format == "MGF":
@@ -80,6 +92,17 @@ def _open(
         with gzip.open(path, "rb") as probe:
             safexml.assert_no_doctype(probe, name=path.name)
         raw = stack.enter_context(path.open("rb"))
+        if check_gzip:
+            check = GunzipCheck(_Counted(raw, throttle), found.root)  # type: ignore[arg-type]
+            events = safexml.safe_iterparse(check, events=("start", "end"), tag=mzml.stream_tags())
+            pre = mzml.read_preamble(events)
+            header = RunHeader(
+                format=found.format,
+                acquired_at_iso=pre.start_time_stamp,
+                n_spectra_declared=pre.spectrum_count,
+            )
+            scans = mzml.stream_scans(events, pre, want_arrays=ms1_arrays)
+            return header, _then_whole(path, scans, check)
         gz = gzip.GzipFile(fileobj=_Counted(raw, throttle))
         stack.callback(gz.close)
         source: IO[bytes] = gz  # type: ignore[assignment]
@@ -123,6 +146,15 @@ def _with_fallback(
         events = safexml.safe_iterparse(source, events=("start", "end"), tag=mzml.stream_tags())
         pre = mzml.read_preamble(events)
         yield from mzml.stream_scans(events, pre, want_arrays=ms1_arrays, skip=doubt.position)
+
+
+def _then_whole(path: Path, scans: Iterator[Scan], check: GunzipCheck) -> Iterator[Scan]:
+    """The scans, then the rest of the gzip stream checked: a cut stream ends in a ReadError."""
+    yield from scans
+    check.drain()
+    reason = check.problem()
+    if reason is not None:
+        raise ReadError(path, reason, kind="truncated")
 
 
 def _guarded(path: Path, scans: Iterator[Scan], throttle: _Throttle) -> Iterator[Scan]:

@@ -114,13 +114,34 @@ def measure_file(
     from watcher import formats
     from watcher.measure import read
 
-    formats.check_complete(path)
+    # A .gz stream is proven whole in the reading pass itself (one gunzip, not two); no metrics
+    # leave here before that proof is in.
+    formats.check_complete(path, whole_gzip=False)
     needs_arrays = bool(config.calibrants or config.expected_ions)
-    with read.open_run(path, ms1_arrays=needs_arrays, progress=progress) as (header, scans):
-        metrics = measure_scans(header, scans, config, file_name=path.name)
+    try:
+        with read.open_run(path, ms1_arrays=needs_arrays, progress=progress, check_gzip=True) as (
+            header,
+            scans,
+        ):
+            metrics = measure_scans(header, scans, config, file_name=path.name)
+    except ReadError:
+        # A cut or damaged .gz can fail anywhere in that pass: report it as the full
+        # completeness check would have before reading (same reason, kind "truncated").
+        if _is_gzip(path):
+            formats.check_complete(path)
+        raise
     if metrics.signal.ms1_count + metrics.signal.ms2_count == 0:
         raise ReadError(path, "no spectra in file", kind="empty")
     return metrics
+
+
+def _is_gzip(path: Path) -> bool:
+    from watcher import formats
+
+    try:
+        return formats.sniff_format(path) == "mzML.gz"
+    except ReadError:
+        return False
 
 
 def _resolve_all(config: Config, key: str) -> list[ResolvedIon]:
