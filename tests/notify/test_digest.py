@@ -154,7 +154,7 @@ def test_build_digest_counts_and_findings(state: Path) -> None:
     assert d.run_count == 8
     assert d.by_status == {"ok": 7, "warning": 1}
     assert [(f.file, f.check, f.value) for f in d.findings] == [
-        ("QC_007.mzML", "calibration drift", "3.8")
+        ("QC_007.mzML", "calibration drift", "3.8 ppm")
     ]
     (cal,) = d.calibrants
     assert cal.mean_ppm == pytest.approx(10.1 / 8)
@@ -268,3 +268,33 @@ def test_digest_html_opens_in_headless_chromium(state: Path, tmp_path: Path) -> 
         == 5
     )
     assert shot.read_bytes().startswith(b"\x89PNG")
+
+
+@pytest.mark.parametrize(
+    ("text", "metric", "shown"),
+    [
+        ("6", "calibrant.siloxane-445.median_ppm", "6 ppm"),
+        ("outside [-5, 5]", "calibrant.siloxane-445.median_ppm", "outside [-5, 5] ppm"),
+        ("0.8", "calibrant.siloxane-445.slope_ppm_per_h", "0.8 ppm/h"),
+        ("92", "signal.longest_dropout_s", "92 s"),
+        ("0.5", "expected_ions.found_fraction", "0.5"),
+        ("missing", "calibrant.siloxane-445.median_ppm", "missing"),
+        ("12 ppm", "calibrant.x.median_ppm", "12 ppm"),
+        ("3e+05", "signal.tic_median", "3e+05"),
+    ],
+)
+def test_finding_values_carry_the_metric_unit(text: str, metric: str, shown: str) -> None:
+    """The digest's value and limit cells name the unit of the metric path (house unit suffixes)."""
+    # Units from the metric-path suffixes documented in README "Metric paths for checks".
+    assert digest_mod.with_unit(text, metric) == shown
+
+
+@pytest.mark.parametrize(
+    ("values", "is_log"),
+    [([7e5, 8e5, 1.05e6], False), ([1e4, 2e5, 1e6], True), ([0.0, 1e6], False), ([], False)],
+)
+def test_log_axis_only_over_a_decade(values: list[float], is_log: bool) -> None:
+    """Intensity charts use a log axis only when the values span a factor of ten or more."""
+    from watcher.notify.plots import wants_log_axis
+
+    assert wants_log_axis(values) is is_log

@@ -93,7 +93,7 @@ def test_raise_no_repeat_escalate_remind_clear_sequence(
     assert titles == [
         "Kestrel-2 Q-TOF: WARNING QC_002.mzML",
         "Kestrel-2 Q-TOF: CRITICAL QC_004.mzML",
-        "Kestrel-2 Q-TOF: STILL OPEN alerts",
+        "Kestrel-2 Q-TOF: STILL OPEN",
         "Kestrel-2 Q-TOF: OK QC_006.mzML",
     ]
     first_line = bodies[0]["message"].splitlines()[1]
@@ -226,8 +226,8 @@ def test_heartbeat_missed_and_resumed(harness: Harness, receiver: Receiver) -> N
         n.record_event(harness.conn, "heartbeat.resumed", harness.clock())
     bodies = receiver.wait_for(2)
     assert [b["title"] for b in bodies] == [
-        "Kestrel-2 Q-TOF: NO RUNS alerts",
-        "Kestrel-2 Q-TOF: RUNS AGAIN alerts",
+        "Kestrel-2 Q-TOF: NO RUNS",
+        "Kestrel-2 Q-TOF: RUNS AGAIN",
     ]
 
 

@@ -109,6 +109,33 @@ def _value(run: Any, metric: str) -> float | None:
     return float(value)
 
 
+_UNIT_SUFFIXES = (
+    ("_ppm_per_h", "ppm/h"),
+    ("_ppm_per_mz", "ppm per m/z"),
+    ("_ppm", "ppm"),
+    ("_s", "s"),
+    ("_fraction", ""),
+    ("_count", ""),
+)
+
+
+def unit_of(metric: object) -> str:
+    """The unit a metric path names in its last part (``median_ppm`` -> ``ppm``); "" if none."""
+    last = str(metric or "").rsplit(".", 1)[-1]
+    for suffix, unit in _UNIT_SUFFIXES:
+        if last.endswith(suffix):
+            return unit
+    return ""
+
+
+def with_unit(text: str, metric: object) -> str:
+    """``6`` -> ``6 ppm`` for a ppm metric; text without a number, or unitless, as it came."""
+    unit = unit_of(metric)
+    if not unit or not text or not any(c.isdigit() for c in text) or text.endswith(unit):
+        return text
+    return f"{text} {unit}"
+
+
 def day_bounds(day: date, timezone: str) -> tuple[datetime, datetime]:
     """Start and end (exclusive) of a local day, as aware UTC datetimes (DST days are 23/25 h)."""
     tz = ZoneInfo(timezone)
@@ -199,8 +226,8 @@ def build_digest(conn: Any, config: Config, day: date, *, history: Any = None) -
                     file=file_name,
                     check=str(_get(f, "check")),
                     severity=str(_get(f, "severity")),
-                    value=format_value(_get(f, "value")),
-                    limit=str(_get(f, "limit") or ""),
+                    value=with_unit(format_value(_get(f, "value")), _get(f, "metric")),
+                    limit=with_unit(str(_get(f, "limit") or ""), _get(f, "metric")),
                     rule=str(_get(f, "rule") or ""),
                     message=str(_get(f, "message") or ""),
                 )
@@ -372,7 +399,7 @@ h1{font-size:1.4em}h2{font-size:1.1em;margin-top:1.6em}
 table{border-collapse:collapse;font-size:.9em}td,th{border:1px solid #ccc;padding:.25em .5em}
 th{background:#f3f3f3;text-align:left}.critical{color:#c62828}.warning{color:#a66f00}
 .unreadable{color:#6a1b9a}figure{margin:1em 0}figcaption{font-size:.85em;color:#555}
-img{max-width:100%;height:auto;border:1px solid #eee}
+img{max-width:100%;height:auto;border:1px solid #eee}td.num{white-space:nowrap}
 """
 
 
@@ -405,7 +432,8 @@ def render_html(d: Digest) -> str:
             parts.append(
                 f'<tr class="finding"><td>{e(f.time)}</td><td>{e(f.file)}</td>'
                 f'<td class="{e(f.severity)}">{e(f.severity)}</td><td>{e(f.check)}</td>'
-                f"<td>{e(f.value)}</td><td>{e(f.limit)}</td><td>{e(f.rule)}</td>"
+                f'<td class="num">{e(f.value)}</td><td class="num">{e(f.limit)}</td>'
+                f"<td>{e(f.rule)}</td>"
                 f"<td>{e(f.message)}</td></tr>"
             )
         parts.append("</table>")

@@ -100,8 +100,13 @@ def compose(
         notify_type = _NOTIFY_TYPE[worst]
     else:
         notify_type = "success"
-    about = run_file or "alerts"
-    title = f"{instrument}: {status.upper()} {about}"
-    head = f"{about} | {at_what} {local_time(at, timezone)} | status {status}"
+    if run_file is None:
+        # Not about one run (heartbeat, reminders): a filler word in place of a file name made
+        # titles read "NO RUNS alerts"; the state and the time say it all.
+        title = f"{instrument}: {status.upper()}"
+        head = f"{status} | {local_time(at, timezone)}"
+    else:
+        title = f"{instrument}: {status.upper()} {run_file}"
+        head = f"{run_file} | {at_what} {local_time(at, timezone)} | status {status}"
     body = "\n".join([head, *(item_line(i, run_file) for i in items)])
     return Text(title=title, body=body, notify_type=notify_type)

@@ -15,6 +15,7 @@ from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.dates import AutoDateLocator, ConciseDateFormatter, date2num
 from matplotlib.figure import Figure
+from matplotlib.ticker import EngFormatter
 
 Point = tuple[datetime, float]
 
@@ -98,6 +99,12 @@ def levey_jennings(
     return _png(fig)
 
 
+def wants_log_axis(values: Sequence[float]) -> bool:
+    """A log y axis pays off only when the positive values span at least one decade."""
+    positive = [v for v in values if v > 0]
+    return len(positive) == len(values) and bool(positive) and max(positive) >= 10 * min(positive)
+
+
 def series(
     lines: Mapping[str, Sequence[Point]],
     *,
@@ -115,8 +122,12 @@ def series(
         ax.plot(
             _x([p[0] for p in points]), [p[1] for p in points], marker="o", markersize=3, label=name
         )
-    if log_y and any_points:
+    values = [p[1] for points in lines.values() for p in points]
+    if log_y and wants_log_axis(values):
         ax.set_yscale("log")
+    elif log_y:
+        # Counts within one decade: a log axis only labels "9 x 10^5"-style minor ticks there.
+        ax.yaxis.set_major_formatter(EngFormatter(sep=" "))
     if any_points:
         _dates(ax)
         if len(lines) > 1:
