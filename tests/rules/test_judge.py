@@ -97,7 +97,7 @@ class ListHistory:
 
     def series(self, metric: str, *, before: datetime, limit: int) -> Sequence[HistoryPoint]:
         earlier = [p for p in self.points.get(metric, []) if p.acquired_at < before]
-        return earlier[len(earlier) - limit :] if limit > 0 else []
+        return earlier[max(0, len(earlier) - limit) :] if limit > 0 else []
 
 
 def history_of(
