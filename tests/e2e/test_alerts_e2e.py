@@ -10,6 +10,7 @@ the SQLite file, lines in the health log or bodies at the receiver, with deadlin
 from __future__ import annotations
 
 import json
+import re
 import shutil
 import sqlite3
 import subprocess
@@ -307,6 +308,9 @@ def test_digest_of_a_night_renders_in_chromium(lab: Lab, rx: Receiver, tmp_path:
     assert "siloxane-445" in html
     assert html.count('<tr class="finding">') == 1  # only QC_03 (+6 ppm) broke the limit
     assert "QC_03.mzML" in html
+    assert "6 ppm" in html  # the finding's value with its unit
+    # One Levey-Jennings chart per calibrant, the TIC and the status timeline; no ions configured.
+    assert len(re.findall(r'<img [^>]*src="data:image/png;base64,', html)) == 3
     if CHROMIUM is None:
         pytest.skip("chromium is not installed (CI installs it)")
     shot = tmp_path / "digest.png"
