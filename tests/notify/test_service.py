@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import time
+from collections.abc import Callable
 from pathlib import Path
 
 import pytest
@@ -61,6 +63,16 @@ class Harness:
         self.conn.close()
 
 
+def _until(predicate: Callable[[], bool], timeout_s: float = 10.0) -> bool:
+    """Poll ``predicate`` until it holds or the deadline passes."""
+    deadline = time.monotonic() + timeout_s
+    while time.monotonic() < deadline:
+        if predicate():
+            return True
+        time.sleep(0.02)
+    return predicate()
+
+
 @pytest.fixture
 def harness(tmp_path: Path, receiver: Receiver, clock: Clock):  # type: ignore[no-untyped-def]
     h = Harness(lab_config(receiver.url(), remind_every_s=4 * 3600.0), tmp_path / "state", clock)
@@ -106,7 +118,8 @@ def test_raise_no_repeat_escalate_remind_clear_sequence(
     assert bodies[3]["message"].splitlines()[1].startswith("OK AGAIN: calibration drift")
     # apprise json:// types: failure for critical, success for a recovery (apprise NotifyType).
     assert [b["type"] for b in bodies] == ["warning", "failure", "warning", "success"]
-    assert h.notifier.pending_count() == 0
+    # The worker marks a message delivered just after the receiver answered: wait for that too.
+    assert _until(lambda: h.notifier.pending_count() == 0)
     receiver.wait_for(4)
     assert len(receiver.bodies) == 4
 
