@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import base64
+import dataclasses
 import io
 import re
 import shutil
@@ -298,3 +299,26 @@ def test_log_axis_only_over_a_decade(values: list[float], is_log: bool) -> None:
     from watcher.notify.plots import wants_log_axis
 
     assert wants_log_axis(values) is is_log
+
+
+def test_levey_jennings_lines_come_from_the_check_with_the_lab_set_target(state: Path) -> None:
+    """A limits-only check listed first does not hide the Westgard check's lab-set mean and SD."""
+    # Levey-Jennings charts draw the mean and +-2/3 SD the Westgard rules judge against
+    # (Westgard, Barry, Hunt, Groth, Clin. Chem. 27 (1981) 493-501).
+    limits_only = Check(
+        name="calibration drift",
+        metric="calibrant.*.median_ppm",
+        warning=Condition(outside=(-3.0, 3.0)),
+    )
+    rules = Check(
+        name="siloxane QC rules",
+        metric="calibrant.siloxane-445.median_ppm",
+        westgard=("1-3s",),
+        baseline=BaselineSpec(mean=0.5, sd=0.8),
+    )
+    config = dataclasses.replace(CONFIG, checks=(limits_only, rules))
+    conn = db.connect(state, readonly=True)
+    d = digest_mod.build_digest(conn, config, DAY)
+    conn.close()
+    (cal,) = d.calibrants
+    assert cal.baseline == "fixed by check 'siloxane QC rules'"

@@ -145,10 +145,19 @@ def day_bounds(day: date, timezone: str) -> tuple[datetime, datetime]:
 
 
 def _check_for(config: Config, metric: str) -> Check | None:
-    for check in config.checks:
-        if fnmatch.fnmatchcase(metric, check.metric):
+    """The check whose baseline a chart of ``metric`` should show.
+
+    A lab-set mean and SD (the Westgard rules' target) win over a check that only sets limits,
+    so the chart's lines are the ones the rules judged against.
+    """
+    matching = [c for c in config.checks if fnmatch.fnmatchcase(metric, c.metric)]
+    for check in matching:
+        if check.baseline.mean is not None and check.baseline.sd is not None:
             return check
-    return None
+    for check in matching:
+        if check.against == "baseline" or check.westgard:
+            return check
+    return matching[0] if matching else None
 
 
 def _applies(check: Check | None, run: Any) -> bool:
