@@ -233,11 +233,49 @@ def _read_precursor(precursor_list: Any, scan: Scan, groups: Groups, where: str)
 def decode_arrays(
     array_list: Any, scan: Scan, groups: Groups, where: str, default_length: int
 ) -> None:
-    arrays: dict[str, np.ndarray] = {}
+    """Decode the m/z and intensity arrays of a ``<binaryDataArrayList>`` element into ``scan``."""
+    _decode_parts(_element_parts(array_list, groups, default_length), scan, where, default_length)
+
+
+ArrayPart = tuple[tuple[str, ...], int | None, bytes]  # accessions, arrayLength, base64 text
+
+
+def decode_plain_arrays(
+    parts: Iterable[ArrayPart], scan: Scan, where: str, default_length: int
+) -> None:
+    """Like ``decode_arrays``, from arrays already cut out of the bytes (cvParam accessions only).
+
+    The caller guarantees the arrays carry nothing but cvParams (no param group references).
+    """
+    items = (
+        (_Params({acc: (acc, "", None, None) for acc in accessions}),  # first one wins
+        text,
+        default_length if length is None else length)
+        for accessions, length, text in parts
+    )  # fmt: skip
+    _decode_parts(items, scan, where, default_length)
+
+
+def _element_parts(
+    array_list: Any, groups: Groups, default_length: int
+) -> Iterator[tuple[_Params, str | bytes | None, int]]:
     for bda in array_list:
         if local_name(bda.tag) != "binaryDataArray":
             continue
-        params = _params_of(bda, groups)
+        binary = next((c for c in bda if local_name(c.tag) == "binary"), None)
+        length_text = bda.get("arrayLength")
+        expected = int(length_text) if length_text and length_text.isdigit() else default_length
+        yield _params_of(bda, groups), None if binary is None else binary.text, expected
+
+
+def _decode_parts(
+    parts: Iterable[tuple[_Params, str | bytes | None, int]],
+    scan: Scan,
+    where: str,
+    default_length: int,
+) -> None:
+    arrays: dict[str, np.ndarray] = {}
+    for params, text, expected in parts:
         kind = (
             MZ_ARRAY
             if params.has(MZ_ARRAY)
@@ -251,15 +289,9 @@ def decode_arrays(
         dtype = next((DTYPES[acc] for acc in params.values if acc in DTYPES), None)
         if dtype is None:
             raise SpectrumError(f"{where}: {_kind_name(kind)} has no known binary data type")
-        binary = next((c for c in bda if local_name(c.tag) == "binary"), None)
-        length_text = bda.get("arrayLength")
-        expected = int(length_text) if length_text and length_text.isdigit() else default_length
         try:
             arrays[kind] = decode_array(
-                None if binary is None else binary.text,
-                compression=compression,
-                dtype=dtype,
-                expected_length=expected,
+                text, compression=compression, dtype=dtype, expected_length=expected
             )
         except ArrayDecodeError as exc:
             raise SpectrumError(f"{where}: {_kind_name(kind)}: {exc}") from None

@@ -9,9 +9,9 @@ PERFORMANCE.md's method h; never pyteomics' byte indexer (RELIABILITY.md, item 1
 
 from __future__ import annotations
 
-import itertools
 import os
 import re
+from array import array
 from collections.abc import Iterator
 from dataclasses import dataclass
 from typing import Any
@@ -27,6 +27,7 @@ _INDEX_BLOCK_RE = re.compile(rb'<index\s+name="([^"]*)"\s*>(.*?)</index>', re.S)
 _OFFSET_ENTRY_RE = re.compile(rb"<offset\s([^>]*)>\s*(\d+)\s*</offset>")
 _ID_REF_RE = re.compile(rb'\bidRef="([^"]*)"')
 _HEAD_BYTES = 512  # the spectrum start tag and its first cvParams (ms level) fit in this
+_HEADER_BYTES = 4096  # a typical spectrum header, up to <binaryDataArrayList>
 _MAX_INDEX_BYTES = 256 * 1024 * 1024
 
 
@@ -34,8 +35,9 @@ _MAX_INDEX_BYTES = 256 * 1024 * 1024
 class OffsetIndex:
     """Byte ranges of the spectra, from the file's own index, checked to land on ``<spectrum``."""
 
-    starts: tuple[int, ...]
-    ends: tuple[int, ...]  # exclusive bound for each spectrum's bytes (next element's offset)
+    # 64-bit integer arrays, not tuples of ints: 8 bytes per spectrum instead of ~40.
+    starts: array[int]
+    ends: array[int]  # exclusive bound for each spectrum's bytes (next element's offset)
 
 
 def load_offset_index(fd: int, size: int) -> OffsetIndex | None:
@@ -56,52 +58,57 @@ def load_offset_index(fd: int, size: int) -> OffsetIndex | None:
     end = block.find(b"</indexList>")
     if end < 0:
         return None
-    index_list = block[:end]
-    # Read with regular expressions, not a tree: 40 000 offsets as lxml elements cost ~15 MB.
-    blocks = _INDEX_BLOCK_RE.findall(index_list)
-    if len(blocks) != index_list.count(b"<index "):
-        return None
-    spectra: list[tuple[int, bytes]] = []
-    others: list[int] = [index_at]
-    for name, body in blocks:
-        entries = _OFFSET_ENTRY_RE.findall(body)
-        if len(entries) != body.count(b"<offset"):
+    # Regular expressions walked one match at a time, never a tree or a list of every entry:
+    # 40 000 offsets as lxml elements cost ~15 MB, as lists of tuples ~10 MB.
+    starts: array[int] = array("q")
+    others: array[int] = array("q", [index_at])
+    blocks = 0
+    for found_block in _INDEX_BLOCK_RE.finditer(block, 0, end):
+        blocks += 1
+        name, body_at, body_end = found_block.group(1), found_block.start(2), found_block.end(2)
+        entries = 0
+        for entry in _OFFSET_ENTRY_RE.finditer(block, body_at, body_end):
+            entries += 1
+            value = int(entry.group(2))
+            if name != b"spectrum":
+                others.append(value)
+                continue
+            position = len(starts)
+            if (starts and value <= starts[-1]) or value >= index_at:
+                return None
+            ref_match = _ID_REF_RE.search(entry.group(1))
+            if not _lands_on_spectrum(
+                fd, value, position, ref_match.group(1) if ref_match else b""
+            ):
+                return None
+            starts.append(value)
+        if entries != block.count(b"<offset", body_at, body_end):
             return None  # an entry we cannot read: doubt
-        for attributes, value in entries:
-            if name == b"spectrum":
-                ref_match = _ID_REF_RE.search(attributes)
-                spectra.append((int(value), ref_match.group(1) if ref_match else b""))
-            else:
-                others.append(int(value))
-    starts = [value for value, _ref in spectra]
+    if blocks != block.count(b"<index ", 0, end):
+        return None
+    del block
     if not starts:
         return None  # an empty spectrum index proves nothing: stream and see
-    if any(b <= a for a, b in itertools.pairwise(starts)):
-        return None
-    if starts and starts[-1] >= index_at:
-        return None
-    for position, (value, id_ref) in enumerate(spectra):
-        head = os.pread(fd, _HEAD_BYTES, value)
-        if not head.startswith(b"<spectrum") or head[9:10] not in (b" ", b"\t", b"\n", b"\r"):
-            return None
-        start_tag = head[: head.find(b">") + 1] if b">" in head else head
-        found = _ID_RE.search(start_tag)
-        if found is None or _unescape(found.group(1)) != _unescape(id_ref):
-            return None
-        # index="i" must count 0, 1, 2 ...: a spectrum left out of the index would break it.
-        number = _INDEX_ATTR_RE.search(start_tag)
-        if number is None or int(number.group(1)) != position:
-            return None
     bounds = sorted(set(others))
-    ends = []
-    for i, start in enumerate(starts):
-        if i + 1 < len(starts):
-            ends.append(starts[i + 1])
-        else:
-            ends.append(next((b for b in bounds if b > start), index_at))
-    if starts and not _ends_spectrum_list(os.pread(fd, ends[-1] - starts[-1], starts[-1])):
+    ends: array[int] = array("q", starts[1:])
+    ends.append(next((b for b in bounds if b > starts[-1]), index_at))
+    if not _ends_spectrum_list(os.pread(fd, ends[-1] - starts[-1], starts[-1])):
         return None  # spectra after the last indexed one: the index is not the whole story
-    return OffsetIndex(tuple(starts), tuple(ends))
+    return OffsetIndex(starts, ends)
+
+
+def _lands_on_spectrum(fd: int, offset: int, position: int, id_ref: bytes) -> bool:
+    """The bytes at ``offset`` open ``<spectrum`` with this id and ``index="position"``."""
+    head = os.pread(fd, _HEAD_BYTES, offset)
+    if not head.startswith(b"<spectrum") or head[9:10] not in (b" ", b"\t", b"\n", b"\r"):
+        return False
+    start_tag = head[: head.find(b">") + 1] if b">" in head else head
+    found = _ID_RE.search(start_tag)
+    if found is None or _unescape(found.group(1)) != _unescape(id_ref):
+        return False
+    # index="i" must count 0, 1, 2 ...: a spectrum left out of the index would break it.
+    number = _INDEX_ATTR_RE.search(start_tag)
+    return number is not None and int(number.group(1)) == position
 
 
 def _ends_spectrum_list(last: bytes) -> bool:
@@ -140,12 +147,15 @@ def indexed_scans(
     for i, (start, end) in enumerate(zip(index.starts, index.ends, strict=True)):
         if on_offset is not None:
             on_offset(start)
-        level = peek_ms_level(os.pread(fd, _HEAD_BYTES, start))
+        # One read serves the ms level and, for most spectra, the whole header.
+        head = os.pread(fd, min(_HEADER_BYTES, end - start), start)
+        match = _MS_LEVEL_RE.search(head, 0, _HEAD_BYTES)
+        level = int(match.group(1)) if match else None
         if level == 1 and want_arrays:
             data = _whole_element(os.pread(fd, end - start, start), i)
             yield _ms1_with_arrays(data, i, pre, parse)
             continue
-        header = _header_fragment(fd, start, end, i)
+        header = _header_fragment(fd, start, end, i, head)
         scan = fast_header(header, i)
         needs_arrays = False
         if scan is None:
@@ -169,22 +179,73 @@ def _ms1_with_arrays(data: bytes, i: int, pre: mzml.Preamble, parse: Any) -> Sca
     close = data.rfind(b"</binaryDataArrayList>")
     if close < cut:
         raise mzml.SpectrumError(f"spectrum {i}: <binaryDataArrayList> is not closed")
-    arrays = parse(data[cut : close + len(b"</binaryDataArrayList>")])
     length_match = _LENGTH_RE.search(data, 0, data.find(b">") + 1)
     length = int(length_match.group(1)) if length_match else 0
     where = f"spectrum {i} ({_spectrum_id(data)})"
+    parts = plain_arrays(data, cut, close)
+    if parts is not None:
+        try:
+            mzml.decode_plain_arrays(parts, scan, where, length)
+            return scan
+        except mzml.SpectrumError:
+            pass  # the XML path below decides, and words the error
+    arrays = parse(data[cut : close + len(b"</binaryDataArrayList>")])
     mzml.decode_arrays(arrays, scan, pre.groups, where, length)
     return scan
+
+
+_ARRAY_START_RE = re.compile(rb"<binaryDataArray(?:\s[^<>]*)?>")
+_ARRAY_LENGTH_RE = re.compile(rb'\sarrayLength="(\d+)"')
+_ARRAY_PARAMS_RE = re.compile(rb"(?:\s*<cvParam\s[^<>&]*/>)*\s*")
+_PARAM_ACCESSION_RE = re.compile(rb'<cvParam\s[^<>]*?\baccession="([^"]*)"')
+_ARRAY_END = b"</binaryDataArray>"
+
+
+def plain_arrays(data: bytes, cut: int, close: int) -> list[mzml.ArrayPart] | None:
+    """The arrays of ``data[cut:close]`` (a ``<binaryDataArrayList>`` body) cut from the bytes.
+
+    Only the plain layout: each ``<binaryDataArray>`` holds cvParams (no param groups, no
+    entities) then ``<binary>``, and nothing else sits between them. None otherwise: the XML
+    parse handles every form. Saves building a tree and copying each array's text three times.
+    """
+    pos = data.find(b">", cut, close) + 1
+    if pos <= 0:
+        return None
+    parts: list[mzml.ArrayPart] = []
+    while True:
+        at = data.find(b"<", pos, close + 1)
+        if at < 0 or data[pos:at].strip():
+            return None
+        if at == close:
+            return parts
+        start = _ARRAY_START_RE.match(data, at)
+        if start is None:
+            return None
+        opened = data.find(b"<binary>", start.end(), close)
+        if opened < 0 or _ARRAY_PARAMS_RE.fullmatch(data, start.end(), opened) is None:
+            return None
+        shut = data.find(b"</binary>", opened, close)
+        end = data.find(_ARRAY_END, shut, close) if shut >= 0 else -1
+        if end < 0 or data[shut + len(b"</binary>") : end].strip():
+            return None
+        accessions = tuple(
+            a.decode("ascii", "replace")
+            for a in _PARAM_ACCESSION_RE.findall(data, start.end(), opened)
+        )
+        length = _ARRAY_LENGTH_RE.search(start.group(0))
+        text = data[opened + len(b"<binary>") : shut]
+        parts.append((accessions, int(length.group(1)) if length else None, text))
+        pos = end + len(_ARRAY_END)
 
 
 # Header cvParams as mzML writers lay them out (accession, name, value[, unitCvRef,
 # unitAccession]). Anything else -- another order, param groups, escapes in a number -- is
 # left to the XML parse, which handles every form; this only saves parsing 9 of 10 spectra.
 _WANTED = rb"MS:1000(?:511|579|127|128|130|129|285|504|505|016|927|744|041|827)"
-_WANTED_RE = re.compile(rb'accession="' + _WANTED + rb'"')
+# One pass: a wanted accession not followed by name/value (group 2 empty) is not canonical.
 _FAST_RE = re.compile(
-    rb'accession="(' + _WANTED + rb')" name="[^"<>]*" value="([^"<>]*)"'
-    rb'(?: unitCvRef="[^"<>]*" unitAccession="([^"<>]*)")?'
+    rb'accession="(' + _WANTED + rb')"(?:( name="[^"<>]*" value=")([^"<>]*)"'
+    rb'(?: unitCvRef="[^"<>]*" unitAccession="([^"<>]*)")?)?'
 )
 _LENGTH_RE = re.compile(rb'\sdefaultArrayLength="(\d+)"')
 _UNIT_NEEDED = frozenset({mzml.SCAN_START_TIME, mzml.INJECTION_TIME})
@@ -197,11 +258,10 @@ def fast_header(header: bytes, index: int) -> Scan | None:
     """
     if b"referenceableParamGroupRef" in header or b"&" in header:
         return None
-    found = _FAST_RE.findall(header)
-    if len(found) != len(_WANTED_RE.findall(header)):
-        return None
     values: dict[str, tuple[bytes, bytes]] = {}
-    for accession, value, unit in found:
+    for accession, lead, value, unit in _FAST_RE.findall(header):
+        if not lead:
+            return None
         values.setdefault(accession.decode(), (value, unit))
     if any(acc in values and not values[acc][1] for acc in _UNIT_NEEDED):
         return None  # a time without unitAccession: let the XML path read unitName
@@ -267,14 +327,18 @@ def _whole_element(data: bytes, i: int) -> bytes:
     return data[: cut + len(b"</spectrum>")]
 
 
-def _header_fragment(fd: int, start: int, end: int, i: int) -> bytes:
-    """The spectrum's bytes before ``<binaryDataArrayList``, closed, as a parsable fragment."""
-    want = 4096
+def _header_fragment(fd: int, start: int, end: int, i: int, head: bytes) -> bytes:
+    """The spectrum's bytes before ``<binaryDataArrayList``, closed, as a parsable fragment.
+
+    ``head`` is what was already read at ``start``; more is read only when it ends too soon.
+    """
+    data = head
+    want = _HEADER_BYTES
     while True:
-        data = os.pread(fd, min(want, end - start), start)
         cut = data.find(b"<binaryDataArrayList")
         if cut >= 0:
             return data[:cut] + b"</spectrum>"
         if len(data) >= end - start:
             return _whole_element(data, i)
         want *= 4
+        data = os.pread(fd, min(want, end - start), start)
