@@ -1,0 +1,123 @@
+"""Index-guided mzML reading: arrays cut from the bytes agree with the XML parse, errors alike."""
+
+from __future__ import annotations
+
+import os
+import re
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from synth import CalibrantTruth, RunSpec, write_mzml
+from tests.measure import badfiles as bf
+from watcher.errors import ReadError
+from watcher.measure import mzmlindex
+from watcher.measure.read import open_run
+from watcher.measure.scan import Scan
+
+_SPEC = RunSpec(
+    duration_s=60.0,
+    ms1_interval_s=2.0,
+    ms2_per_cycle=2,
+    ms2_peaks=20,
+    profile=False,
+    background_peaks=60,
+    calibrants=[CalibrantTruth(name="siloxane-445", mz=445.120025, offset_ppm=1.8)],
+    seed=11,
+)
+
+
+def _scans(path: Path) -> list[Scan]:
+    with open_run(path) as (_header, scans):
+        return list(scans)
+
+
+def _pair(tmp_path: Path) -> tuple[Path, Path]:
+    indexed, plain = tmp_path / "QC_idx.mzML", tmp_path / "QC_plain.mzML"
+    write_mzml(indexed, _SPEC, indexed=True)
+    write_mzml(plain, _SPEC, indexed=False)
+    return indexed, plain
+
+
+def _same(a: list[Scan], b: list[Scan]) -> None:
+    assert len(a) == len(b)
+    for x, y in zip(a, b, strict=True):
+        assert (x.ms_level, x.rt_s, x.tic, x.precursor_charge) == (
+            y.ms_level,
+            y.rt_s,
+            y.tic,
+            y.precursor_charge,
+        )
+        if x.ms_level == 1:
+            assert x.mz is not None
+            assert y.mz is not None
+            assert np.array_equal(x.mz, y.mz)
+            assert np.array_equal(x.intensity, y.intensity)
+
+
+def test_indexed_read_equals_the_streaming_parse(tmp_path: Path) -> None:
+    """Through the index (arrays cut from bytes) the scans equal lxml's parse of the same run."""
+    # Reference: the lxml iterparse path of the project, on the same generated run.
+    indexed, plain = _pair(tmp_path)
+    scans = _scans(indexed)
+    assert sum(scan.ms_level == 1 for scan in scans) == 30  # 60 s at one MS1 per 2 s
+    _same(scans, _scans(plain))
+
+
+def test_wrapped_base64_and_unusual_layout_still_decode(tmp_path: Path) -> None:
+    """Line-wrapped base64 and a userParam in an array give the same values as plain layout."""
+    indexed, plain = _pair(tmp_path)
+    data = indexed.read_bytes()
+
+    # RFC 2045 wraps base64 at 76 characters; mzML allows whitespace inside <binary>.
+    def wrap(match: re.Match[bytes]) -> bytes:
+        text = match.group(1)
+        lines = [text[i : i + 76] for i in range(0, len(text), 76)]
+        return b"<binary>" + b"\n".join(lines) + b"</binary>"
+
+    wrapped = re.sub(rb"<binary>([^<]*)</binary>", wrap, data)
+    odd = wrapped.replace(
+        b"<binary>", b'<userParam name="note" value="x"/>\n<binary>', 1
+    )  # not the plain layout: left to the XML parse
+    path = bf.write(tmp_path, "QC_wrapped.mzML", bf.reindexed(odd))
+    _same(_scans(path), _scans(plain))
+
+
+def test_bad_base64_reads_as_the_xml_path_words_it(tmp_path: Path) -> None:
+    """A damaged MS1 array fails with the spectrum named, as the streaming reader says it."""
+    indexed, plain = _pair(tmp_path)
+    errors = []
+    for path in (indexed, plain):
+        data = path.read_bytes()
+        at = data.index(b"<binary>") + len(b"<binary>") + 4
+        broken = bf.write(tmp_path, "bad_" + path.name, data[:at] + b"!" + data[at + 1 :])
+        with pytest.raises(ReadError) as info:
+            _scans(broken)
+        errors.append(info.value.reason)
+    assert "invalid base64" in errors[0]
+    assert "spectrum 0 (" in errors[0]
+    assert errors[0] == errors[1]
+
+
+def test_offset_index_is_compact_and_checked(tmp_path: Path) -> None:
+    """The index holds one 8-byte start per spectrum; an offset off its <spectrum is refused."""
+    indexed, _plain = _pair(tmp_path)
+    fd = os.open(indexed, os.O_RDONLY)
+    try:
+        index = mzmlindex.load_offset_index(fd, os.fstat(fd).st_size)
+    finally:
+        os.close(fd)
+    assert index is not None
+    assert index.starts.itemsize == 8
+    assert len(index.starts) == 90  # 30 MS1 + 2 MS2 each
+    data = indexed.read_bytes()
+    first = index.starts[1]
+    moved = data.replace(b">%d</offset>" % first, b">%d</offset>" % (first + 1), 1)
+    path = bf.write(tmp_path, "QC_moved.mzML", moved)
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        assert mzmlindex.load_offset_index(fd, os.fstat(fd).st_size) is None
+    finally:
+        os.close(fd)
+    _same(_scans(path), _scans(indexed))  # streamed instead, same scans
