@@ -199,6 +199,21 @@ _ARRAY_LENGTH_RE = re.compile(rb'\sarrayLength="(\d+)"')
 _ARRAY_PARAMS_RE = re.compile(rb"(?:\s*<cvParam\s[^<>&]*/>)*\s*")
 _PARAM_ACCESSION_RE = re.compile(rb'<cvParam\s[^<>]*?\baccession="([^"]*)"')
 _ARRAY_END = b"</binaryDataArray>"
+_ENCODED_LENGTH_RE = re.compile(rb'\sencodedLength="(\d+)"')
+
+
+def _binary_end(data: bytes, start_tag: bytes, text_at: int, close: int) -> int:
+    """Where ``</binary>`` is: at the declared encodedLength if it says so, else searched.
+
+    A wrong encodedLength that happens to land on ``</binary>`` leaves ``<`` in the text,
+    which strict base64 refuses; the XML parse then decides.
+    """
+    declared = _ENCODED_LENGTH_RE.search(start_tag)
+    if declared is not None:
+        at = text_at + int(declared.group(1))
+        if data.startswith(b"</binary>", at) and at < close:
+            return at
+    return data.find(b"</binary>", text_at, close)
 
 
 def plain_arrays(data: bytes, cut: int, close: int) -> list[mzml.ArrayPart] | None:
@@ -224,7 +239,7 @@ def plain_arrays(data: bytes, cut: int, close: int) -> list[mzml.ArrayPart] | No
         opened = data.find(b"<binary>", start.end(), close)
         if opened < 0 or _ARRAY_PARAMS_RE.fullmatch(data, start.end(), opened) is None:
             return None
-        shut = data.find(b"</binary>", opened, close)
+        shut = _binary_end(data, start.group(0), opened + len(b"<binary>"), close)
         end = data.find(_ARRAY_END, shut, close) if shut >= 0 else -1
         if end < 0 or data[shut + len(b"</binary>") : end].strip():
             return None
