@@ -6,7 +6,9 @@ Then, in fresh child processes pinned to one core, best of N, it measures CPU ti
 and peak RSS (``os.wait4`` ``ru_maxrss``) of:
 
 * (b)  lxml iterparse + base64 + zlib + ``numpy.frombuffer`` of every array, nothing else;
-* (m)  ``watcher.measure.run.measure_file`` with 2 calibrants and 10 expected ions.
+* (m)  ``watcher.measure.run.measure_file`` with 2 calibrants and 10 expected ions, including
+       the completeness check (tail, index offset, SHA-1; for .gz the whole gzip stream, checked
+       in the same decompressing pass as the parse).
 
 CPU time is taken inside the child around the method only (imports and the CV load happen before
 the timer, as in a long-lived daemon); the whole-process CPU is shown beside it.
@@ -264,6 +266,7 @@ def main(argv: list[str] | None = None) -> int:
         pstats.Stats(profiler).sort_stats("cumulative").print_stats(30)
         return 0
     core = args.core if args.core is not None else max(os.sched_getaffinity(0))
+    load_before = os.getloadavg()
     names = QUICK if args.quick else tuple(FILES)
     paths = [generate(name) for name in names]
     rows = []
@@ -280,11 +283,15 @@ def main(argv: list[str] | None = None) -> int:
         "date": datetime.now(tz=UTC).strftime("%Y-%m-%d %H:%M UTC"),
         "machine": machine(),
         "repeat": args.repeat,
+        "pinned_core": core,
+        # 1-minute load average of the whole machine, before and after (other work shares it).
+        "load_1min": [round(load_before[0], 2), round(os.getloadavg()[0], 2)],
         "rows": rows,
     }
     OUT.mkdir(parents=True, exist_ok=True)
     (OUT / "results.json").write_text(json.dumps(report, indent=2))
     print()
+    print(f"{report['date']}, {report['machine']}, load {report['load_1min']}")
     print(table(report))
     return 0
 
