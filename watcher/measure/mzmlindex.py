@@ -155,12 +155,13 @@ def indexed_scans(
             data = _whole_element(os.pread(fd, end - start, start), i)
             yield _ms1_with_arrays(data, i, pre, parse)
             continue
-        header = _header_fragment(fd, start, end, i, head)
-        scan = fast_header(header, i)
+        data, cut = _header_bytes(fd, start, end, i, head)
+        scan = fast_header(data, i, end=cut)
         needs_arrays = False
         if scan is None:
+            fragment = data[:cut] + b"</spectrum>" if cut >= 0 else data
             scan, needs_arrays = mzml.scan_from_element(
-                parse(header), index=i, groups=pre.groups, want_arrays=want_arrays
+                parse(fragment), index=i, groups=pre.groups, want_arrays=want_arrays
             )
         elif want_arrays and scan.ms_level == 1:
             needs_arrays = True
@@ -172,7 +173,7 @@ def indexed_scans(
 
 def _ms1_with_arrays(data: bytes, i: int, pre: mzml.Preamble, parse: Any) -> Scan:
     cut = data.find(b"<binaryDataArrayList")
-    scan = fast_header(data[:cut], i) if cut >= 0 else None
+    scan = fast_header(data, i, end=cut) if cut >= 0 else None
     if scan is None:
         scan, _ = mzml.scan_from_element(parse(data), index=i, groups=pre.groups, want_arrays=True)
         return scan
@@ -266,15 +267,17 @@ _LENGTH_RE = re.compile(rb'\sdefaultArrayLength="(\d+)"')
 _UNIT_NEEDED = frozenset({mzml.SCAN_START_TIME, mzml.INJECTION_TIME})
 
 
-def fast_header(header: bytes, index: int) -> Scan | None:
+def fast_header(header: bytes, index: int, *, end: int = -1) -> Scan | None:
     """Header scalars straight from the bytes of a canonically written spectrum header.
 
-    Returns None (parse the XML instead) whenever the bytes are not in the plain layout.
+    Only ``header[:end]`` is read (all of it when ``end`` is negative). Returns None (parse
+    the XML instead) whenever the bytes are not in the plain layout.
     """
-    if b"referenceableParamGroupRef" in header or b"&" in header:
+    stop = len(header) if end < 0 else end
+    if header.find(b"referenceableParamGroupRef", 0, stop) >= 0 or header.find(b"&", 0, stop) >= 0:
         return None
     values: dict[str, tuple[bytes, bytes]] = {}
-    for accession, lead, value, unit in _FAST_RE.findall(header):
+    for accession, lead, value, unit in _FAST_RE.findall(header, 0, stop):
         if not lead:
             return None
         values.setdefault(accession.decode(), (value, unit))
@@ -339,21 +342,24 @@ def _whole_element(data: bytes, i: int) -> bytes:
     cut = data.rfind(b"</spectrum>")
     if cut < 0 or data.count(b"</spectrum>") != 1:
         raise IndexDoubt(i)  # not exactly one spectrum between two offsets
-    return data[: cut + len(b"</spectrum>")]
+    end = cut + len(b"</spectrum>")
+    # Only whitespace after the element (the usual case): keep the bytes, skip a copy.
+    return data if not data[end:].strip() else data[:end]
 
 
-def _header_fragment(fd: int, start: int, end: int, i: int, head: bytes) -> bytes:
-    """The spectrum's bytes before ``<binaryDataArrayList``, closed, as a parsable fragment.
+def _header_bytes(fd: int, start: int, end: int, i: int, head: bytes) -> tuple[bytes, int]:
+    """Bytes from ``start`` holding the header, and where ``<binaryDataArrayList`` starts.
 
     ``head`` is what was already read at ``start``; more is read only when it ends too soon.
+    The position is -1 when the bytes are the whole element (a spectrum without arrays).
     """
     data = head
     want = _HEADER_BYTES
     while True:
         cut = data.find(b"<binaryDataArrayList")
         if cut >= 0:
-            return data[:cut] + b"</spectrum>"
+            return data, cut
         if len(data) >= end - start:
-            return _whole_element(data, i)
+            return _whole_element(data, i), -1
         want *= 4
         data = os.pread(fd, min(want, end - start), start)
