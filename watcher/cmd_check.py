@@ -15,6 +15,7 @@ import json
 import math
 import os
 import sqlite3
+import stat
 import sys
 from collections.abc import Callable, Sequence
 from datetime import UTC, datetime
@@ -105,6 +106,9 @@ def check_file(
             RunFile(path=path, size=0, mtime_ns=0), f"cannot open: {reason}", "io", judged_at
         )
     run_file = RunFile(path=path, size=st.st_size, mtime_ns=st.st_mtime_ns)
+    if not stat.S_ISREG(st.st_mode) and not stat.S_ISDIR(st.st_mode):
+        # A FIFO or device would block the read forever (or never end): refuse it by its type.
+        return _unreadable(run_file, "cannot read: not a regular file", "io", judged_at)
     try:
         metrics = measure_file(path, config, progress=progress)
     except ReadError as exc:
@@ -272,6 +276,8 @@ def _sniffed_format(path: Path) -> str | None:
     from watcher.formats import sniff_format
 
     try:
+        if not path.is_file():  # opening a FIFO to sniff it would block
+            return None
         return sniff_format(path)
     except Exception:  # the format of a broken file is a nicety, never a second error
         return None
@@ -334,7 +340,7 @@ def render_text(verdict: Verdict, out: TextIO, *, colour: bool = False) -> None:
                 _num(c.mad_ppm, ".2f"),
                 _num(c.p05_ppm, ".2f", signed=True),
                 _num(c.p95_ppm, ".2f", signed=True),
-                f"{c.found_fraction * 100:.0f}",
+                _num(c.found_fraction * 100, ".0f"),
                 _num(c.slope_ppm_per_h, ".2f", signed=True),
             ]
             for c in metrics.calibrants
