@@ -53,8 +53,13 @@ def find_peak(
     hi = int(np.searchsorted(mz, mz_target + half_width, side="right"))
     if hi <= lo:
         return None
-    top = lo + int(np.argmax(intensity[lo:hi]))
-    if not intensity[top] > 0:
+    window = intensity[lo:hi]
+    finite = np.isfinite(window)
+    if not finite.all():
+        # A NaN would win argmax (and hide a real peak beside it); NaN/inf are no peaks.
+        window = np.where(finite, window, -np.inf)
+    top = lo + int(np.argmax(window))
+    if not (np.isfinite(intensity[top]) and np.isfinite(mz[top]) and intensity[top] > 0):
         return None
     if not profile:
         return float(mz[top]), float(intensity[top])
@@ -103,6 +108,8 @@ def _vertex(
     x0: float, y0: float, x1: float, y1: float, x2: float, y2: float
 ) -> tuple[float, float]:
     """Vertex of the (log-)parabola through three points, centred on the middle one."""
+    if not all(math.isfinite(v) for v in (x0, y0, x2, y2)):
+        return x1, y1  # a NaN/inf side point carries no shape
     gaussian = y0 > 0 and y2 > 0
     v0, v1, v2 = (math.log(y0), math.log(y1), math.log(y2)) if gaussian else (y0, y1, y2)
     # Centre on x1: m/z values near 1000 squared would lose the sub-mDa differences.
