@@ -187,21 +187,41 @@ def tic_quantile_rts(
 
 
 def _tic(scan: Scan) -> float | None:
-    """Header TIC, else the sum of the decoded intensities."""
-    if scan.tic is not None:
+    """Header TIC, else the sum of the decoded intensities (finite, negatives as zero).
+
+    A header value that is NaN, infinite or negative is not a TIC (a broken export); the arrays
+    are used instead when they were decoded. Negative points (baseline-subtraction artefacts)
+    count as zero, so a few of them cannot pull the TIC below what the ions gave.
+    """
+    if _usable(scan.tic):
         return scan.tic
-    if scan.intensity is not None:
-        return float(scan.intensity.sum())
+    counts = _counts(scan.intensity)
+    if counts is not None:
+        return float(counts.sum())
     return None
 
 
 def _base_peak(scan: Scan) -> float | None:
-    """Header base-peak intensity, else the largest decoded intensity."""
-    if scan.base_peak_intensity is not None:
+    """Header base-peak intensity, else the largest decoded intensity (same rules as ``_tic``)."""
+    if _usable(scan.base_peak_intensity):
         return scan.base_peak_intensity
-    if scan.intensity is not None and scan.intensity.size:
-        return float(scan.intensity.max())
+    counts = _counts(scan.intensity)
+    if counts is not None and counts.size:
+        return float(counts.max())
     return None
+
+
+def _usable(value: float | None) -> bool:
+    return value is not None and math.isfinite(value) and value >= 0.0
+
+
+def _counts(intensity: FloatArray | None) -> FloatArray | None:
+    """The intensities with NaN/inf dropped and negative values as zero (None: not decoded)."""
+    if intensity is None:
+        return None
+    if intensity.size and not (np.isfinite(intensity).all() and intensity.min() >= 0.0):
+        intensity = np.clip(intensity[np.isfinite(intensity)], 0.0, None)
+    return intensity
 
 
 def _or_nan(value: float | None) -> float:
