@@ -6,6 +6,7 @@ and summarises them as a ``CalibrantDrift`` record.
 
 from __future__ import annotations
 
+import math
 from array import array
 from collections.abc import Sequence
 
@@ -85,7 +86,7 @@ def summarize(
         ppm: mass error per found scan.
         intensity: calibrant peak intensity per found scan.
         rt_s: RT per found scan in seconds (NaN where unknown; left out of the slope only).
-        scans_seen: MS1 scans searched, the denominator of ``found_fraction``.
+        scans_seen: MS1 scans searched, the denominator of ``found_fraction`` (NaN for 0).
     """
     ppm_arr = np.asarray(ppm, dtype=np.float64)
     found = int(ppm_arr.size)
@@ -97,7 +98,8 @@ def summarize(
         mad_ppm=robust.mad(ppm_arr),
         p05_ppm=robust.percentile(ppm_arr, 5),
         p95_ppm=robust.percentile(ppm_arr, 95),
-        found_fraction=found / scans_seen if scans_seen else 0.0,
+        # NaN (not measured) when no scan was searched: a run of the other polarity, or MGF.
+        found_fraction=found / scans_seen if scans_seen else math.nan,
         median_intensity=robust.median(intensity),
         slope_ppm_per_h=None if slope_ppm_per_s is None else slope_ppm_per_s * 3600.0,
         scans_found=found,
