@@ -85,7 +85,7 @@ def test_negative_mode_run_finds_deprotonated_ion_only() -> None:
     # molmass (test_ions): caffeine [M-H]- at m/z 193.073099; scan polarity -1 throughout
     assert metrics.expected_ions[0].found
     assert metrics.expected_ions[0].apex_rt_s == pytest.approx(150.0, abs=2.0)
-    assert metrics.calibrants[0].found_fraction == 0.0
+    assert str(metrics.calibrants[0].found_fraction) == "nan"  # not searched
 
 
 def test_run_without_ms1_has_note_and_null_measures() -> None:
@@ -99,7 +99,7 @@ def test_run_without_ms1_has_note_and_null_measures() -> None:
     assert NO_MS1_NOTE in metrics.notes
     assert metrics.signal.ms2_count == 4
     assert metrics.signal.ms1_count == 0
-    assert all(c.median_ppm is None and c.found_fraction == 0.0 for c in metrics.calibrants)
+    assert all(c.median_ppm is None and str(c.found_fraction) == "nan" for c in metrics.calibrants)
     assert all(not ion.found and ion.apex_rt_s is None for ion in metrics.expected_ions)
     assert metrics.mass_correction is None
 
