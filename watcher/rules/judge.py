@@ -12,6 +12,7 @@ History semantics (documented choices):
   and the forecast use every earlier run of the same kind with a value, because a run that failed
   is still a measurement of the instrument.
 - Runs without a value for the metric are left out of every sequence.
+- A run without MS1 spectra has no calibrant, expected-ion or mass-correction values at all.
 - ``for_runs: N`` re-evaluates the same severity's condition on the previous N-1 values with the
   baseline as it is now; with too little history (or no history at all) it does not fire.
 - Westgard, EWMA and CUSUM need a baseline with SD > 0 (fixed mean/sd, or enough accepted runs);
@@ -46,6 +47,8 @@ from watcher.rules.checks import (
 TREND_RUNS = 50  # earlier runs fed to EWMA and CUSUM
 WESTGARD_RUNS = 9  # 10x needs the nine runs before this one
 ACCEPTED = (Status.OK, Status.NOTICE)
+# metric paths measured from MS1 spectra only
+MS1_ONLY_PREFIXES = ("calibrant.", "expected_ion.", "expected_ions.", "mass_correction.")
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -325,6 +328,10 @@ def judge(
         The run status (the highest finding severity, ``ok`` without findings) and the findings.
     """
     flat = metrics.flat()
+    if not metrics.signal.ms1_count:
+        # No MS1 spectra (MGF, an MS2-only export): calibrants and expected ions were never
+        # searched, so their values are missing, not "lost" or "not found" (README: null + note).
+        flat = {k: v for k, v in flat.items() if not k.startswith(MS1_ONLY_PREFIXES)}
     findings: list[Finding] = []
     for check in checks:
         if not check.applies_to_file(file_name):
