@@ -445,11 +445,6 @@ def test_bom_config_is_read(tmp_path: Path) -> None:
     assert "2 calibrants" in proc.stdout
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="configload.py (not this task's file): a Westgard rule on a boolean metric is "
-    "accepted, and the judge then skips it silently on every run",
-)
 def test_westgard_on_a_boolean_metric_is_a_config_problem(tmp_path: Path) -> None:
     """westgard on expected_ion.*.found (true/false) is refused with the key named."""
     config = _lab(
@@ -462,11 +457,6 @@ def test_westgard_on_a_boolean_metric_is_a_config_problem(tmp_path: Path) -> Non
     assert "westgard" in proc.stderr
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="configload.py/daemon.py (not this task's files): `run` with an empty config has "
-    "no watch folder and idles forever instead of refusing to start",
-)
 def test_run_refuses_a_config_without_watch_folders(tmp_path: Path) -> None:
     """An empty config file makes ``run`` exit 2 naming watch.folders, not watch nothing."""
     config = tmp_path / "lab.yaml"

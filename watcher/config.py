@@ -286,6 +286,27 @@ def metric_fields() -> dict[str, tuple[str, ...]]:
     }
 
 
+def is_yes_no_metric(metric: str) -> bool:
+    """Whether ``metric`` names a true/false value (e.g. ``expected_ion.caffeine.found``).
+
+    Derived from the records' field types, like ``metric_fields``: yes/no values can be tested
+    with ``is:`` but have no mean, SD or trend.
+    """
+    from watcher.records import CalibrantDrift, ExpectedIonResult, SignalMetrics
+
+    group, _, rest = metric.partition(".")
+    name = rest.rsplit(".", 1)[-1]
+    records: dict[str, type] = {
+        "signal": SignalMetrics,
+        "calibrant": CalibrantDrift,
+        "expected_ion": ExpectedIonResult,
+    }
+    cls = records.get(group)
+    if cls is None:
+        return False
+    return any(f.name == name and str(f.type) == "bool" for f in dataclasses.fields(cls))
+
+
 def known_metric_paths(calibrants: Iterable[str], expected_ions: Iterable[str]) -> tuple[str, ...]:
     """Every metric path a check may name, with ``*`` standing for any calibrant or expected ion."""
     fields_by_group = metric_fields()

@@ -18,6 +18,7 @@ from watcher.config import (
     ExpectedIon,
     ForecastSpec,
     IonSpec,
+    is_yes_no_metric,
 )
 from watcher.configkeys import KEYS
 from watcher.configvalues import SEVERITIES, Bad, Values
@@ -78,6 +79,15 @@ def _check(
             "(westgard, ewma, cusum or forecast)",
         )
         ok = False
+    metric = kw.get("metric")
+    if isinstance(metric, str) and is_yes_no_metric(metric):
+        for key in (*_TRENDS, "against"):
+            if key in m:
+                v.problem(
+                    (*path, key),
+                    f"{key} needs a numeric metric; '{metric}' is yes/no (test it with is: false)",
+                )
+                ok = False
     critical = kw.get("critical")
     if "forecast" in m and not (
         isinstance(critical, Condition)

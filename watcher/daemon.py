@@ -29,7 +29,7 @@ import structlog
 from watcher import config as config_mod
 from watcher import logs, sdnotify
 from watcher.config import Config
-from watcher.errors import ConfigError, IonwardenError, StoreError
+from watcher.errors import ConfigError, ConfigProblem, IonwardenError, StoreError
 from watcher.intake import watch
 from watcher.intake.settle import FileStat
 from watcher.intake.settler import Settled, Settler
@@ -414,6 +414,19 @@ class Daemon:
 def main(args: argparse.Namespace) -> int:
     """``ionwarden run -c CONFIG``: 0 after SIGTERM/SIGINT, 2 bad config, 3 unusable store."""
     config = config_mod.load(Path(args.config))  # ConfigError -> exit 2 in cli.main
+    if not config.watch.folders:
+        # A daemon that watches nothing would look healthy to systemd while missing every run.
+        raise ConfigError(
+            [
+                ConfigProblem(
+                    str(args.config),
+                    None,
+                    "watch.folders",
+                    "the daemon needs at least one folder to watch (the instrument's export "
+                    "folder), got none",
+                )
+            ]
+        )
     state_dir = state_dir_of(config)
     if db.is_network_fs(db.filesystem_type(state_dir if state_dir.exists() else state_dir.parent)):
         raise StoreError(

@@ -54,9 +54,9 @@ def tiny_template(tmp_path_factory: pytest.TempPathFactory) -> bytes:
 
 @pytest.fixture(scope="session")
 def big_run(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    """A 30-min synthetic run (about 26 MB, over a second to measure): for kills and limits."""
+    """A 60-min synthetic run (about 52 MB, about a second to measure): for kills and limits."""
     path = tmp_path_factory.mktemp("big") / "big.mzML"
-    synth.write_mzml(path, synth.RunSpec(duration_s=1800, ms2_per_cycle=3, seed=4), indexed=False)
+    synth.write_mzml(path, synth.RunSpec(duration_s=3600, ms2_per_cycle=3, seed=4), indexed=False)
     return path
 
 
