@@ -85,3 +85,15 @@ def test_folder_hint_and_scan_skip_known_and_ignored(tmp_path: Path) -> None:
     files, added = fresh.scan({(str(a), st.st_size, st.st_mtime_ns)}, 0.0)
     assert (files, added) == (2, 1)
     assert list(fresh.pending) == [b]
+
+
+def test_fifo_named_like_a_run_is_never_opened(tmp_path: Path) -> None:
+    """A FIFO called QC_009.mzML is dropped, not opened: opening it would block the main loop."""
+    import os
+
+    fifo = tmp_path / "QC_009.mzML"
+    os.mkfifo(fifo)
+    settler = Settler(Watch(folders=(tmp_path,), settle_s=1.0))
+    settler.take_hint(watch.Hint(path=fifo, is_dir=False), 0.0)
+    assert _settle(settler, 0.5, 5.0) == []  # returns at all: nothing blocked on the FIFO
+    assert settler.pending == {}

@@ -9,6 +9,7 @@ job table: the caller says which identities are already known and queues what co
 
 from __future__ import annotations
 
+import stat
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
@@ -129,9 +130,16 @@ class Settler:
 
 
 def _stat(path: Path) -> settle.FileStat | None:
+    """Size and mtime of a regular file; None when it is gone or is no regular file.
+
+    Opening a FIFO or a device named like a run would block the main loop (nobody writes to
+    it), so anything but a regular file is treated as not there.
+    """
     try:
         st = path.stat()
     except OSError:
+        return None
+    if not stat.S_ISREG(st.st_mode):
         return None
     return settle.FileStat(st.st_size, st.st_mtime_ns)
 
