@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import os
 import re
+from collections.abc import Callable
 from pathlib import Path
 
 import numpy as np
@@ -12,7 +13,7 @@ import pytest
 from synth import CalibrantTruth, RunSpec, write_mzml
 from tests.measure import badfiles as bf
 from watcher.errors import ReadError
-from watcher.measure import mzmlindex
+from watcher.measure import mzml, mzmlindex, safexml
 from watcher.measure.read import open_run
 from watcher.measure.scan import Scan
 
@@ -100,8 +101,30 @@ def test_bad_base64_reads_as_the_xml_path_words_it(tmp_path: Path) -> None:
     assert errors[0] == errors[1]
 
 
+def _doubt_at(path: Path) -> int | None:
+    """Where index-guided reading of ``path`` doubts its index (None: read to the end)."""
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        index = mzmlindex.load_offset_index(fd, os.fstat(fd).st_size)
+        assert index is not None
+        with path.open("rb") as source:
+            events = safexml.safe_iterparse(source, events=("start", "end"), tag=mzml.stream_tags())
+            pre = mzml.read_preamble(events)
+            scans = mzmlindex.indexed_scans(
+                fd, index, pre, want_arrays=True, parse=safexml.parse_fragment
+            )
+            try:
+                for _scan in scans:
+                    pass
+            except mzmlindex.IndexDoubt as doubt:
+                return doubt.position
+        return None
+    finally:
+        os.close(fd)
+
+
 def test_offset_index_is_compact_and_checked(tmp_path: Path) -> None:
-    """The index holds one 8-byte start per spectrum; an offset off its <spectrum is refused."""
+    """The index holds 8-byte starts and one id blob; an offset off its <spectrum is doubted."""
     indexed, _plain = _pair(tmp_path)
     fd = os.open(indexed, os.O_RDONLY)
     try:
@@ -110,14 +133,43 @@ def test_offset_index_is_compact_and_checked(tmp_path: Path) -> None:
         os.close(fd)
     assert index is not None
     assert index.starts.itemsize == 8
+    assert index.id_ends.itemsize == 8
+    assert isinstance(index.ids, bytes)
     assert len(index.starts) == 90  # 30 MS1 + 2 MS2 each
+    assert (index.id_ref(0), index.id_ref(89)) == (b"scan=1", b"scan=90")  # synth's ids
+    assert _doubt_at(indexed) is None
     data = indexed.read_bytes()
     first = index.starts[1]
     moved = data.replace(b">%d</offset>" % first, b">%d</offset>" % (first + 1), 1)
     path = bf.write(tmp_path, "QC_moved.mzML", moved)
-    fd = os.open(path, os.O_RDONLY)
-    try:
-        assert mzmlindex.load_offset_index(fd, os.fstat(fd).st_size) is None
-    finally:
-        os.close(fd)
-    _same(_scans(path), _scans(indexed))  # streamed instead, same scans
+    assert _doubt_at(path) == 1
+    _same(_scans(path), _scans(indexed))  # streamed from spectrum 1 on, same scans
+
+
+def _wrong_id_ref(data: bytes) -> bytes:
+    return data.replace(b'idRef="scan=46"', b'idRef="scan=460"', 1)
+
+
+def _wrong_index_attr(data: bytes) -> bytes:
+    return data.replace(b'<spectrum index="45" ', b'<spectrum index="47" ', 1)
+
+
+def _left_out(data: bytes) -> bytes:
+    return re.sub(rb'\s*<offset idRef="scan=46">\d+</offset>', b"", data, count=1)
+
+
+@pytest.mark.parametrize("edit", [_wrong_id_ref, _wrong_index_attr, _left_out])
+def test_index_wrong_midway_reads_as_the_streaming_parse(
+    tmp_path: Path, edit: Callable[[bytes], bytes]
+) -> None:
+    """A wrong idRef, index="" or missing entry at spectrum 45 streams on from there, same scans."""
+    # Reference: the lxml streaming path on the same body bytes (the non-indexed twin, same
+    # edit); spectrum 45 is an MS1 scan (one MS1 then 2 MS2 per cycle in _SPEC).
+    indexed, plain = _pair(tmp_path)
+    path = bf.write(tmp_path, "QC_edited.mzML", edit(indexed.read_bytes()))
+    streamed = bf.write(tmp_path, "QC_edited_plain.mzML", edit(plain.read_bytes()))
+    assert path.read_bytes() != indexed.read_bytes()
+    assert _doubt_at(path) == 45
+    scans, reference = _scans(path), _scans(streamed)
+    assert [scan.index for scan in scans] == list(range(90))
+    _same(scans, reference)

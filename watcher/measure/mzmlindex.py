@@ -1,9 +1,12 @@
 """Index-guided reading of indexedmzML: byte offsets from the file's own index, MS2 never decoded.
 
-The offset index at the end of the file gives each spectrum's position; every offset is checked
-to land on the ``<spectrum`` it names, in order, with nothing left out, and any doubt returns
-None so the caller streams instead. Headers are read with ``os.pread`` (most straight from the
-bytes, the rest parsed as XML fragments); only MS1 spectra are read whole. This is
+The offset index at the end of the file gives each spectrum's position. Its shape is checked on
+loading (offsets ascending, every entry readable, nothing after the last one; any doubt returns
+None so the caller streams instead). Whether each offset lands on the ``<spectrum`` it names,
+with ``index="i"`` counting 0, 1, 2 ... so nothing is left out, is checked on the bytes the reader
+reads anyway; a miss raises IndexDoubt and the caller streams from that spectrum on. Headers are
+read with ``os.pread`` (most straight from the bytes, the rest parsed as XML fragments); only MS1
+spectra are read whole. This is
 PERFORMANCE.md's method h; never pyteomics' byte indexer (RELIABILITY.md, item 1).
 """
 
@@ -33,15 +36,27 @@ _MAX_INDEX_BYTES = 256 * 1024 * 1024
 
 @dataclass(frozen=True, slots=True)
 class OffsetIndex:
-    """Byte ranges of the spectra, from the file's own index, checked to land on ``<spectrum``."""
+    """Byte ranges and ids of the spectra from the file's own index (shape checked, not landing)."""
 
     # 64-bit integer arrays, not tuples of ints: 8 bytes per spectrum instead of ~40.
     starts: array[int]
     ends: array[int]  # exclusive bound for each spectrum's bytes (next element's offset)
+    # Every idRef as written (escaped) in one blob, spectrum i's at id_ends[i-1]:id_ends[i]:
+    # 40 000 bytes objects would cost ~2 MB of headers on top of the text.
+    ids: bytes
+    id_ends: array[int]
+
+    def id_ref(self, position: int) -> bytes:
+        """The idRef the index gives for spectrum ``position``, as written in the file."""
+        return self.ids[self.id_ends[position - 1] if position else 0 : self.id_ends[position]]
 
 
 def load_offset_index(fd: int, size: int) -> OffsetIndex | None:
-    """Read and check the embedded offset index; None on any doubt (then stream instead).
+    """Read the embedded offset index and check its shape; None on any doubt (then stream).
+
+    Offsets must ascend, every entry must parse and carry an idRef, and the last spectrum must
+    close the ``<spectrumList>``. Where each offset lands is checked later, by
+    ``indexed_scans`` on the bytes it reads anyway (one read per spectrum, not two).
 
     Args:
         fd: an open file descriptor of a plain (not compressed) indexedmzML file.
@@ -62,6 +77,8 @@ def load_offset_index(fd: int, size: int) -> OffsetIndex | None:
     # 40 000 offsets as lxml elements cost ~15 MB, as lists of tuples ~10 MB.
     starts: array[int] = array("q")
     others: array[int] = array("q", [index_at])
+    ids = bytearray()
+    id_ends: array[int] = array("q")
     blocks = 0
     for found_block in _INDEX_BLOCK_RE.finditer(block, 0, end):
         blocks += 1
@@ -73,14 +90,14 @@ def load_offset_index(fd: int, size: int) -> OffsetIndex | None:
             if name != b"spectrum":
                 others.append(value)
                 continue
-            position = len(starts)
             if (starts and value <= starts[-1]) or value >= index_at:
                 return None
             ref_match = _ID_REF_RE.search(entry.group(1))
-            if not _lands_on_spectrum(
-                fd, value, position, ref_match.group(1) if ref_match else b""
-            ):
-                return None
+            if ref_match is None:
+                return None  # nothing to check the landing against
+            # No read here: indexed_scans checks the landing on the header bytes it reads.
+            ids += ref_match.group(1)
+            id_ends.append(len(ids))
             starts.append(value)
         if entries != block.count(b"<offset", body_at, body_end):
             return None  # an entry we cannot read: doubt
@@ -94,20 +111,23 @@ def load_offset_index(fd: int, size: int) -> OffsetIndex | None:
     ends.append(next((b for b in bounds if b > starts[-1]), index_at))
     if not _ends_spectrum_list(os.pread(fd, ends[-1] - starts[-1], starts[-1])):
         return None  # spectra after the last indexed one: the index is not the whole story
-    return OffsetIndex(starts, ends)
+    return OffsetIndex(starts, ends, bytes(ids), id_ends)
 
 
-def _lands_on_spectrum(fd: int, offset: int, position: int, id_ref: bytes) -> bool:
-    """The bytes at ``offset`` open ``<spectrum`` with this id and ``index="position"``."""
-    head = os.pread(fd, _HEAD_BYTES, offset)
+def _lands_on_spectrum(head: bytes, position: int, id_ref: bytes) -> bool:
+    """``head`` (bytes read at an indexed offset) opens ``<spectrum`` with this id and index."""
     if not head.startswith(b"<spectrum") or head[9:10] not in (b" ", b"\t", b"\n", b"\r"):
         return False
-    start_tag = head[: head.find(b">") + 1] if b">" in head else head
-    found = _ID_RE.search(start_tag)
-    if found is None or _unescape(found.group(1)) != _unescape(id_ref):
+    close = head.find(b">")
+    stop = close + 1 if close >= 0 else len(head)
+    found = _ID_RE.search(head, 0, stop)
+    if found is None:
+        return False
+    written = found.group(1)
+    if written != id_ref and _unescape(written) != _unescape(id_ref):
         return False
     # index="i" must count 0, 1, 2 ...: a spectrum left out of the index would break it.
-    number = _INDEX_ATTR_RE.search(start_tag)
+    number = _INDEX_ATTR_RE.search(head, 0, stop)
     return number is not None and int(number.group(1)) == position
 
 
@@ -143,12 +163,19 @@ def indexed_scans(
     parse: Any,
     on_offset: Any = None,
 ) -> Iterator[Scan]:
-    """One Scan per indexed spectrum: header bytes for all, whole elements only for MS1 arrays."""
+    """One Scan per indexed spectrum: header bytes for all, whole elements only for MS1 arrays.
+
+    Raises:
+        IndexDoubt: spectrum ``position`` is not where the index says (before it is yielded;
+            the spectra already yielded were checked the same way).
+    """
     for i, (start, end) in enumerate(zip(index.starts, index.ends, strict=True)):
         if on_offset is not None:
             on_offset(start)
-        # One read serves the ms level and, for most spectra, the whole header.
+        # One read serves the landing check, the ms level and, for most spectra, the header.
         head = os.pread(fd, min(_HEADER_BYTES, end - start), start)
+        if not _lands_on_spectrum(head, i, index.id_ref(i)):
+            raise IndexDoubt(i)  # offset off its <spectrum>, or a spectrum left out
         match = _MS_LEVEL_RE.search(head, 0, _HEAD_BYTES)
         level = int(match.group(1)) if match else None
         if level == 1 and want_arrays:
