@@ -94,7 +94,13 @@ def _b64(text: str | bytes | None) -> bytes:
         return b""
     data = text.encode("ascii", "replace") if isinstance(text, str) else text
     try:
-        return base64.b64decode(b"".join(data.split()), validate=True)
+        # Most writers put no whitespace in <binary>: decode the text as it is, no copy.
+        return base64.b64decode(data, validate=True)
+    except binascii.Error:
+        pass
+    stripped = b"".join(data.split())  # wrapped text (RFC 2045 lines) is valid mzML
+    try:
+        return base64.b64decode(stripped, validate=True)
     except binascii.Error as exc:
         raise ArrayDecodeError(f"invalid base64 ({exc})") from None
 
