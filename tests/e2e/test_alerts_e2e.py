@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import json
 import re
-import shutil
 import sqlite3
 import subprocess
 import sys
@@ -25,6 +24,7 @@ from typing import Any
 import pytest
 
 import synth
+from tests import browser
 from tests.e2e.conftest import REPO, Lab, wait_for
 
 SILOXANE_MZ = 445.120025  # polysiloxane background ion [C2H6SiO]6+H+ (common practice, lock mass)
@@ -35,7 +35,6 @@ DRIFT_CHECK = {
     "metric": "calibrant.*.median_ppm",
     "critical": {"outside": [-5, 5]},
 }
-CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
 
 
 def run_bytes(offset_ppm: float, n: int, tmp: Path) -> bytes:
@@ -311,31 +310,8 @@ def test_digest_of_a_night_renders_in_chromium(lab: Lab, rx: Receiver, tmp_path:
     assert "6 ppm" in html  # the finding's value with its unit
     # One Levey-Jennings chart per calibrant, the TIC and the status timeline; no ions configured.
     assert len(re.findall(r'<img [^>]*src="data:image/png;base64,', html)) == 3
-    if CHROMIUM is None:
+    if browser.CHROMIUM is None:
         pytest.skip("chromium is not installed (CI installs it)")
     shot = tmp_path / "digest.png"
-    flags = [
-        "--headless",
-        "--no-sandbox",
-        "--disable-gpu",
-        "--no-first-run",
-        "--disable-background-networking",
-        "--disable-component-update",
-        "--disable-sync",
-    ]
-    subprocess.run(
-        [
-            CHROMIUM,
-            *flags,
-            f"--user-data-dir={tmp_path / 'profile'}",
-            f"--screenshot={shot}",
-            "--window-size=1100,2400",
-            page.as_uri(),
-        ],
-        capture_output=True,
-        timeout=60,
-        check=True,
-    )
-    assert shot.read_bytes().startswith(b"\x89PNG")
-    keep = Path("/tmp/ionwarden_digest_e2e.png")
-    shutil.copy(shot, keep)
+    png = browser.screenshot(page, shot, tmp_path / "profile")
+    assert png.startswith(b"\x89PNG")

@@ -7,14 +7,13 @@ import base64
 import dataclasses
 import io
 import re
-import shutil
-import subprocess
 from contextlib import redirect_stdout
 from datetime import UTC, date, datetime, timedelta
 from pathlib import Path
 
 import pytest
 
+from tests import browser
 from watcher import cmd_digest
 from watcher.config import (
     BaselineSpec,
@@ -216,49 +215,16 @@ def test_digest_command_prints_summary_and_writes_html(state: Path, tmp_path: Pa
     assert bad == 2
 
 
-CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
-FLAGS = [
-    "--headless",
-    "--no-sandbox",
-    "--disable-gpu",
-    "--no-first-run",
-    "--disable-background-networking",
-    "--disable-component-update",
-    "--disable-sync",
-    "--enable-logging=stderr",
-    "--v=0",
-]
-
-
-@pytest.mark.skipif(CHROMIUM is None, reason="chromium is not installed (CI installs it)")
+@pytest.mark.skipif(browser.CHROMIUM is None, reason="chromium is not installed (CI installs it)")
 def test_digest_html_opens_in_headless_chromium(state: Path, tmp_path: Path) -> None:
     """Chromium renders the page without console errors; its DOM has the names, rows, images."""
     conn = db.connect(state, readonly=True)
     page = tmp_path / "digest.html"
     page.write_text(digest_mod.render_html(digest_mod.build_digest(conn, CONFIG, DAY)))
     conn.close()
-    assert CHROMIUM is not None
     shot = tmp_path / "shot.png"
-    dom = subprocess.run(
-        [CHROMIUM, *FLAGS, f"--user-data-dir={tmp_path / 'p1'}", "--dump-dom", page.as_uri()],
-        capture_output=True,
-        text=True,
-        timeout=60,
-        check=True,
-    )
-    subprocess.run(
-        [
-            CHROMIUM,
-            *FLAGS,
-            f"--user-data-dir={tmp_path / 'p2'}",
-            f"--screenshot={shot}",
-            "--window-size=1100,2400",
-            page.as_uri(),
-        ],
-        capture_output=True,
-        timeout=60,
-        check=True,
-    )
+    dom = browser.dump_dom(page, tmp_path / "p1")
+    png = browser.screenshot(page, shot, tmp_path / "p2")
     assert "Uncaught" not in dom.stderr
     assert "ERROR:CONSOLE" not in dom.stderr
     assert "siloxane-445" in dom.stdout
@@ -268,7 +234,7 @@ def test_digest_html_opens_in_headless_chromium(state: Path, tmp_path: Path) -> 
         len(re.findall(r'<img [^>]*src="data:image/png;base64,[A-Za-z0-9+/=]{100,}', dom.stdout))
         == 5
     )
-    assert shot.read_bytes().startswith(b"\x89PNG")
+    assert png.startswith(b"\x89PNG")
 
 
 @pytest.mark.parametrize(

@@ -1,0 +1,53 @@
+"""Headless Chromium (Debian's package) for tests that look at a page the way a person would."""
+
+from __future__ import annotations
+
+import shutil
+import subprocess
+from pathlib import Path
+
+CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
+
+# No network chatter on a machine without network; logging on stderr shows console errors.
+FLAGS = (
+    "--headless",
+    "--no-sandbox",
+    "--disable-gpu",
+    "--no-first-run",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+    "--enable-logging=stderr",
+    "--v=0",
+)
+
+
+def dump_dom(page: Path, profile: Path) -> subprocess.CompletedProcess[str]:
+    """The page's DOM after rendering (stdout) and Chromium's log (stderr)."""
+    assert CHROMIUM is not None
+    return subprocess.run(
+        [CHROMIUM, *FLAGS, f"--user-data-dir={profile}", "--dump-dom", page.as_uri()],
+        capture_output=True,
+        text=True,
+        timeout=60,
+        check=True,
+    )
+
+
+def screenshot(page: Path, shot: Path, profile: Path, *, size: str = "1100,2400") -> bytes:
+    """A PNG of the rendered page, written to ``shot``; returns its bytes."""
+    assert CHROMIUM is not None
+    subprocess.run(
+        [
+            CHROMIUM,
+            *FLAGS,
+            f"--user-data-dir={profile}",
+            f"--screenshot={shot}",
+            f"--window-size={size}",
+            page.as_uri(),
+        ],
+        capture_output=True,
+        timeout=60,
+        check=True,
+    )
+    return shot.read_bytes()
