@@ -172,6 +172,9 @@ def test_unreadable_run_raises_and_next_readable_run_clears(
     bodies = receiver.wait_for(2)
     assert bodies[0]["title"] == "Kestrel-2 Q-TOF: UNREADABLE QC_030.mzML"
     assert "XML ends inside spectrum 812" in bodies[0]["message"]
+    # No acquisition time in an unreadable file: the head gives when the file was written.
+    assert " | file written " in bodies[0]["message"].splitlines()[0]
+    assert "[rule" not in bodies[0]["message"]
     assert bodies[1]["message"].splitlines()[1] == "OK AGAIN: unreadable"
 
 

@@ -66,7 +66,7 @@ def item_line(item: Item, run_file: str | None = None) -> str:
     for prefix in {f"{run_file}: " if run_file else "", f"{f.check}: "} - {""}:
         text = text.removeprefix(prefix)
     line = f"{_ACTION_WORD[item.action]} {f.severity}: {text}"
-    if f.rule not in ("limit", "baseline") and f.rule not in text:
+    if f.rule not in ("limit", "baseline", "read") and f.rule not in text:
         line += f" [rule {f.rule}]"
     if f.forecast_h is not None and "forecast" not in f.rule:
         line += f", forecast: critical in {f.forecast_h:.1f} h"

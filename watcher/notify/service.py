@@ -127,7 +127,15 @@ class Notifier:
         configured = {c.name for c in self.config.checks}
         clearable = machine.clearable_checks(self.config.checks, file_name, readable=readable)
         acquired_at = verdict.metrics.acquired_at if verdict.metrics is not None else None
-        at = acquired_at or verdict.judged_at or datetime.fromtimestamp(now_s, UTC)
+        # Without an acquisition time (unreadable file, mzXML), the file's mtime says when the
+        # instrument wrote it, which is what a person matches against the queue.
+        written_at = datetime.fromtimestamp(verdict.run_file.mtime_ns / 1e9, UTC)
+        if acquired_at is not None:
+            at, at_what = acquired_at, "acquired"
+        elif verdict.run_file.mtime_ns > 0:
+            at, at_what = written_at, "file written"
+        else:
+            at, at_what = verdict.judged_at or datetime.fromtimestamp(now_s, UTC), "judged"
         for channel in self.config.alerts.channels:
             wanted: dict[tuple[str, str], Finding] = {}
             for f in findings:
@@ -154,7 +162,7 @@ class Notifier:
                     timezone=self.config.instrument.timezone,
                     status=str(verdict.status),
                     items=items,
-                    at_what="acquired" if acquired_at is not None else "judged",
+                    at_what=at_what,
                 )
                 self._enqueue(conn, channel, "alert", ref, now_s, text, items)
 
