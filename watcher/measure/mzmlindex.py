@@ -29,6 +29,7 @@ _INDEX_ATTR_RE = re.compile(rb'\sindex="(\d+)"')
 _INDEX_BLOCK_RE = re.compile(rb'<index\s+name="([^"]*)"\s*>(.*?)</index>', re.S)
 _OFFSET_ENTRY_RE = re.compile(rb"<offset\s([^>]*)>\s*(\d+)\s*</offset>")
 _ID_REF_RE = re.compile(rb'\bidRef="([^"]*)"')
+_USUAL_START_RE = re.compile(rb'<spectrum index="(\d+)" id="([^"<>]*)"[\s/>]')
 _HEAD_BYTES = 512  # the spectrum start tag and its first cvParams (ms level) fit in this
 _HEADER_BYTES = 4096  # a typical spectrum header, up to <binaryDataArrayList>
 _MAX_INDEX_BYTES = 256 * 1024 * 1024
@@ -116,6 +117,11 @@ def load_offset_index(fd: int, size: int) -> OffsetIndex | None:
 
 def _lands_on_spectrum(head: bytes, position: int, id_ref: bytes) -> bool:
     """``head`` (bytes read at an indexed offset) opens ``<spectrum`` with this id and index."""
+    # The usual start tag (index then id, as the index writes the idRef) is one match; any
+    # other form, or a mismatch, gets the full check below.
+    usual = _USUAL_START_RE.match(head)
+    if usual is not None and usual.group(2) == id_ref and int(usual.group(1)) == position:
+        return True
     if not head.startswith(b"<spectrum") or head[9:10] not in (b" ", b"\t", b"\n", b"\r"):
         return False
     close = head.find(b">")
@@ -182,7 +188,9 @@ def indexed_scans(
             data = _whole_element(os.pread(fd, end - start, start), i)
             yield _ms1_with_arrays(data, i, pre, parse)
             continue
-        data, cut = _header_bytes(fd, start, end, i, head)
+        data, cut = head, head.find(b"<binaryDataArrayList")
+        if cut < 0:  # a long header, or no arrays: read on
+            data, cut = _header_bytes(fd, start, end, i, head)
         scan = fast_header(data, i, end=cut)
         needs_arrays = False
         if scan is None:
@@ -286,70 +294,90 @@ def plain_arrays(data: bytes, cut: int, close: int) -> list[mzml.ArrayPart] | No
 # left to the XML parse, which handles every form; this only saves parsing 9 of 10 spectra.
 _WANTED = rb"MS:1000(?:511|579|127|128|130|129|285|504|505|016|927|744|041|827)"
 # One pass: a wanted accession not followed by name/value (group 2 empty) is not canonical.
+# Possessive repeats: nothing after them can match a quote, so no backtracking is kept.
 _FAST_RE = re.compile(
-    rb'accession="(' + _WANTED + rb')"(?:( name="[^"<>]*" value=")([^"<>]*)"'
-    rb'(?: unitCvRef="[^"<>]*" unitAccession="([^"<>]*)")?)?'
+    rb'accession="(' + _WANTED + rb')"(?:( name="[^"<>]*+" value=")([^"<>]*+)"'
+    rb'(?: unitCvRef="[^"<>]*+" unitAccession="([^"<>]*+)")?+)?+'
 )
 _LENGTH_RE = re.compile(rb'\sdefaultArrayLength="(\d+)"')
-_UNIT_NEEDED = frozenset({mzml.SCAN_START_TIME, mzml.INJECTION_TIME})
+# The accessions as bytes: the findall groups are looked up without decoding each one.
+_B_MS_LEVEL = mzml.MS_LEVEL.encode()
+_B_MS1_SPECTRUM = mzml.MS1_SPECTRUM.encode()
+_B_TIC = mzml.TIC.encode()
+_B_BASE_PEAK_MZ = mzml.BASE_PEAK_MZ.encode()
+_B_BASE_PEAK_INTENSITY = mzml.BASE_PEAK_INTENSITY.encode()
+_B_PROFILE = mzml.PROFILE.encode()
+_B_CENTROID = mzml.CENTROID.encode()
+_B_POSITIVE = mzml.POSITIVE.encode()
+_B_NEGATIVE = mzml.NEGATIVE.encode()
+_B_SCAN_START_TIME = mzml.SCAN_START_TIME.encode()
+_B_INJECTION_TIME = mzml.INJECTION_TIME.encode()
+_B_SELECTED_ION_MZ = mzml.SELECTED_ION_MZ.encode()
+_B_ISOLATION_TARGET_MZ = mzml.ISOLATION_TARGET_MZ.encode()
+_B_CHARGE_STATE = mzml.CHARGE_STATE.encode()
+_B_TIME_UNITS_S = {unit.encode(): factor for unit, factor in mzml.TIME_UNITS_S.items()}
+_ABSENT = (b"", b"")
 
 
 def fast_header(header: bytes, index: int, *, end: int = -1) -> Scan | None:
     """Header scalars straight from the bytes of a canonically written spectrum header.
 
     Only ``header[:end]`` is read (all of it when ``end`` is negative). Returns None (parse
-    the XML instead) whenever the bytes are not in the plain layout.
+    the XML instead) whenever the bytes are not in the plain layout, a value does not parse
+    or a time has no known unit accession.
     """
     stop = len(header) if end < 0 else end
-    if header.find(b"referenceableParamGroupRef", 0, stop) >= 0 or header.find(b"&", 0, stop) >= 0:
+    if header.find(b"&", 0, stop) >= 0 or header.find(b"referenceableParamGroupRef", 0, stop) >= 0:
         return None
-    values: dict[str, tuple[bytes, bytes]] = {}
-    for accession, lead, value, unit in _FAST_RE.findall(header, 0, stop):
+    values: dict[bytes, tuple[bytes, bytes]] = {}
+    # Walked backwards so that, as in the XML path, the first occurrence is the one kept.
+    for accession, lead, value, unit in reversed(_FAST_RE.findall(header, 0, stop)):
         if not lead:
             return None
-        values.setdefault(accession.decode(), (value, unit))
-    if any(acc in values and not values[acc][1] for acc in _UNIT_NEEDED):
-        return None  # a time without unitAccession: let the XML path read unitName
+        values[accession] = (value, unit)
+    get = values.get
     try:
-        level_text = values.get(mzml.MS_LEVEL, (b"", b""))[0]
-        ms_level = int(level_text) if level_text else (1 if mzml.MS1_SPECTRUM in values else None)
-        scan = Scan(
-            index=index,
-            ms_level=ms_level,
-            rt_s=None,
-            tic=_num(values, mzml.TIC),
-            base_peak_mz=_num(values, mzml.BASE_PEAK_MZ),
-            base_peak_intensity=_num(values, mzml.BASE_PEAK_INTENSITY),
-            is_profile=True
-            if mzml.PROFILE in values
-            else False
-            if mzml.CENTROID in values
-            else None,
-            polarity=1 if mzml.POSITIVE in values else -1 if mzml.NEGATIVE in values else None,
-            injection_time_ms=None,
-            precursor_mz=_num(values, mzml.SELECTED_ION_MZ),
-        )
-        if mzml.SCAN_START_TIME in values:
-            value_s = _num(values, mzml.SCAN_START_TIME)
-            factor = mzml.TIME_UNITS_S.get(values[mzml.SCAN_START_TIME][1].decode())
-            scan.rt_s = None if value_s is None or factor is None else value_s * factor
-        if mzml.INJECTION_TIME in values:
-            value_ms = _num(values, mzml.INJECTION_TIME)
-            factor = mzml.TIME_UNITS_S.get(values[mzml.INJECTION_TIME][1].decode())
-            if value_ms is not None:
-                scan.injection_time_ms = value_ms if factor is None else value_ms * factor * 1e3
-        charge = _num(values, mzml.CHARGE_STATE)
-        scan.precursor_charge = None if charge is None else int(charge)
-        if scan.precursor_mz is None:
-            scan.precursor_mz = _num(values, mzml.ISOLATION_TARGET_MZ)
+        level_text = get(_B_MS_LEVEL, _ABSENT)[0]
+        ms_level = int(level_text) if level_text else (1 if _B_MS1_SPECTRUM in values else None)
+        text = get(_B_TIC, _ABSENT)[0]
+        tic = float(text) if text else None
+        text = get(_B_BASE_PEAK_MZ, _ABSENT)[0]
+        base_peak_mz = float(text) if text else None
+        text = get(_B_BASE_PEAK_INTENSITY, _ABSENT)[0]
+        base_peak_intensity = float(text) if text else None
+        # The selected ion's m/z, else the isolation target (as the XML path).
+        text = get(_B_SELECTED_ION_MZ, _ABSENT)[0] or get(_B_ISOLATION_TARGET_MZ, _ABSENT)[0]
+        precursor_mz = float(text) if text else None
+        text = get(_B_CHARGE_STATE, _ABSENT)[0]
+        precursor_charge = int(float(text)) if text else None
+        rt_s = injection_time_ms = None
+        found = get(_B_SCAN_START_TIME)
+        if found is not None:
+            factor = _B_TIME_UNITS_S.get(found[1])
+            if factor is None:
+                return None  # no unit, or one we do not know: the XML path reads unitName
+            rt_s = float(found[0]) * factor if found[0] else None
+        found = get(_B_INJECTION_TIME)
+        if found is not None:
+            factor = _B_TIME_UNITS_S.get(found[1])
+            if factor is None:
+                return None
+            injection_time_ms = float(found[0]) * factor * 1e3 if found[0] else None
     except ValueError:
         return None  # let the XML path name the bad value
-    return scan
-
-
-def _num(values: dict[str, tuple[bytes, bytes]], accession: str) -> float | None:
-    value = values.get(accession, (b"", b""))[0]
-    return float(value) if value else None
+    return Scan(
+        index=index,
+        ms_level=ms_level,
+        rt_s=rt_s,
+        tic=tic,
+        base_peak_mz=base_peak_mz,
+        base_peak_intensity=base_peak_intensity,
+        is_profile=True if _B_PROFILE in values else False if _B_CENTROID in values else None,
+        polarity=1 if _B_POSITIVE in values else -1 if _B_NEGATIVE in values else None,
+        injection_time_ms=injection_time_ms,
+        precursor_mz=precursor_mz,
+        precursor_charge=precursor_charge,
+    )
 
 
 def _spectrum_id(data: bytes) -> str:
