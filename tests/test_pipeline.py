@@ -18,7 +18,8 @@ def runs(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, Path]:
     tiny = folder / "QC_tiny.mzML"
     synth.write_mzml(tiny, synth.RunSpec(duration_s=10, ms2_per_cycle=0, seed=1), indexed=False)
     big = folder / "QC_big.mzML"
-    synth.write_mzml(big, synth.RunSpec(duration_s=1800, ms2_per_cycle=3, seed=2), indexed=False)
+    # About 50 MB: several tenths of a second to measure even without arrays, far over 0.05 s.
+    synth.write_mzml(big, synth.RunSpec(duration_s=3600, ms2_per_cycle=3, seed=2), indexed=False)
     return tiny, big
 
 
@@ -45,12 +46,12 @@ def test_child_measures_then_times_out_then_recovers(runs):
         ok = child.measure(Config(), tiny, tiny.stat().st_size)
         assert ok.metrics is not None
         assert ok.metrics.signal.ms1_count == 5  # 10 s at one MS1 scan per 2 s (RunSpec default)
-        strict = Config(limits=Limits(parse_timeout_s=0.3, parse_timeout_s_per_gb=0))
+        strict = Config(limits=Limits(parse_timeout_s=0.05, parse_timeout_s_per_gb=0))
         slow = child.measure(strict, big, big.stat().st_size)
         assert (slow.metrics, slow.error_kind, slow.error) == (
             None,
             "timeout",
-            "timeout after 0.3 s",
+            "timeout after 0.05 s",
         )
         again = child.measure(Config(), tiny, tiny.stat().st_size)
         assert again.metrics is not None
