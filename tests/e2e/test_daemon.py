@@ -188,14 +188,14 @@ def test_sigstop_then_many_files(lab: Lab, n_files: int) -> None:
 def test_time_limit_kills_child_and_daemon_goes_on(lab: Lab, big_run: Path) -> None:
     """A run past the wall-clock limit is unreadable 'timeout after N s'; the next run is judged."""
     # The big run takes about a second to measure here (0.9 s CPU), the tiny one about 0.02 s.
-    lab.write_config(limits={"parse_timeout_s": 0.3, "parse_timeout_s_per_gb": 0})
+    lab.write_config(limits={"parse_timeout_s": 0.2, "parse_timeout_s_per_gb": 0})
     d = lab.start()
     shutil.copy(big_run, lab.exports / "QC_slow_parse.mzML")
     lab.wait_runs(1, timeout_s=30)
     lab.drop("QC_after.mzML", 1)
     runs = {name: (status, error) for name, status, error in lab.wait_runs(2, timeout_s=30)}
     assert d.stop() == 0
-    assert runs["QC_slow_parse.mzML"] == ("unreadable", "timeout after 0.3 s")
+    assert runs["QC_slow_parse.mzML"] == ("unreadable", "timeout after 0.2 s")
     assert runs["QC_after.mzML"][0] == "ok"
 
 
