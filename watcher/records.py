@@ -168,6 +168,16 @@ class RunMetrics:
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
+class HistoryPoint:
+    """One earlier run's value of one metric, as the store hands it to the rules."""
+
+    file_name: str
+    acquired_at: datetime
+    value: float | bool | None
+    status: Status
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
 class Finding:
     """A check that fired on a run.
 

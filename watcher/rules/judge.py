@@ -33,7 +33,7 @@ from datetime import UTC, datetime
 from typing import Protocol
 
 from watcher.config import Check, Condition, matches_applies_to
-from watcher.records import STATUS_RANK, Finding, RunMetrics, Severity, Status
+from watcher.records import STATUS_RANK, Finding, HistoryPoint, RunMetrics, Severity, Status
 from watcher.rules import messages, trend, westgard
 from watcher.rules.baseline import Baseline, from_spec
 from watcher.rules.checks import (
@@ -49,16 +49,6 @@ WESTGARD_RUNS = 9  # 10x needs the nine runs before this one
 ACCEPTED = (Status.OK, Status.NOTICE)
 # metric paths measured from MS1 spectra only
 MS1_ONLY_PREFIXES = ("calibrant.", "expected_ion.", "expected_ions.", "mass_correction.")
-
-
-@dataclass(frozen=True, slots=True, kw_only=True)
-class HistoryPoint:
-    """One earlier run's value of one metric."""
-
-    file_name: str
-    acquired_at: datetime
-    value: float | bool | None
-    status: Status
 
 
 class History(Protocol):

@@ -27,8 +27,7 @@ from fnmatch import fnmatchcase
 from typing import Any
 
 from watcher.config import matches_applies_to
-from watcher.records import Finding, Severity, Status, Verdict
-from watcher.rules.judge import HistoryPoint
+from watcher.records import Finding, HistoryPoint, Severity, Status, Verdict
 from watcher.store.db import register_schema
 
 SCHEMA = """
