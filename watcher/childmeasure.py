@@ -96,7 +96,10 @@ def main() -> int:
     # whole service on stop must not turn a good run into an "unreadable" one.
     signal.signal(signal.SIGTERM, signal.SIG_IGN)
     signal.signal(signal.SIGINT, signal.SIG_IGN)
-    import watcher.measure.run  # noqa: F401 - imported once, before the ready byte
+    # Imported once, before the ready byte: measure_file imports its readers lazily, and the
+    # first run would otherwise pay for pyteomics and the readers inside its time limit.
+    import watcher.measure.read
+    import watcher.measure.run  # noqa: F401
 
     try:
         from watcher.measure.cv import load_cv

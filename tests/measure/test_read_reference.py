@@ -104,13 +104,17 @@ def _check_against(scans: list[Scan], rows: list[dict[str, str]]) -> None:
             assert _close(scan.rt_s, row["rt_seconds"], 1e-9)  # spectra.tsv rt_seconds
         else:
             assert scan.rt_s is None
-        if row["polarity"]:
+        # Past MS1 a reader may leave these None (scan.NON_MS1_FIELDS); if filled, they match.
+        full = scan.ms_level == 1
+        if row["polarity"] and (full or scan.polarity is not None):
             assert scan.polarity == (1 if row["polarity"] == "+" else -1)  # spectra.tsv polarity
-        if row["representation"] in ("centroid", "profile"):
+        if row["representation"] in ("centroid", "profile") and (
+            full or scan.is_profile is not None
+        ):
             assert scan.is_profile is (row["representation"] == "profile")
-        if row["header_tic"]:
+        if row["header_tic"] and (full or scan.tic is not None):
             assert _close(scan.tic, row["header_tic"], 1e-9)  # spectra.tsv header_tic
-        if row["header_base_peak_intensity"]:
+        if row["header_base_peak_intensity"] and (full or scan.base_peak_intensity is not None):
             assert _close(scan.base_peak_intensity, row["header_base_peak_intensity"], 1e-9)
             assert _close(scan.base_peak_mz, row["header_base_peak_mz"], 1e-9)
         if row["ion_injection_time_ms"]:

@@ -191,7 +191,10 @@ def indexed_scans(
         data, cut = head, head.find(b"<binaryDataArrayList")
         if cut < 0:  # a long header, or no arrays: read on
             data, cut = _header_bytes(fd, start, end, i, head)
-        scan = fast_header(data, i, end=cut)
+        # MS2 and up: only the fields the metrics read (scan.NON_MS1_FIELDS).
+        scan = (
+            light_header(data, i, level, end=cut) if level is not None and level != 1 else None
+        ) or fast_header(data, i, end=cut)
         needs_arrays = False
         if scan is None:
             fragment = data[:cut] + b"</spectrum>" if cut >= 0 else data
@@ -374,6 +377,82 @@ def fast_header(header: bytes, index: int, *, end: int = -1) -> Scan | None:
         base_peak_intensity=base_peak_intensity,
         is_profile=True if _B_PROFILE in values else False if _B_CENTROID in values else None,
         polarity=1 if _B_POSITIVE in values else -1 if _B_NEGATIVE in values else None,
+        injection_time_ms=injection_time_ms,
+        precursor_mz=precursor_mz,
+        precursor_charge=precursor_charge,
+    )
+
+
+# The rest of a canonical cvParam after its accession: name, value[, unitCvRef, unitAccession].
+_PARAM_TAIL_RE = re.compile(
+    rb'" name="[^"<>]*+" value="([^"<>]*+)"(?: unitCvRef="[^"<>]*+" unitAccession="([^"<>]*+)")?+'
+)
+_KEY_SCAN_START_TIME = b'accession="' + _B_SCAN_START_TIME
+_KEY_INJECTION_TIME = b'accession="' + _B_INJECTION_TIME
+_KEY_SELECTED_ION_MZ = b'accession="' + _B_SELECTED_ION_MZ
+_KEY_ISOLATION_TARGET_MZ = b'accession="' + _B_ISOLATION_TARGET_MZ
+_KEY_CHARGE_STATE = b'accession="' + _B_CHARGE_STATE
+
+
+class _NotPlain(Exception):
+    """A wanted cvParam is not in the plain layout: the caller takes the full path."""
+
+
+def _first_param(header: bytes, key: bytes, stop: int) -> tuple[bytes, bytes] | None:
+    """Value and unit accession of the first cvParam ``key`` opens, None if there is none."""
+    at = header.find(key, 0, stop)
+    if at < 0:
+        return None
+    tail = _PARAM_TAIL_RE.match(header, at + len(key), stop)
+    if tail is None:
+        raise _NotPlain
+    return tail.group(1), tail.group(2) or b""
+
+
+def light_header(header: bytes, index: int, ms_level: int, *, end: int = -1) -> Scan | None:
+    """The ``NON_MS1_FIELDS`` of a spectrum of ``ms_level`` (not 1), one search per field.
+
+    Each field is the first occurrence of its accession, exactly as ``fast_header`` takes it,
+    and None is returned in the same cases (escapes, param groups, a param off the plain
+    layout, an unknown time unit, a value that does not parse). The other header fields (TIC,
+    base peak, polarity, spectrum type) stay None: no metric reads them for MS2.
+    """
+    stop = len(header) if end < 0 else end
+    if header.find(b"&", 0, stop) >= 0 or header.find(b"referenceableParamGroupRef", 0, stop) >= 0:
+        return None
+    try:
+        rt_s = injection_time_ms = precursor_mz = None
+        precursor_charge = None
+        found = _first_param(header, _KEY_SCAN_START_TIME, stop)
+        if found is not None:
+            factor = _B_TIME_UNITS_S.get(found[1])
+            if factor is None:
+                return None  # no unit, or one we do not know: the XML path reads unitName
+            rt_s = float(found[0]) * factor if found[0] else None
+        found = _first_param(header, _KEY_INJECTION_TIME, stop)
+        if found is not None:
+            factor = _B_TIME_UNITS_S.get(found[1])
+            if factor is None:
+                return None
+            injection_time_ms = float(found[0]) * factor * 1e3 if found[0] else None
+        # The selected ion's m/z, else the isolation target (as the XML path).
+        found = _first_param(header, _KEY_SELECTED_ION_MZ, stop)
+        if found is None or not found[0]:
+            found = _first_param(header, _KEY_ISOLATION_TARGET_MZ, stop)
+        if found is not None and found[0]:
+            precursor_mz = float(found[0])
+        found = _first_param(header, _KEY_CHARGE_STATE, stop)
+        if found is not None and found[0]:
+            precursor_charge = int(float(found[0]))
+    except (_NotPlain, ValueError):
+        return None  # the full path reads it, or names the bad value
+    return Scan(
+        index=index,
+        ms_level=ms_level,
+        rt_s=rt_s,
+        tic=None,
+        base_peak_mz=None,
+        base_peak_intensity=None,
         injection_time_ms=injection_time_ms,
         precursor_mz=precursor_mz,
         precursor_charge=precursor_charge,

@@ -4,6 +4,12 @@ The codec is chosen by accession, never by the cvParam's name: files exist whose
 accessions disagree, and a codec picked by name returns plausible-looking garbage
 (shared/reference/README.md, pitfall 1). A compression this module cannot decode is an error,
 never "no compression".
+
+Decoding is the bulk of a QC pass over MS1 (bench/, DEVELOPERS.md "Benchmarks"), so the two
+steps use SIMD implementations: pybase64 (strict alphabet, as the standard library's
+``validate=True``) and ISA-L's zlib-compatible inflate (same format, adler-32 checked). Any text
+pybase64 refuses goes to the standard library's decoder, so what is accepted, and every error
+message, stay as before.
 """
 
 from __future__ import annotations
@@ -12,9 +18,12 @@ import base64
 import binascii
 import zlib
 from collections.abc import Callable
+from typing import cast
 
 import numpy as np
+import pybase64
 import pynumpress
+from isal import isal_zlib
 
 from watcher.measure.scan import FloatArray
 
@@ -42,6 +51,8 @@ DTYPES: dict[str, str] = {
     "MS:1000522": "<i8",  # 64-bit integer
     "MS:1000520": "<f2",  # 16-bit float
 }
+# isal's stub types ``error`` as an instance; at run time it is the exception class.
+_INFLATE_ERRORS: tuple[type[Exception], ...] = (zlib.error, cast(type[Exception], isal_zlib.error))
 KNOWN_COMPRESSIONS = frozenset({NO_COMPRESSION, ZLIB, *_NUMPRESS})
 
 
@@ -72,8 +83,8 @@ def decode_array(
     raw = _b64(text)
     if compression == ZLIB or _NUMPRESS.get(compression, ("", False))[1]:
         try:
-            raw = zlib.decompress(raw) if raw else raw
-        except zlib.error as exc:
+            raw = isal_zlib.decompress(raw) if raw else raw
+        except _INFLATE_ERRORS as exc:
             raise ArrayDecodeError(f"corrupt zlib data ({exc})") from None
     if compression in _NUMPRESS:
         values = _numpress(raw, _NUMPRESS[compression][0])
@@ -95,7 +106,11 @@ def _b64(text: str | bytes | None) -> bytes:
     data = text.encode("ascii", "replace") if isinstance(text, str) else text
     try:
         # Most writers put no whitespace in <binary>: decode the text as it is, no copy.
-        return base64.b64decode(data, validate=True)
+        return pybase64.b64decode(data, validate=True)
+    except (binascii.Error, ValueError):
+        pass
+    try:
+        return base64.b64decode(data, validate=True)  # the standard library's padding rules
     except binascii.Error:
         pass
     stripped = b"".join(data.split())  # wrapped text (RFC 2045 lines) is valid mzML
