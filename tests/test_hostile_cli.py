@@ -371,6 +371,7 @@ def test_expected_ion_window_outside_the_run_is_not_found(tmp_path: Path) -> Non
     run = json.loads(proc.stdout)["runs"][0]
     assert run["expected_ions"][0]["found"] is False
     assert run["status"] == "critical"
+    assert any("no MS1 scan in its RT window 50-60 min" in note for note in run["notes"])
 
 
 def test_no_rt_at_all(tmp_path: Path) -> None:

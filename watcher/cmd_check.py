@@ -359,7 +359,7 @@ def render_text(verdict: Verdict, out: TextIO, *, colour: bool = False) -> None:
             [
                 i.name,
                 f"{i.mz:.6f}",
-                "yes" if i.found else "NO",
+                "n/a" if i.found is None else "yes" if i.found else "NO",
                 _num(None if i.apex_rt_s is None else i.apex_rt_s / 60.0, ".2f"),
                 _num(i.apex_intensity, ".3g"),
                 _num(i.ppm, ".2f", signed=True),

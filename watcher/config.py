@@ -304,7 +304,9 @@ def is_yes_no_metric(metric: str) -> bool:
     cls = records.get(group)
     if cls is None:
         return False
-    return any(f.name == name and str(f.type) == "bool" for f in dataclasses.fields(cls))
+    return any(
+        f.name == name and str(f.type) in ("bool", "bool | None") for f in dataclasses.fields(cls)
+    )
 
 
 def known_metric_paths(calibrants: Iterable[str], expected_ions: Iterable[str]) -> tuple[str, ...]:

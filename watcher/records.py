@@ -111,7 +111,9 @@ class ExpectedIonResult:
 
     name: str
     mz: float
-    found: bool
+    # None: not searchable in this run (no MS1 spectra, e.g. MGF, or MS1 without peak arrays);
+    # RunMetrics.notes says why. An RT window outside the run is searched and not found.
+    found: bool | None
     apex_rt_s: float | None
     apex_intensity: float | None
     ppm: float | None  # mass error at the apex
@@ -152,10 +154,14 @@ class RunMetrics:
             for f in dataclasses.fields(ExpectedIonResult):
                 if f.name != "name":
                     out[f"expected_ion.{ion.name}.{f.name}"] = getattr(ion, f.name)
-        if self.expected_ions:
-            n_found = sum(1 for ion in self.expected_ions if ion.found)
-            out["expected_ions.found_fraction"] = n_found / len(self.expected_ions)
-            out["expected_ions.missing_count"] = float(len(self.expected_ions) - n_found)
+        searched = [ion for ion in self.expected_ions if ion.found is not None]
+        if searched:
+            n_found = sum(1 for ion in searched if ion.found)
+            out["expected_ions.found_fraction"] = n_found / len(searched)
+            out["expected_ions.missing_count"] = float(len(searched) - n_found)
+        elif self.expected_ions:
+            out["expected_ions.found_fraction"] = None
+            out["expected_ions.missing_count"] = None
         if self.mass_correction is not None:
             out["mass_correction.intercept_ppm"] = self.mass_correction.intercept_ppm
             out["mass_correction.slope_ppm_per_mz"] = self.mass_correction.slope_ppm_per_mz

@@ -15,7 +15,7 @@ from tests.refdata import REFERENCE as SHARED_REFERENCE
 from watcher.config import Config, ExpectedIon, IonSpec
 from watcher.errors import ConfigError, ReadError
 from watcher.measure.ions import resolve
-from watcher.measure.run import NO_MS1_NOTE, measure_file, measure_scans
+from watcher.measure.run import NO_ARRAYS_NOTE, NO_MS1_NOTE, measure_file, measure_scans
 from watcher.measure.scan import Scan
 
 REFERENCE = SHARED_REFERENCE
@@ -100,8 +100,39 @@ def test_run_without_ms1_has_note_and_null_measures() -> None:
     assert metrics.signal.ms2_count == 4
     assert metrics.signal.ms1_count == 0
     assert all(c.median_ppm is None and str(c.found_fraction) == "nan" for c in metrics.calibrants)
-    assert all(not ion.found and ion.apex_rt_s is None for ion in metrics.expected_ions)
+    # Issue 2: MGF has no MS1, so XIC metrics are null, presence included (not "missing").
+    assert all(ion.found is None and ion.apex_rt_s is None for ion in metrics.expected_ions)
+    assert metrics.flat()["expected_ions.found_fraction"] is None
     assert metrics.mass_correction is None
+
+
+def test_ms1_without_peak_arrays_leaves_presence_unknown() -> None:
+    """MS1 headers but no peak arrays: expected ions not searchable (None), with a note."""
+    scans = [
+        Scan(index=i, ms_level=1, rt_s=2.0 * i, tic=1e6, base_peak_mz=400.0,
+             base_peak_intensity=1e5)
+        for i in range(10)
+    ]  # fmt: skip
+    metrics = measure_scans(header(), scans, DEMO, file_name="QC_0413.mzML")
+    assert NO_ARRAYS_NOTE in metrics.notes
+    assert all(ion.found is None for ion in metrics.expected_ions)
+
+
+def test_window_outside_the_run_is_not_found_with_a_note() -> None:
+    """An RT window past the end of the run: searched, not found, and a note says why."""
+    ion = resolve(CAFFEINE)
+    scans = make_run(
+        duration_s=120,
+        analytes=[Analyte(mz=ion.mz, charge=1, apex_rt_s=60.0, fwhm_rt_s=8.0, height=5e5)],
+    )
+    config = Config(expected_ions=(ExpectedIon(ion=CAFFEINE, rt_window_min=(8.0, 9.0)),))
+    metrics = measure_scans(header(), scans, config, file_name="QC_0414.mzML")
+    assert metrics.expected_ions[0].found is False  # a run cut short must still alarm
+    assert metrics.flat()["expected_ions.found_fraction"] == 0.0
+    (note,) = metrics.notes
+    assert "caffeine" in note
+    assert "8-9 min" in note
+    assert "reported not found" in note
 
 
 @pytest.mark.parametrize(

@@ -77,11 +77,14 @@ def measure_scans(
     if signal_metrics.ms1_count == 0:
         if calibrants or expected:
             notes.append(NO_MS1_NOTE)
-        ions = tuple(absent(xic.ion) for xic in expected)
-    else:
-        if (calibrants or expected) and ms1_with_arrays == 0:
+        ions = tuple(absent(xic.ion, searched=False) for xic in expected)
+    elif ms1_with_arrays == 0:
+        if calibrants or expected:
             notes.append(NO_ARRAYS_NOTE)
+        ions = tuple(absent(xic.ion, searched=False) for xic in expected)
+    else:
         ions = tuple(xic.summary() for xic in expected)
+        notes.extend(_window_notes(expected, signal_metrics.rt_start_s, signal_metrics.rt_end_s))
     acquired_at = _parse_acquired_at(header.acquired_at_iso)
     if header.acquired_at_iso and acquired_at is None:
         notes.append(f"run start time {header.acquired_at_iso!r} is not ISO-8601; ignored")
@@ -133,6 +136,30 @@ def measure_file(
     if metrics.signal.ms1_count + metrics.signal.ms2_count == 0:
         raise ReadError(path, "no spectra in file", kind="empty")
     return metrics
+
+
+def _window_notes(
+    expected: list[XicTrace], rt_start_s: float | None, rt_end_s: float | None
+) -> list[str]:
+    """A note per expected ion whose RT window held no MS1 scan: not found, and why.
+
+    It stays "not found" (a run cut short by a failing spray must still alarm); the note tells
+    an operator whether the method or the config is the one to look at.
+    """
+    span = (
+        f"{rt_start_s / 60:.2f}-{rt_end_s / 60:.2f} min"
+        if rt_start_s is not None and rt_end_s is not None
+        else "unknown"
+    )
+    notes = []
+    for xic in expected:
+        if xic.scans_in_window == 0 and xic.window_s is not None:
+            lo, hi = xic.window_s
+            notes.append(
+                f"expected ion {xic.ion.name}: no MS1 scan in its RT window "
+                f"{lo / 60:g}-{hi / 60:g} min (the run spans {span}); reported not found"
+            )
+    return notes
 
 
 def _is_gzip(path: Path) -> bool:

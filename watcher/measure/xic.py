@@ -65,6 +65,11 @@ class XicTrace:
         self.mz.append(float("nan") if peak is None else peak[0])
         self.m1_intensity.append(0.0 if m1 is None else m1[1])
 
+    @property
+    def scans_in_window(self) -> int:
+        """How many MS1 scans fell in the RT window (0: the window lies outside the run)."""
+        return len(self.rt_s)
+
     def summary(self) -> ExpectedIonResult:
         """The ion's result; not seen in the window gives found False and None elsewhere."""
         rt = np.frombuffer(self.rt_s, dtype=np.float64)
@@ -91,12 +96,12 @@ class XicTrace:
         )
 
 
-def absent(ion: ResolvedIon) -> ExpectedIonResult:
-    """The result for an ion never seen (or a run without MS1 spectra)."""
+def absent(ion: ResolvedIon, *, searched: bool = True) -> ExpectedIonResult:
+    """The result for an ion never seen; ``searched=False``: a run it cannot be looked for in."""
     return ExpectedIonResult(
         name=ion.name,
         mz=ion.mz,
-        found=False,
+        found=False if searched else None,
         apex_rt_s=None,
         apex_intensity=None,
         ppm=None,

@@ -5,7 +5,8 @@
 - Metric paths: ``*`` stands for one or more characters, so ``calibrant.*.median_ppm`` expands
   to one path per calibrant in ``RunMetrics.flat()`` (names may themselves contain dots).
 - Missing values: a metric that is None or NaN was not measured; no condition holds on it, so it
-  gives no finding (``expected_ion.<name>.found`` is always a bool, so ``is: false`` still works).
+  gives no finding. ``expected_ion.<name>.found`` is a bool wherever MS1 peaks could be searched
+  (so ``is: false`` fires on a missing ion), None only in runs without them (MGF, no MS1).
 - Conditions: numeric fields test only numbers and ``is`` tests only booleans; the baseline
   fields (ratio, difference, z) hold only when a baseline exists, and z only when its SD > 0.
 """
