@@ -8,8 +8,8 @@ from zoneinfo import ZoneInfo
 
 import pytest
 
-from watcher.config import Config
-from watcher.daemon import in_active_hours, state_dir_of
+from watcher.config import Config, state_dir_of
+from watcher.heartbeat import in_active_hours
 
 
 def _at(text: str, tz: str = "Europe/Oslo") -> float:

@@ -15,8 +15,7 @@ from zoneinfo import ZoneInfo
 
 import structlog
 
-from watcher.cmd_status import state_dir_of
-from watcher.config import load
+from watcher.config import load, state_dir_of
 from watcher.errors import StoreError
 
 log = structlog.get_logger("watcher.cmd_digest")

@@ -16,7 +16,7 @@ from pathlib import Path
 from typing import Any
 from zoneinfo import ZoneInfo
 
-from watcher.config import Config, load
+from watcher.config import Config, load, state_dir_of
 from watcher.errors import StoreError
 
 EXIT_OK = 0
@@ -24,14 +24,6 @@ EXIT_ATTENTION = 1
 EXIT_NO_STATE = 3
 RECENT_ABANDONED_S = 24 * 3600.0
 LAST_RUNS = 10
-
-
-def state_dir_of(config: Config) -> Path:
-    """``state_dir`` from the config, else ``state/`` beside the config file (as the daemon)."""
-    if config.state_dir is not None:
-        return Path(config.state_dir)
-    base = config.source.parent if config.source is not None else Path.cwd()
-    return base / "state"
 
 
 def collect(config: Config, state_dir: Path, *, now_s: float) -> dict[str, Any]:

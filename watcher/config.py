@@ -335,3 +335,11 @@ def metric_path_problem(
     return f"{message}; expected signal.<value>, calibrant.<name|*>.<value>, " + (
         "expected_ion.<name|*>.<value>, expected_ions.<value> or mass_correction.<value>"
     )
+
+
+def state_dir_of(config: Config) -> Path:
+    """The state folder: ``state_dir`` from the config, else ``state/`` beside the config file."""
+    if config.state_dir is not None:
+        return Path(config.state_dir)
+    base = config.source.parent if config.source is not None else Path.cwd()
+    return base / "state"

@@ -18,17 +18,15 @@ import sqlite3
 import threading
 import time
 from collections.abc import Callable
-from datetime import datetime
 from pathlib import Path
 from types import FrameType
 from typing import Any
-from zoneinfo import ZoneInfo
 
 import structlog
 
 from watcher import config as config_mod
-from watcher import logs, sdnotify
-from watcher.config import Config
+from watcher import heartbeat, logs, sdnotify
+from watcher.config import Config, state_dir_of
 from watcher.errors import ConfigError, ConfigProblem, IonwardenError, StoreError
 from watcher.intake import watch
 from watcher.intake.settle import FileStat
@@ -43,32 +41,6 @@ TICK_S = 0.1
 STATUS_EVERY_S = 2.0
 NOTIFY_TICK_EVERY_S = 1.0
 CHECKPOINT_EVERY_S = 3600.0
-_HEARTBEAT_KEY = "heartbeat.missed"
-
-
-def state_dir_of(config: Config) -> Path:
-    """The state folder: ``state_dir`` from the config, else ``state/`` beside the config file."""
-    if config.state_dir is not None:
-        return Path(config.state_dir)
-    base = config.source.parent if config.source is not None else Path.cwd()
-    return base / "state"
-
-
-def in_active_hours(now_s: float, tz_name: str, hours: tuple[str, str] | None) -> bool:
-    """True when ``now_s`` falls in the local window ``(start, end)`` (may wrap midnight)."""
-    if hours is None:
-        return True
-    local = datetime.fromtimestamp(now_s, ZoneInfo(tz_name))
-    minute = local.hour * 60 + local.minute
-
-    def parse(text: str) -> int:
-        h, _, m = text.partition(":")
-        return int(h) * 60 + int(m or 0)
-
-    start, end = parse(hours[0]), parse(hours[1])
-    if start <= end:
-        return start <= minute < end
-    return minute >= start or minute < end
 
 
 class Daemon:
@@ -294,40 +266,16 @@ class Daemon:
                     added.append((job_id, item.path))
             if added:
                 self._last_arrival_s = now_s
-                if jobs.get_state(self._conn(), _HEARTBEAT_KEY) == "1":
-                    jobs.set_state(self._conn(), _HEARTBEAT_KEY, "0")
-                    if self.notifier is not None:
-                        self.notifier.record_event(self._conn(), "heartbeat.resumed", now_s)
-                    resumed = True
+                resumed = heartbeat.resume(self._conn(), self.notifier, now_s)
         for job_id, path in added:
             log.info("run.queued", file=str(path), job_id=job_id)
         if resumed:
-            log.info("heartbeat.resumed")
-            if self.notifier is not None:
-                self.notifier.write_event("heartbeat.resumed")
+            heartbeat.announce_resumed(self.notifier)
         if added:
             self.wake_worker.set()
 
     def _heartbeat(self, now_s: float) -> None:
-        every_s = self.config.alerts.expect_run_every_s
-        if every_s is None or now_s - self._last_arrival_s < every_s:
-            return
-        if not in_active_hours(
-            now_s, self.config.instrument.timezone, self.config.alerts.active_hours
-        ):
-            return
-        if jobs.get_state(self._conn(), _HEARTBEAT_KEY) == "1":
-            return
-        silent_s = now_s - self._last_arrival_s
-        with db.write(self._conn()):
-            jobs.set_state(self._conn(), _HEARTBEAT_KEY, "1")
-            if self.notifier is not None:
-                self.notifier.record_event(
-                    self._conn(), "heartbeat.missed", now_s, silent_s=round(silent_s)
-                )
-        log.warning("heartbeat.missed", silent_s=round(silent_s), expected_every_s=every_s)
-        if self.notifier is not None:
-            self.notifier.write_event("heartbeat.missed", silent_s=round(silent_s))
+        heartbeat.check(self._conn(), self.notifier, self.config, now_s, self._last_arrival_s)
 
     def _status(self) -> None:
         counts = jobs.counts(self._conn())

@@ -1,0 +1,80 @@
+"""The heartbeat: no new run for ``expect_run_every`` during active hours is an event.
+
+The state ("missed" raised or not) lives in the SQLite file, so a restart neither repeats the
+event nor forgets it; the next arrival clears it. The daemon's main loop calls ``check`` each
+tick and ``resume`` inside the transaction that queues new runs.
+"""
+
+from __future__ import annotations
+
+import sqlite3
+from datetime import datetime
+from typing import Any
+from zoneinfo import ZoneInfo
+
+import structlog
+
+from watcher.config import Config
+from watcher.store import db, jobs
+
+log = structlog.get_logger("watcher.daemon")
+
+STATE_KEY = "heartbeat.missed"
+
+
+def in_active_hours(now_s: float, tz_name: str, hours: tuple[str, str] | None) -> bool:
+    """True when ``now_s`` falls in the local window ``(start, end)`` (may wrap midnight)."""
+    if hours is None:
+        return True
+    local = datetime.fromtimestamp(now_s, ZoneInfo(tz_name))
+    minute = local.hour * 60 + local.minute
+
+    def parse(text: str) -> int:
+        h, _, m = text.partition(":")
+        return int(h) * 60 + int(m or 0)
+
+    start, end = parse(hours[0]), parse(hours[1])
+    if start <= end:
+        return start <= minute < end
+    return minute >= start or minute < end
+
+
+def check(
+    conn: sqlite3.Connection, notifier: Any, config: Config, now_s: float, last_arrival_s: float
+) -> None:
+    """Raise the "missed" event once when the queue has been silent too long in active hours."""
+    every_s = config.alerts.expect_run_every_s
+    if every_s is None or now_s - last_arrival_s < every_s:
+        return
+    if not in_active_hours(now_s, config.instrument.timezone, config.alerts.active_hours):
+        return
+    if jobs.get_state(conn, STATE_KEY) == "1":
+        return
+    silent_s = round(now_s - last_arrival_s)
+    with db.write(conn):
+        jobs.set_state(conn, STATE_KEY, "1")
+        if notifier is not None:
+            notifier.record_event(conn, "heartbeat.missed", now_s, silent_s=silent_s)
+    log.warning("heartbeat.missed", silent_s=silent_s, expected_every_s=every_s)
+    if notifier is not None:
+        notifier.write_event("heartbeat.missed", silent_s=silent_s)
+
+
+def resume(conn: sqlite3.Connection, notifier: Any, now_s: float) -> bool:
+    """Clear a raised "missed" state; call inside the write that queues the new runs.
+
+    Returns whether it was raised, so that the caller announces the resumption after commit.
+    """
+    if jobs.get_state(conn, STATE_KEY) != "1":
+        return False
+    jobs.set_state(conn, STATE_KEY, "0")
+    if notifier is not None:
+        notifier.record_event(conn, "heartbeat.resumed", now_s)
+    return True
+
+
+def announce_resumed(notifier: Any) -> None:
+    """Log and write the resumption (after the transaction of ``resume`` committed)."""
+    log.info("heartbeat.resumed")
+    if notifier is not None:
+        notifier.write_event("heartbeat.resumed")
