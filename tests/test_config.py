@@ -490,3 +490,13 @@ def test_any_yaml_gives_a_config_or_config_error(data: dict[str, object]) -> Non
     if config is None:
         assert problems
         assert all(p.file == "lab.yaml" and p.message for p in problems)
+
+
+def test_retry_waits_read_and_default() -> None:
+    """alerts.retry_first_wait / retry_max_wait are durations; 5 s and 10 min when left out."""
+    config = load_config_text(
+        "alerts: {retry_first_wait: 30s, retry_max_wait: 1h}\n", source="lab.yaml"
+    )
+    assert (config.alerts.retry_first_wait_s, config.alerts.retry_max_wait_s) == (30.0, 3600.0)
+    default = load_config_text("alerts: {}\n", source="lab.yaml")
+    assert (default.alerts.retry_first_wait_s, default.alerts.retry_max_wait_s) == (5.0, 600.0)

@@ -65,6 +65,12 @@ CASES = [
         "got '4 hours'",
     ),
     _case(
+        "retry-waits-reversed",
+        "alerts: {retry_first_wait: 20min, retry_max_wait: 10min}  #<\n",
+        "alerts.retry_first_wait",
+        "retry_first_wait (1200 s) is longer than retry_max_wait (600 s)",
+    ),
+    _case(
         "unknown-severity",
         """\
         alerts:

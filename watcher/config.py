@@ -203,6 +203,9 @@ class Alerts:
     connect_timeout_s: float = 10.0  # per URL (apprise cto)
     read_timeout_s: float = 10.0  # per URL (apprise rto)
     retry_for_s: float = 24 * 3600.0  # give up on a message older than this
+    # Wait before the first retry of a failed delivery; it doubles per attempt up to the max.
+    retry_first_wait_s: float = 5.0
+    retry_max_wait_s: float = 600.0
     plots: bool = False  # attach a PNG of the metric history where the channel takes attachments
 
 

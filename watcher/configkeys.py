@@ -83,6 +83,8 @@ KEYS: dict[str, tuple[str, ...]] = {
         "connect_timeout_s",
         "read_timeout_s",
         "retry_for",
+        "retry_first_wait",
+        "retry_max_wait",
         "plots",
     ),
     "channel": ("name", "url", "min_severity", "checks"),

@@ -184,8 +184,20 @@ def _alerts(v: Values, data: Any, check_names: set[str]) -> Alerts:
     for key in ("timeout_s", "connect_timeout_s", "read_timeout_s"):
         v.put(kw, m, path, key, lambda p, x: v.duration(p, x))
     v.put(kw, m, path, "retry_for", lambda p, x: v.duration(p, x), field="retry_for_s")
+    v.put(
+        kw, m, path, "retry_first_wait", lambda p, x: v.duration(p, x), field="retry_first_wait_s"
+    )
+    v.put(kw, m, path, "retry_max_wait", lambda p, x: v.duration(p, x), field="retry_max_wait_s")
     v.put(kw, m, path, "plots", lambda p, x: v.boolean(p, x))
-    return Alerts(**kw)
+    alerts = Alerts(**kw)
+    if alerts.retry_first_wait_s > alerts.retry_max_wait_s:
+        key = "retry_first_wait" if "retry_first_wait" in m else "retry_max_wait"
+        v.problem(
+            (*path, key),
+            f"retry_first_wait ({alerts.retry_first_wait_s:g} s) is longer than "
+            f"retry_max_wait ({alerts.retry_max_wait_s:g} s)",
+        )
+    return alerts
 
 
 def _channels(v: Values, path: KeyPath, data: Any, check_names: set[str]) -> tuple[Channel, ...]:

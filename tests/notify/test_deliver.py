@@ -142,6 +142,35 @@ def test_backoff_doubles_to_the_cap() -> None:
     assert waits == [5.0, 10.0, 20.0, 40.0, 80.0, 160.0, 320.0, 600.0, 600.0]
 
 
+def test_retry_waits_come_from_the_config(tmp_path: Path, receiver: Receiver, clock: Clock) -> None:
+    """alerts.retry_first_wait / retry_max_wait set when a failed message is tried again."""
+    config = lab_config(receiver.url(), retry_first_wait_s=30.0, retry_max_wait_s=50.0)
+    h = Harness(config, tmp_path / "s", clock)
+    receiver.mode = "fail"  # the real HTTP receiver answers 500
+    h.run("QC_000.mzML", make_finding())
+    worker = deliver.DeliveryWorker(
+        [deliver.make_target(c, config.alerts) for c in config.alerts.channels],
+        config.alerts,
+        tmp_path / "s",
+        clock=clock,
+    )
+    try:
+        waits = []
+        for _ in range(3):
+            now_s = clock()
+            assert worker.run_once(h.conn, now_s)
+            with db.read(h.conn):
+                (message,) = outbox.messages(h.conn)
+            waits.append(message.next_attempt_at_s - now_s)
+            clock.advance(waits[-1])
+        assert waits == [30.0, 50.0, 50.0]  # 30 s, doubled to 60 s but capped at 50 s
+        receiver.mode = "ok"
+        assert worker.run_once(h.conn, clock())
+        assert len(receiver.wait_for(1)) == 1
+    finally:
+        h.close()
+
+
 def test_timeouts_are_added_to_every_url() -> None:
     """cto/rto come from the config unless the URL sets them (RELIABILITY.md item 4)."""
     from watcher.config import Alerts

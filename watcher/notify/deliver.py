@@ -157,8 +157,8 @@ class DeliveryWorker:
         clock: Callable[[], float] = time.time,
         on_event: Callable[..., None] | None = None,
         render_plot: Callable[[sqlite3.Connection, str], bytes | None] | None = None,
-        backoff_base_s: float = 5.0,
-        backoff_max_s: float = 600.0,
+        backoff_base_s: float | None = None,
+        backoff_max_s: float | None = None,
         poll_s: float = 1.0,
     ) -> None:
         self._targets = {t.name: t for t in targets}
@@ -167,8 +167,11 @@ class DeliveryWorker:
         self._clock = clock
         self._on_event = on_event
         self._render_plot = render_plot
-        self._backoff_base_s = backoff_base_s
-        self._backoff_max_s = backoff_max_s
+        # The lab's retry waits (alerts.retry_first_wait / retry_max_wait) unless a test sets them.
+        self._backoff_base_s = (
+            alerts.retry_first_wait_s if backoff_base_s is None else backoff_base_s
+        )
+        self._backoff_max_s = alerts.retry_max_wait_s if backoff_max_s is None else backoff_max_s
         self._poll_s = poll_s
         self._stop = threading.Event()
         self._wake = threading.Event()

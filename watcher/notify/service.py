@@ -67,7 +67,8 @@ class Notifier:
         config: the lab config (channels, alert timing, time zone, health log).
         state_dir: folder of the state database; the health log defaults to ``<state_dir>/health``.
         clock: epoch seconds (tests pass a controllable one).
-        backoff_base_s, backoff_max_s: delivery retry waits (tests make them short).
+        backoff_base_s, backoff_max_s: delivery retry waits; default ``alerts.retry_first_wait``
+            and ``alerts.retry_max_wait`` (tests make them short).
         poll_s: how often the worker looks at the outbox when not woken.
     """
 
@@ -77,8 +78,8 @@ class Notifier:
         state_dir: Path,
         *,
         clock: Callable[[], float] = time.time,
-        backoff_base_s: float = 5.0,
-        backoff_max_s: float = 600.0,
+        backoff_base_s: float | None = None,
+        backoff_max_s: float | None = None,
         poll_s: float = 1.0,
     ) -> None:
         self.config = config
@@ -91,7 +92,10 @@ class Notifier:
             keep_days=config.health_log.keep_days,
             clock=clock,
         )
-        self._backoff = (backoff_base_s, backoff_max_s)
+        self._backoff = (
+            config.alerts.retry_first_wait_s if backoff_base_s is None else backoff_base_s,
+            config.alerts.retry_max_wait_s if backoff_max_s is None else backoff_max_s,
+        )
         self._poll_s = poll_s
         self._worker: object | None = None  # deliver.DeliveryWorker, imported lazily
         self._reader: sqlite3.Connection | None = None
