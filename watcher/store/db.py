@@ -27,13 +27,26 @@ def register_schema(owner: str, sql: str) -> None:
     SCHEMAS[owner] = sql
 
 
+MOUNTINFO = Path("/proc/self/mountinfo")  # Linux; proc(5) gives the line format
+
+
 def filesystem_type(path: Path) -> str | None:
-    """The filesystem type of the mount holding ``path``, from /proc/self/mountinfo (Linux)."""
+    """The filesystem type of the mount holding ``path``, from ``MOUNTINFO``; None if unknown."""
     try:
-        lines = Path("/proc/self/mountinfo").read_text().splitlines()
+        text = MOUNTINFO.read_text()
     except OSError:
         return None
-    target = str(path.resolve())
+    return mount_fs_type(text, path.resolve())
+
+
+def mount_fs_type(mountinfo: str, target_path: Path) -> str | None:
+    """The filesystem type of the longest mount point holding ``target_path`` in a mountinfo text.
+
+    Each line reads ``id parent major:minor root mount-point options [tags] - type source opts``
+    (proc(5)); spaces in a mount point are written ``\\040``.
+    """
+    lines = mountinfo.splitlines()
+    target = str(target_path)
     best: tuple[int, str] | None = None
     for line in lines:
         left, _, right = line.partition(" - ")
