@@ -93,6 +93,28 @@ def replace_first_binary(data: bytes, new_text: bytes, *, after: int = 0) -> byt
     return data[:start] + new_text + data[end:]
 
 
+def deflated_zeros(n_bytes: int) -> bytes:
+    """``n_bytes`` zero bytes zlib-compressed (about 1000:1), built without holding them."""
+    deflate = zlib.compressobj(9)
+    chunk = bytes(1 << 20)
+    parts = [deflate.compress(chunk) for _ in range(n_bytes >> 20)]
+    parts.append(deflate.compress(bytes(n_bytes & ((1 << 20) - 1))))
+    parts.append(deflate.flush())
+    return b"".join(parts)
+
+
+def with_first_array(data: bytes, raw: bytes, *, declared_length: int | None = None) -> bytes:
+    """Put base64(``raw``) in the first ``<binary>`` (and its encodedLength); optionally say
+    the first spectrum holds ``declared_length`` values (``defaultArrayLength``)."""
+    text = base64.b64encode(raw)
+    data = replace_first_binary(data, text)
+    data = re.sub(rb'encodedLength="\d+"', b'encodedLength="%d"' % len(text), data, count=1)
+    if declared_length is not None:
+        length = b'defaultArrayLength="%d"' % declared_length
+        data = re.sub(rb'defaultArrayLength="\d+"', length, data, count=1)
+    return data
+
+
 def with_compression(data: bytes, accession: bytes, name: bytes) -> bytes:
     """Relabel every array's compression term (no-compression -> ``accession``)."""
     return data.replace(

@@ -7,6 +7,8 @@ from the reference files by tests/measure/badfiles.py.
 from __future__ import annotations
 
 import re
+import subprocess
+import sys
 import time
 from collections.abc import Callable
 from pathlib import Path
@@ -60,6 +62,12 @@ def _bad_base64_plain(tmp: Path) -> Path:
 
 def _bad_zlib(tmp: Path) -> Path:
     return bf.write(tmp, "QC_zlib.mzML", bf.bad_zlib(bf.EXAMPLE.read_bytes()))
+
+
+def _zlib_bomb(tmp: Path) -> Path:
+    # 64 MB of zeros in ~64 kB where example.mzML's first spectrum declares 917 values.
+    data = bf.with_first_array(bf.EXAMPLE.read_bytes(), bf.deflated_zeros(64 << 20))
+    return bf.write(tmp, "QC_bomb.mzML", bf.reindexed(data))
 
 
 def _bad_zlib_stale(tmp: Path) -> Path:
@@ -122,6 +130,7 @@ CASES: dict[str, tuple[Builder, bool, bool]] = {
     "mzml-bad-base64": (_bad_base64, False, True),
     "mzml-plain-bad-base64": (_bad_base64_plain, False, True),
     "mzml-corrupt-zlib": (_bad_zlib, False, True),
+    "mzml-zlib-bomb": (_zlib_bomb, False, True),
     # example.mzML's fileChecksum is not a SHA-1 ("MZMLDemoFile"): only the parse can tell.
     "mzml-corrupt-zlib-no-sha1": (_bad_zlib_stale, False, True),
     "mzml-bad-base64-stale-sha1": (_bad_base64_stale, True, True),
@@ -261,3 +270,32 @@ def test_bogus_offsets_fall_back_to_streaming(tmp_path: Path) -> None:
     path = bf.write(tmp_path, "QC_offsets.mzML", head + index)
     with open_run(path) as (_header, scans):
         assert [s.ms_level for s in scans] == [1, 2, 1, 1]  # spectra.tsv ms_level
+
+
+def test_zlib_bomb_is_refused_without_inflating_it(tmp_path: Path) -> None:
+    """A 1 GB zlib bomb in a 917-value array is refused under a 200 MB address-space margin.
+
+    Run in a child whose RLIMIT_AS is its own size plus 200 MB: inflating the bomb in full
+    would raise MemoryError there; the declared length stops it at 7 336 bytes instead.
+    """
+    data = bf.with_first_array(bf.EXAMPLE.read_bytes(), bf.deflated_zeros(1 << 30))
+    path = bf.write(tmp_path, "QC_bomb_1g.mzML", bf.reindexed(data))
+    script = (
+        "import resource, re, sys\n"
+        "from pathlib import Path\n"
+        "from watcher.errors import ReadError\n"
+        "from watcher.measure.read import open_run\n"
+        "size = int(re.search(r'VmSize:\\s+(\\d+)', open('/proc/self/status').read())[1]) * 1024\n"
+        "resource.setrlimit(resource.RLIMIT_AS, (size + (200 << 20), resource.RLIM_INFINITY))\n"
+        "try:\n"
+        "    with open_run(Path(sys.argv[1])) as (_h, scans):\n"
+        "        for _ in scans: pass\n"
+        "except ReadError as exc:\n"
+        "    print(exc)\n"
+    )
+    proc = subprocess.run(
+        [sys.executable, "-c", script, str(path)], capture_output=True, text=True, timeout=120
+    )
+    assert proc.returncode == 0, proc.stderr[-800:]
+    assert "QC_bomb_1g.mzML: unreadable" in proc.stdout
+    assert "inflates past the 7336 bytes declared" in proc.stdout  # 917 x 8-byte m/z

@@ -81,11 +81,8 @@ def decode_array(
     if compression not in KNOWN_COMPRESSIONS:
         raise KeyError(compression)
     raw = _b64(text)
-    if compression == ZLIB or _NUMPRESS.get(compression, ("", False))[1]:
-        try:
-            raw = isal_zlib.decompress(raw) if raw else raw
-        except _INFLATE_ERRORS as exc:
-            raise ArrayDecodeError(f"corrupt zlib data ({exc})") from None
+    if (compression == ZLIB or _NUMPRESS.get(compression, ("", False))[1]) and raw:
+        raw = _inflate(raw, _max_bytes(compression, dtype, expected_length))
     if compression in _NUMPRESS:
         values = _numpress(raw, _NUMPRESS[compression][0])
     else:
@@ -98,6 +95,37 @@ def decode_array(
     if expected_length is not None and values.size != expected_length:
         raise ArrayDecodeError(f"array holds {values.size} values, {expected_length} declared")
     return values
+
+
+def _max_bytes(compression: str, dtype: str, expected_length: int | None) -> int | None:
+    """The most bytes an array of the declared length can inflate to; None when unknown."""
+    if expected_length is None:
+        return None
+    if compression in _NUMPRESS:
+        # MS-Numpress writes at most 4.5 bytes a value (linear, pic; slof 2) after an 8-byte
+        # header: 5 per value plus 16 bounds every codec.
+        return 5 * expected_length + 16
+    return np.dtype(dtype).itemsize * expected_length
+
+
+def _inflate(raw: bytes, max_bytes: int | None) -> bytes:
+    """zlib-inflate ``raw``, never past ``max_bytes``: a zlib bomb is refused, not allocated.
+
+    A 1 MB array can inflate to 1 GB; with the declared length known, one byte past what it
+    allows is proof enough that the array is not what its header says.
+    """
+    try:
+        if max_bytes is None:
+            return isal_zlib.decompress(raw)
+        inflater = isal_zlib.decompressobj()
+        out = inflater.decompress(raw, max_bytes + 1)
+    except _INFLATE_ERRORS as exc:
+        raise ArrayDecodeError(f"corrupt zlib data ({exc})") from None
+    if len(out) > max_bytes:
+        raise ArrayDecodeError(f"zlib data inflates past the {max_bytes} bytes declared")
+    if not inflater.eof:
+        raise ArrayDecodeError("corrupt zlib data (incomplete or truncated stream)")
+    return out
 
 
 def _b64(text: str | bytes | None) -> bytes:
