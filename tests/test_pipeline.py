@@ -8,7 +8,7 @@ from pathlib import Path
 import pytest
 
 import synth
-from watcher.config import Config, Limits
+from watcher.config import Config, IonSpec, Limits
 from watcher.pipeline import MeasuringChild, Stopped, memory_limit_mb, sha256_file, time_limit_s
 
 
@@ -86,4 +86,38 @@ def test_stop_interrupts_measuring(runs):
             child.measure(Config(), big, big.stat().st_size, stop)
     finally:
         timer.cancel()
+        child.close()
+
+
+def test_memory_limit_stops_the_child_and_the_next_run_is_measured(
+    runs: tuple[Path, Path], tmp_path: Path
+) -> None:
+    """An honest 800 MB array over a 300 MB address-space limit: "out of memory", then on.
+
+    The first spectrum declares 100 million m/z values and carries them (zeros, deflated to
+    ~800 kB), so the length check lets the inflate run into the child's RLIMIT_AS.
+    """
+    from tests.measure import badfiles as bf
+
+    tiny, _ = runs
+    n_values = 100_000_000
+    data = bf.with_first_array(
+        tiny.read_bytes(), bf.deflated_zeros(8 * n_values), declared_length=n_values
+    )
+    huge = bf.write(tmp_path, "QC_huge_array.mzML", data)
+    child = MeasuringChild()
+    try:
+        # A calibrant, so that MS1 arrays are decoded at all.
+        tight = Config(
+            calibrants=(IonSpec(name="siloxane-445", mz=445.120025),),
+            limits=Limits(parse_memory_mb=300),
+        )
+        result = child.measure(tight, huge, huge.stat().st_size)
+        limit_mb = memory_limit_mb(tight.limits, huge.stat().st_size)
+        assert (result.metrics, result.error_kind) == (None, "memory")
+        assert result.error == f"out of memory (limit {limit_mb} MB)"
+        again = child.measure(Config(), tiny, tiny.stat().st_size)
+        assert again.metrics is not None
+        assert again.metrics.signal.ms1_count == 5
+    finally:
         child.close()

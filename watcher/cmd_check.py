@@ -115,6 +115,8 @@ def check_file(
         return _unreadable(run_file, _one_line(exc.reason, path), exc.kind, judged_at)
     except ConfigError:
         raise
+    except MemoryError:
+        return _unreadable(run_file, "out of memory while reading", "memory", judged_at)
     except Exception as exc:  # a reader bug must not stop the other files of the call
         return _unreadable(
             run_file, _one_line(f"{type(exc).__name__}: {exc}", path), "corrupt", judged_at

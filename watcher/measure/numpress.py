@@ -153,6 +153,8 @@ def _numpress(raw: bytes, codec: str) -> FloatArray:
         return np.zeros(0, dtype=np.float64)
     try:
         decoded = _DECODERS[codec](np.frombuffer(raw, dtype=np.uint8))
+    except MemoryError:
+        raise
     except Exception as exc:  # the C decoder raises assorted types on damaged input
         raise ArrayDecodeError(f"corrupt MS-Numpress {codec} data ({exc})") from None
     return np.asarray(decoded, dtype=np.float64)

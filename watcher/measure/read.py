@@ -68,8 +68,8 @@ def open_run(
             header, scans = _open(
                 path, stack, ms1_arrays=ms1_arrays, throttle=throttle, check_gzip=check_gzip
             )
-        except ReadError:
-            raise
+        except (ReadError, MemoryError):
+            raise  # out of memory is the limit's doing, not the file's: the caller reports it
         except Exception as exc:
             raise _as_read_error(path, exc) from None
         yield header, _guarded(path, scans, throttle)
@@ -161,10 +161,8 @@ def _guarded(path: Path, scans: Iterator[Scan], throttle: _Throttle) -> Iterator
     """Re-raise anything the readers throw as one ReadError; report progress at the end."""
     try:
         yield from scans
-    except ReadError:
-        raise
-    except GeneratorExit:
-        raise
+    except (ReadError, GeneratorExit, MemoryError):
+        raise  # a MemoryError means the memory limit, not a corrupt file (childmeasure says so)
     except Exception as exc:
         raise _as_read_error(path, exc) from None
     throttle.done()
