@@ -15,7 +15,7 @@ import structlog
 from tests.notify.conftest import Clock, Receiver, make_finding
 from tests.notify.test_service import Harness, lab_config
 from watcher import cmd_status
-from watcher.config import Channel
+from watcher.config import Channel, Config
 from watcher.notify import deliver
 from watcher.records import Severity
 from watcher.store import db, outbox
@@ -110,6 +110,16 @@ def _attempts(h: Harness) -> int:
         return sum(m.attempts for m in outbox.messages(h.conn))
 
 
+def _worker(config: Config, state_dir: Path, clock: Clock) -> deliver.DeliveryWorker:
+    """A delivery worker over the config's channels, driven by ``run_once`` (no thread)."""
+    return deliver.DeliveryWorker(
+        [deliver.make_target(c, config.alerts) for c in config.alerts.channels],
+        config.alerts,
+        state_dir,
+        clock=clock,
+    )
+
+
 def test_message_older_than_retry_for_is_abandoned_and_unblocks_the_next(
     tmp_path: Path, receiver: Receiver, clock: Clock
 ) -> None:
@@ -119,12 +129,7 @@ def test_message_older_than_retry_for_is_abandoned_and_unblocks_the_next(
     h.run("QC_000.mzML", make_finding())
     clock.advance(7200)
     h.run("QC_001.mzML")
-    worker = deliver.DeliveryWorker(
-        [deliver.make_target(c, config.alerts) for c in config.alerts.channels],
-        config.alerts,
-        tmp_path / "s",
-        clock=clock,
-    )
+    worker = _worker(config, tmp_path / "s", clock)
     try:
         assert worker.run_once(h.conn, clock())  # abandons the first
         assert worker.run_once(h.conn, clock())  # sends the second
@@ -148,12 +153,7 @@ def test_retry_waits_come_from_the_config(tmp_path: Path, receiver: Receiver, cl
     h = Harness(config, tmp_path / "s", clock)
     receiver.mode = "fail"  # the real HTTP receiver answers 500
     h.run("QC_000.mzML", make_finding())
-    worker = deliver.DeliveryWorker(
-        [deliver.make_target(c, config.alerts) for c in config.alerts.channels],
-        config.alerts,
-        tmp_path / "s",
-        clock=clock,
-    )
+    worker = _worker(config, tmp_path / "s", clock)
     try:
         waits = []
         for _ in range(3):
