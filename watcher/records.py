@@ -111,8 +111,9 @@ class ExpectedIonResult:
 
     name: str
     mz: float
-    # None: not searchable in this run (no MS1 spectra, e.g. MGF, or MS1 without peak arrays);
-    # RunMetrics.notes says why. An RT window outside the run is searched and not found.
+    # None: not searchable in this run (no MS1 spectra, e.g. MGF, MS1 without peak arrays, or
+    # no MS1 scan of the ion's polarity); RunMetrics.notes says why. An RT window outside the
+    # run is searched and not found.
     found: bool | None
     apex_rt_s: float | None
     apex_intensity: float | None

@@ -88,6 +88,29 @@ def test_negative_mode_run_finds_deprotonated_ion_only() -> None:
     assert str(metrics.calibrants[0].found_fraction) == "nan"  # not searched
 
 
+def test_ion_of_the_other_polarity_is_not_searched_in_a_single_polarity_run() -> None:
+    """One config for positive and negative QC runs: the positive ion is None in a negative run."""
+    negative = IonSpec(name="caffeine-neg", formula="C8H10N4O2", adduct="-H", charge=-1)
+    ion = resolve(negative)
+    scans = make_run(
+        duration_s=300,
+        polarity=-1,
+        analytes=[Analyte(mz=ion.mz, charge=-1, apex_rt_s=150.0, fwhm_rt_s=8.0, height=4e5)],
+    )
+    config = Config(
+        expected_ions=(
+            ExpectedIon(ion=negative, min_intensity=1e4),
+            ExpectedIon(ion=CAFFEINE, rt_window_min=(2.0, 3.0), min_intensity=1e4),
+        ),
+    )
+    metrics = measure_scans(header(), scans, config, file_name="QC_neg_0001.mzML")
+    assert [i.found for i in metrics.expected_ions] == [True, None]
+    assert metrics.notes == (
+        "expected ion caffeine: the run has no positive MS1 scans; not searched",
+    )
+    assert metrics.flat()["expected_ions.found_fraction"] == 1.0  # of the searched ones
+
+
 def test_run_without_ms1_has_note_and_null_measures() -> None:
     """Without MS1 spectra, calibrant and XIC values are null with a note; counts remain."""
     scans = [

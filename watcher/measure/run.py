@@ -6,6 +6,7 @@ check, reader) and turns a file without spectra into a ReadError.
 
 from __future__ import annotations
 
+from collections import Counter
 from collections.abc import Callable, Iterable
 from datetime import UTC, datetime
 from pathlib import Path
@@ -54,6 +55,7 @@ def measure_scans(
     ]
     signal = SignalTrace()
     ms1_with_arrays = 0
+    polarities: Counter[int | None] = Counter()  # MS1 scans by polarity (None: not stated)
     for scan in scans:
         signal.add(scan)
         if scan.ms_level != 1 or not (calibrants or expected):
@@ -61,6 +63,7 @@ def measure_scans(
         mz, intensity = scan.mz, scan.intensity
         has_arrays = mz is not None and intensity is not None and mz.size > 0
         ms1_with_arrays += has_arrays
+        polarities[scan.polarity] += 1
         profile = bool(scan.is_profile)
         if scan.is_profile is None and mz is not None and has_arrays:
             profile = looks_profile(mz)
@@ -83,8 +86,26 @@ def measure_scans(
             notes.append(NO_ARRAYS_NOTE)
         ions = tuple(absent(xic.ion, searched=False) for xic in expected)
     else:
-        ions = tuple(xic.summary() for xic in expected)
-        notes.extend(_window_notes(expected, signal_metrics.rt_start_s, signal_metrics.rt_end_s))
+        # An ion of the other polarity than every MS1 scan cannot be looked for at all (a lab
+        # with positive and negative QC runs keeps both ions in one config): None, not missing.
+        searchable = [_has_polarity_scans(xic.ion, polarities) for xic in expected]
+        ions = tuple(
+            xic.summary() if ok else absent(xic.ion, searched=False)
+            for xic, ok in zip(expected, searchable, strict=True)
+        )
+        notes.extend(
+            f"expected ion {xic.ion.name}: the run has no "
+            f"{'positive' if xic.ion.charge > 0 else 'negative'} MS1 scans; not searched"
+            for xic, ok in zip(expected, searchable, strict=True)
+            if not ok
+        )
+        notes.extend(
+            _window_notes(
+                [xic for xic, ok in zip(expected, searchable, strict=True) if ok],
+                signal_metrics.rt_start_s,
+                signal_metrics.rt_end_s,
+            )
+        )
     acquired_at = _parse_acquired_at(header.acquired_at_iso)
     if header.acquired_at_iso and acquired_at is None:
         notes.append(f"run start time {header.acquired_at_iso!r} is not ISO-8601; ignored")
@@ -188,6 +209,11 @@ def _resolve_all(config: Config, key: str) -> list[ResolvedIon]:
     if problems:
         raise ConfigError(problems)
     return resolved
+
+
+def _has_polarity_scans(ion: ResolvedIon, polarities: Counter[int | None]) -> bool:
+    """Whether any MS1 scan of the run is searched for ``ion`` (same rule as _polarity_matches)."""
+    return polarities[None] > 0 or polarities[1 if ion.charge > 0 else -1] > 0
 
 
 def _polarity_matches(ion: ResolvedIon, scan: Scan) -> bool:
