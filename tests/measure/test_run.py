@@ -68,7 +68,11 @@ def test_demo_run_measures_every_metric() -> None:
 
 
 def test_negative_mode_run_finds_deprotonated_ion_only() -> None:
-    """In a negative-mode run [M-H]- caffeine is found; the positive [M+H]+ spec is not searched."""
+    """In a negative-mode run [M-H]- caffeine is found; positive calibrant and ion not searched.
+
+    One config serves positive and negative QC runs: the positive expected ion is None, not
+    missing, and a note says why.
+    """
     negative = IonSpec(name="caffeine-neg", formula="C8H10N4O2", adduct="-H", charge=-1)
     ion = resolve(negative)
     scans = make_run(
@@ -79,32 +83,16 @@ def test_negative_mode_run_finds_deprotonated_ion_only() -> None:
     )
     config = Config(
         calibrants=(CAFFEINE,),
-        expected_ions=(ExpectedIon(ion=negative, min_intensity=1e4),),
-    )
-    metrics = measure_scans(header(), scans, config, file_name="S02_0001.mzML")
-    # molmass (test_ions): caffeine [M-H]- at m/z 193.073099; scan polarity -1 throughout
-    assert metrics.expected_ions[0].found
-    assert metrics.expected_ions[0].apex_rt_s == pytest.approx(150.0, abs=2.0)
-    assert str(metrics.calibrants[0].found_fraction) == "nan"  # not searched
-
-
-def test_ion_of_the_other_polarity_is_not_searched_in_a_single_polarity_run() -> None:
-    """One config for positive and negative QC runs: the positive ion is None in a negative run."""
-    negative = IonSpec(name="caffeine-neg", formula="C8H10N4O2", adduct="-H", charge=-1)
-    ion = resolve(negative)
-    scans = make_run(
-        duration_s=300,
-        polarity=-1,
-        analytes=[Analyte(mz=ion.mz, charge=-1, apex_rt_s=150.0, fwhm_rt_s=8.0, height=4e5)],
-    )
-    config = Config(
         expected_ions=(
             ExpectedIon(ion=negative, min_intensity=1e4),
             ExpectedIon(ion=CAFFEINE, rt_window_min=(2.0, 3.0), min_intensity=1e4),
         ),
     )
     metrics = measure_scans(header(), scans, config, file_name="QC_neg_0001.mzML")
+    # molmass (test_ions): caffeine [M-H]- at m/z 193.073099; scan polarity -1 throughout
     assert [i.found for i in metrics.expected_ions] == [True, None]
+    assert metrics.expected_ions[0].apex_rt_s == pytest.approx(150.0, abs=2.0)
+    assert str(metrics.calibrants[0].found_fraction) == "nan"  # not searched
     assert metrics.notes == (
         "expected ion caffeine: the run has no positive MS1 scans; not searched",
     )
