@@ -18,17 +18,26 @@ from watcher.records import (
     STATUS_RANK,
     CalibrantDrift,
     ExpectedIonResult,
+    Finding,
+    HistoryPoint,
     RunMetrics,
     Severity,
     SignalMetrics,
     Status,
 )
-from watcher.rules.judge import HistoryPoint, judge
+from watcher.rules.judge import History, judge
 
 T0 = datetime(2026, 4, 12, 1, 0, tzinfo=UTC)
 SILOXANE_MZ = 445.120025  # (C2H6SiO)6 + H+, check-ions.tsv
 LEU_ENK_MZ = 556.276575  # YGGFL [M+H]+, check-ions.tsv
 CAFFEINE_MZ = 195.087652  # C8H10N4O2 [M+H]+, check-ions.tsv
+
+
+def judge_at_t0(
+    metrics: RunMetrics, file_name: str, checks: Sequence[Check], history: History | None
+) -> tuple[Status, tuple[Finding, ...]]:
+    """``judge`` for a run acquired at T0, the time every test here measures from."""
+    return judge(metrics, file_name=file_name, acquired_at=T0, checks=checks, history=history)
 
 
 def make_metrics(
@@ -132,9 +141,7 @@ DRIFT = Check(
 
 def test_no_findings_is_ok() -> None:
     """A run inside every limit has status ok and no findings."""
-    status, findings = judge(
-        make_metrics(), file_name="QC_0001.mzML", acquired_at=T0, checks=[DRIFT], history=None
-    )
+    status, findings = judge_at_t0(make_metrics(), "QC_0001.mzML", [DRIFT], None)
     assert status is Status.OK
     assert findings == ()
 
@@ -142,9 +149,7 @@ def test_no_findings_is_ok() -> None:
 def test_star_gives_one_finding_per_calibrant_with_the_concrete_path() -> None:
     """calibrant.*.median_ppm is judged per calibrant; metric and subject are the concrete path."""
     metrics = make_metrics(siloxane_ppm=5.8, leu_enk_ppm=-3.4)
-    status, findings = judge(
-        metrics, file_name="QC_0412.mzML", acquired_at=T0, checks=[DRIFT], history=None
-    )
+    status, findings = judge_at_t0(metrics, "QC_0412.mzML", [DRIFT], None)
     assert status is Status.CRITICAL  # the highest severity wins
     assert [(f.subject, f.severity) for f in findings] == [
         ("calibrant.siloxane-445.median_ppm", Severity.CRITICAL),
@@ -166,13 +171,7 @@ def test_star_gives_one_finding_per_calibrant_with_the_concrete_path() -> None:
 
 def test_one_finding_per_check_and_subject_critical_first() -> None:
     """When warning and critical both hold, only the critical finding is made."""
-    _, findings = judge(
-        make_metrics(siloxane_ppm=-7.0),
-        file_name="QC_1.mzML",
-        acquired_at=T0,
-        checks=[DRIFT],
-        history=None,
-    )
+    _, findings = judge_at_t0(make_metrics(siloxane_ppm=-7.0), "QC_1.mzML", [DRIFT], None)
     assert [f.severity for f in findings] == [Severity.CRITICAL]
 
 
@@ -184,21 +183,15 @@ def test_status_is_the_highest_severity_across_checks() -> None:
             name="drift", metric="calibrant.siloxane-445.median_ppm", warning=Condition(above=0.4)
         ),
     ]
-    status, findings = judge(
-        make_metrics(), file_name="QC_1.mzML", acquired_at=T0, checks=checks, history=None
-    )
+    status, findings = judge_at_t0(make_metrics(), "QC_1.mzML", checks, None)
     assert [f.severity for f in findings] == [Severity.NOTICE, Severity.WARNING]
     assert status is Status.WARNING
 
 
 def test_missing_metric_gives_no_finding() -> None:
     """A calibrant that was never found (None) does not fire its limit."""
-    _, findings = judge(
-        make_metrics(siloxane_ppm=None, leu_enk_ppm=9.0),
-        file_name="QC_1.mzML",
-        acquired_at=T0,
-        checks=[DRIFT],
-        history=None,
+    _, findings = judge_at_t0(
+        make_metrics(siloxane_ppm=None, leu_enk_ppm=9.0), "QC_1.mzML", [DRIFT], None
     )
     assert [f.subject for f in findings] == ["calibrant.leu-enk.median_ppm"]
 
@@ -212,17 +205,13 @@ def test_expected_ion_missing_on_qc_runs_only() -> None:
         critical=Condition(is_=False),
     )
     metrics = make_metrics(caffeine_found=False)
-    status, findings = judge(
-        metrics, file_name="QC_0413.mzML", acquired_at=T0, checks=[check], history=None
-    )
+    status, findings = judge_at_t0(metrics, "QC_0413.mzML", [check], None)
     assert status is Status.CRITICAL
     assert findings[0].message == (
         "QC_0413.mzML: expected ion caffeine not found (critical) — check the QC standard, "
         "the column and the LC"
     )
-    status, findings = judge(
-        metrics, file_name="S01_liver.mzML", acquired_at=T0, checks=[check], history=None
-    )
+    status, findings = judge_at_t0(metrics, "S01_liver.mzML", [check], None)
     assert (status, findings) == (Status.OK, ())
 
 
@@ -235,8 +224,8 @@ def test_regex_applies_to() -> None:
         warning=Condition(below=5.0e6),
     )
     m = make_metrics()
-    assert judge(m, file_name="S3_a.mzML", acquired_at=T0, checks=[check], history=None)[1]
-    assert not judge(m, file_name="QC_3.mzML", acquired_at=T0, checks=[check], history=None)[1]
+    assert judge_at_t0(m, "S3_a.mzML", [check], None)[1]
+    assert not judge_at_t0(m, "QC_3.mzML", [check], None)[1]
 
 
 SIGNAL = Check(
@@ -252,13 +241,7 @@ def test_signal_drop_to_a_quarter_fires_below_ratio() -> None:
     """TIC at 25 % of the robust baseline fires below_ratio 0.3 (critical), 35 % does not."""
     tics = [1.0e6 + 1.0e4 * ((i * 7) % 5 - 2) for i in range(20)]  # median 1.0e6 (by hand)
     history = history_of("signal.tic_median", tics)
-    status, findings = judge(
-        make_metrics(tic=2.5e5),
-        file_name="QC_0020.mzML",
-        acquired_at=T0,
-        checks=[SIGNAL],
-        history=history,
-    )
+    status, findings = judge_at_t0(make_metrics(tic=2.5e5), "QC_0020.mzML", [SIGNAL], history)
     assert status is Status.CRITICAL
     (f,) = findings
     assert f.limit == "below 0.3 x baseline"
@@ -267,13 +250,7 @@ def test_signal_drop_to_a_quarter_fires_below_ratio() -> None:
         "QC_0020.mzML: median TIC 250 k, 25 % of the baseline 1 M, below the 30 % limit "
         "(critical) — check the spray, the source and the LC flow"
     )
-    _, findings = judge(
-        make_metrics(tic=3.5e5),
-        file_name="QC_0020.mzML",
-        acquired_at=T0,
-        checks=[SIGNAL],
-        history=history,
-    )
+    _, findings = judge_at_t0(make_metrics(tic=3.5e5), "QC_0020.mzML", [SIGNAL], history)
     assert findings == ()
 
 
@@ -296,13 +273,7 @@ def test_baseline_uses_accepted_runs_of_the_same_kind_only() -> None:
     mixed = sorted([*good, *bad, *samples], key=lambda p: p.acquired_at)
     history = ListHistory({"signal.tic_median": mixed})
     # 4 accepted QC runs < min_runs 5: no baseline, no finding.
-    _, findings = judge(
-        make_metrics(tic=1.0e5),
-        file_name="QC_9.mzML",
-        acquired_at=T0,
-        checks=[check],
-        history=history,
-    )
+    _, findings = judge_at_t0(make_metrics(tic=1.0e5), "QC_9.mzML", [check], history)
     assert findings == ()
     mixed.append(
         HistoryPoint(
@@ -312,13 +283,7 @@ def test_baseline_uses_accepted_runs_of_the_same_kind_only() -> None:
             status=Status.NOTICE,
         )
     )
-    _, findings = judge(
-        make_metrics(tic=1.0e5),
-        file_name="QC_9.mzML",
-        acquired_at=T0,
-        checks=[check],
-        history=history,
-    )
+    _, findings = judge_at_t0(make_metrics(tic=1.0e5), "QC_9.mzML", [check], history)
     assert [f.baseline for f in findings] == ["median 1 M, robust SD 0 over 5 accepted runs"]
 
 
@@ -334,13 +299,7 @@ def test_for_runs_needs_the_previous_runs_too() -> None:
     metric = "calibrant.siloxane-445.median_ppm"
 
     def run(values: list[float | bool | None]) -> tuple[Status, tuple[object, ...]]:
-        return judge(
-            m,
-            file_name="QC_9.mzML",
-            acquired_at=T0,
-            checks=[check],
-            history=history_of(metric, values),
-        )
+        return judge_at_t0(m, "QC_9.mzML", [check], history_of(metric, values))
 
     status, findings = run([1.0, 3.5, 3.6])
     assert status is Status.CRITICAL
@@ -348,7 +307,7 @@ def test_for_runs_needs_the_previous_runs_too() -> None:
     assert run([3.5, 1.0, 3.6]) == (Status.OK, ())  # broken chain
     assert run([3.6]) == (Status.OK, ())  # not enough history
     assert run([3.5, None, 3.6])[0] is Status.CRITICAL  # unmeasured runs are left out
-    assert judge(m, file_name="QC_9.mzML", acquired_at=T0, checks=[check], history=None)[1] == ()
+    assert judge_at_t0(m, "QC_9.mzML", [check], None)[1] == ()
 
 
 def test_for_runs_falls_back_to_a_lower_severity_that_persisted() -> None:
@@ -360,12 +319,11 @@ def test_for_runs_falls_back_to_a_lower_severity_that_persisted() -> None:
         critical=Condition(above=5.0),
         for_runs=3,
     )
-    _, findings = judge(
+    _, findings = judge_at_t0(
         make_metrics(siloxane_ppm=5.5),
-        file_name="QC_9.mzML",
-        acquired_at=T0,
-        checks=[check],
-        history=history_of("calibrant.siloxane-445.median_ppm", [2.5, 2.6]),
+        "QC_9.mzML",
+        [check],
+        history_of("calibrant.siloxane-445.median_ppm", [2.5, 2.6]),
     )
     assert [f.severity for f in findings] == [Severity.WARNING]
 
@@ -395,12 +353,11 @@ def test_westgard_through_the_judge(
     previous: list[float], current: float, rule: str, severity: Severity
 ) -> None:
     """Each Westgard rule fires on its pattern, with the lab's fixed mean and SD."""
-    _, findings = judge(
+    _, findings = judge_at_t0(
         make_metrics(siloxane_ppm=current),
-        file_name="QC_9.mzML",
-        acquired_at=T0,
-        checks=[WESTGARD],
-        history=history_of("calibrant.siloxane-445.median_ppm", previous),
+        "QC_9.mzML",
+        [WESTGARD],
+        history_of("calibrant.siloxane-445.median_ppm", previous),
     )
     (f,) = findings
     assert (f.rule, f.severity) == (rule, severity)
@@ -410,12 +367,11 @@ def test_westgard_through_the_judge(
 
 def test_westgard_quiet_inside_limits() -> None:
     """An in-control sequence alternating around the mean fires no rule."""
-    _, findings = judge(
+    _, findings = judge_at_t0(
         make_metrics(siloxane_ppm=-0.3),
-        file_name="QC_9.mzML",
-        acquired_at=T0,
-        checks=[WESTGARD],
-        history=history_of("calibrant.siloxane-445.median_ppm", [0.5, -0.4, 0.8, -1.2] * 3),
+        "QC_9.mzML",
+        [WESTGARD],
+        history_of("calibrant.siloxane-445.median_ppm", [0.5, -0.4, 0.8, -1.2] * 3),
     )
     assert findings == ()
 
@@ -434,23 +390,11 @@ def test_ewma_and_cusum_findings() -> None:
     # against the t=5 limit 3*sqrt((1-0.8^10)/9) = 0.94479 (6.3.2.4). After four runs: S_hi 4.0
     # and EWMA 1.5*(1-0.8^4) = 0.8856 against 3*sqrt((1-0.8^8)/9) = 0.91227: neither fires.
     history = history_of("calibrant.siloxane-445.median_ppm", [1.5] * 4)
-    _, findings = judge(
-        make_metrics(siloxane_ppm=1.5),
-        file_name="QC_9.mzML",
-        acquired_at=T0,
-        checks=[check],
-        history=history,
-    )
+    _, findings = judge_at_t0(make_metrics(siloxane_ppm=1.5), "QC_9.mzML", [check], history)
     assert [f.rule for f in findings] == ["ewma", "cusum"]
     assert "sustained upward shift: CUSUM 5.0 SD" in findings[1].message
     history = history_of("calibrant.siloxane-445.median_ppm", [1.5] * 3)
-    _, findings = judge(
-        make_metrics(siloxane_ppm=1.5),
-        file_name="QC_9.mzML",
-        acquired_at=T0,
-        checks=[check],
-        history=history,
-    )
+    _, findings = judge_at_t0(make_metrics(siloxane_ppm=1.5), "QC_9.mzML", [check], history)
     assert findings == ()
 
 
@@ -466,12 +410,11 @@ FORECAST = Check(
 def test_forecast_on_a_linear_drift_through_the_judge() -> None:
     """+0.43 ppm/h from +2 ppm: critical +5 ppm in 3/0.43 = 7.0 h, reported within 10 %."""
     previous = [2.0 - 0.43 * (9 - i) for i in range(9)]  # hourly, ending 1 h before T0
-    _, findings = judge(
+    _, findings = judge_at_t0(
         make_metrics(siloxane_ppm=2.0),
-        file_name="QC_0412.mzML",
-        acquired_at=T0,
-        checks=[FORECAST],
-        history=history_of("calibrant.siloxane-445.median_ppm", previous),
+        "QC_0412.mzML",
+        [FORECAST],
+        history_of("calibrant.siloxane-445.median_ppm", previous),
     )
     (f,) = findings
     assert f.rule == "forecast"
@@ -486,21 +429,19 @@ def test_forecast_on_a_linear_drift_through_the_judge() -> None:
 def test_forecast_is_skipped_when_far_away_or_already_critical() -> None:
     """No forecast beyond warn_within_h, and none on a run that is already critical."""
     slow = [2.0 - 0.1 * (9 - i) for i in range(9)]  # 30 h to +5 ppm
-    _, findings = judge(
+    _, findings = judge_at_t0(
         make_metrics(siloxane_ppm=2.0),
-        file_name="QC_1.mzML",
-        acquired_at=T0,
-        checks=[FORECAST],
-        history=history_of("calibrant.siloxane-445.median_ppm", slow),
+        "QC_1.mzML",
+        [FORECAST],
+        history_of("calibrant.siloxane-445.median_ppm", slow),
     )
     assert findings == ()
     fast = [5.5 - 0.43 * (9 - i) for i in range(9)]
-    _, findings = judge(
+    _, findings = judge_at_t0(
         make_metrics(siloxane_ppm=5.5),
-        file_name="QC_1.mzML",
-        acquired_at=T0,
-        checks=[FORECAST],
-        history=history_of("calibrant.siloxane-445.median_ppm", fast),
+        "QC_1.mzML",
+        [FORECAST],
+        history_of("calibrant.siloxane-445.median_ppm", fast),
     )
     assert [f.rule for f in findings] == ["limit"]
 
@@ -513,13 +454,7 @@ def test_z_condition_message_reads_in_sd() -> None:
         baseline=BaselineSpec(mean=0.2, sd=0.5),
         warning=Condition(z_outside=(-3.0, 3.0)),
     )
-    _, (f,) = judge(
-        make_metrics(siloxane_ppm=2.0),
-        file_name="QC_0415.mzML",
-        acquired_at=T0,
-        checks=[check],
-        history=None,
-    )
+    _, (f,) = judge_at_t0(make_metrics(siloxane_ppm=2.0), "QC_0415.mzML", [check], None)
     # z = (2.0 - 0.2) / 0.5 = 3.6 (by hand)
     assert f.message == (
         "QC_0415.mzML: calibrant siloxane-445 median error +2.0 ppm, z = +3.6 against the "
@@ -536,12 +471,8 @@ def test_z_condition_message_reads_in_sd() -> None:
 def test_status_is_the_max_finding_severity(sil: float, leu: float, tic: float) -> None:
     """For any metrics, the status rank equals the highest finding rank (ok without findings)."""
     checks = [DRIFT, Check(name="tic", metric="signal.tic_median", notice=Condition(below=1.0e6))]
-    status, findings = judge(
-        make_metrics(siloxane_ppm=sil, leu_enk_ppm=leu, tic=tic),
-        file_name="QC_1.mzML",
-        acquired_at=T0,
-        checks=checks,
-        history=None,
+    status, findings = judge_at_t0(
+        make_metrics(siloxane_ppm=sil, leu_enk_ppm=leu, tic=tic), "QC_1.mzML", checks, None
     )
     assert STATUS_RANK[status] == max((f.severity.rank for f in findings), default=0)
     assert len({(f.check, f.subject, f.rule) for f in findings}) == len(findings)
@@ -557,12 +488,11 @@ def test_forecast_uses_every_earlier_run_when_history_is_shorter_than_its_window
         critical=Condition(outside=(-5.0, 5.0)),
         forecast=ForecastSpec(runs=8, warn_within_h=12.0, severity=Severity.NOTICE),
     )
-    _, findings = judge(
+    _, findings = judge_at_t0(
         make_metrics(siloxane_ppm=2.5),
-        file_name="S03.mzML",
-        acquired_at=T0,
-        checks=[check],
-        history=history_of("calibrant.siloxane-445.median_ppm", [0.5, 1.0, 1.5, 2.0]),
+        "S03.mzML",
+        [check],
+        history_of("calibrant.siloxane-445.median_ppm", [0.5, 1.0, 1.5, 2.0]),
     )
     (f,) = findings
     assert f.rule == "forecast"

@@ -96,11 +96,7 @@ def _open(
             check = GunzipCheck(_Counted(raw, throttle), found.root)  # type: ignore[arg-type]
             events = safexml.safe_iterparse(check, events=("start", "end"), tag=mzml.stream_tags())
             pre = mzml.read_preamble(events)
-            header = RunHeader(
-                format=found.format,
-                acquired_at_iso=pre.start_time_stamp,
-                n_spectra_declared=pre.spectrum_count,
-            )
+            header = _mzml_header(found.format, pre)
             scans = mzml.stream_scans(events, pre, want_arrays=ms1_arrays)
             return header, _then_whole(path, scans, check)
         gz = gzip.GzipFile(fileobj=_Counted(raw, throttle))
@@ -113,11 +109,7 @@ def _open(
         return RunHeader(format="mzXML"), mzxml.read_scans(source, want_arrays=ms1_arrays)
     events = safexml.safe_iterparse(source, events=("start", "end"), tag=mzml.stream_tags())
     pre = mzml.read_preamble(events)
-    header = RunHeader(
-        format=found.format,
-        acquired_at_iso=pre.start_time_stamp,
-        n_spectra_declared=pre.spectrum_count,
-    )
+    header = _mzml_header(found.format, pre)
     if found.format == "mzML" and found.root == "indexedmzML":
         fd = os.open(path, os.O_RDONLY)
         stack.callback(os.close, fd)
@@ -133,6 +125,12 @@ def _open(
             )
             return header, _with_fallback(path, scans, stack, ms1_arrays=ms1_arrays)
     return header, mzml.stream_scans(events, pre, want_arrays=ms1_arrays)
+
+
+def _mzml_header(fmt: str, pre: mzml.Preamble) -> RunHeader:
+    return RunHeader(
+        format=fmt, acquired_at_iso=pre.start_time_stamp, n_spectra_declared=pre.spectrum_count
+    )
 
 
 def _with_fallback(

@@ -19,7 +19,7 @@ from watcher.measure.peaks import looks_profile
 from watcher.measure.scan import RunHeader, Scan
 from watcher.measure.signal import SignalTrace
 from watcher.measure.xic import XicTrace, absent
-from watcher.records import CalibrantDrift, RunMetrics
+from watcher.records import CalibrantDrift, ExpectedIonResult, RunMetrics, SignalMetrics
 
 NO_MS1_NOTE = "no MS1 spectra: calibrant and expected-ion metrics not available"
 NO_ARRAYS_NOTE = (
@@ -86,26 +86,8 @@ def measure_scans(
             notes.append(NO_ARRAYS_NOTE)
         ions = tuple(absent(xic.ion, searched=False) for xic in expected)
     else:
-        # An ion of the other polarity than every MS1 scan cannot be looked for at all (a lab
-        # with positive and negative QC runs keeps both ions in one config): None, not missing.
-        searchable = [_has_polarity_scans(xic.ion, polarities) for xic in expected]
-        ions = tuple(
-            xic.summary() if ok else absent(xic.ion, searched=False)
-            for xic, ok in zip(expected, searchable, strict=True)
-        )
-        notes.extend(
-            f"expected ion {xic.ion.name}: the run has no "
-            f"{'positive' if xic.ion.charge > 0 else 'negative'} MS1 scans; not searched"
-            for xic, ok in zip(expected, searchable, strict=True)
-            if not ok
-        )
-        notes.extend(
-            _window_notes(
-                [xic for xic, ok in zip(expected, searchable, strict=True) if ok],
-                signal_metrics.rt_start_s,
-                signal_metrics.rt_end_s,
-            )
-        )
+        ions, ion_notes = _searched_ions(expected, polarities, signal_metrics)
+        notes.extend(ion_notes)
     acquired_at = _parse_acquired_at(header.acquired_at_iso)
     if header.acquired_at_iso and acquired_at is None:
         notes.append(f"run start time {header.acquired_at_iso!r} is not ISO-8601; ignored")
@@ -159,28 +141,40 @@ def measure_file(
     return metrics
 
 
-def _window_notes(
-    expected: list[XicTrace], rt_start_s: float | None, rt_end_s: float | None
-) -> list[str]:
-    """A note per expected ion whose RT window held no MS1 scan: not found, and why.
+def _searched_ions(
+    expected: list[XicTrace], polarities: Counter[int | None], signal: SignalMetrics
+) -> tuple[tuple[ExpectedIonResult, ...], list[str]]:
+    """Each expected ion's result, and notes for the ones not searched or not in the run.
 
-    It stays "not found" (a run cut short by a failing spray must still alarm); the note tells
-    an operator whether the method or the config is the one to look at.
+    An ion of the other polarity than every MS1 scan cannot be looked for at all (a lab with
+    positive and negative QC runs keeps both ions in one config): None, not missing. An ion
+    whose RT window held no MS1 scan stays "not found" (a run cut short by a failing spray
+    must still alarm); its note tells an operator whether the method or the config is at fault.
     """
     span = (
-        f"{rt_start_s / 60:.2f}-{rt_end_s / 60:.2f} min"
-        if rt_start_s is not None and rt_end_s is not None
+        f"{signal.rt_start_s / 60:.2f}-{signal.rt_end_s / 60:.2f} min"
+        if signal.rt_start_s is not None and signal.rt_end_s is not None
         else "unknown"
     )
-    notes = []
+    results: list[ExpectedIonResult] = []
+    polarity_notes: list[str] = []
+    window_notes: list[str] = []
     for xic in expected:
+        if not _has_polarity_scans(xic.ion, polarities):
+            results.append(absent(xic.ion, searched=False))
+            sign = "positive" if xic.ion.charge > 0 else "negative"
+            polarity_notes.append(
+                f"expected ion {xic.ion.name}: the run has no {sign} MS1 scans; not searched"
+            )
+            continue
+        results.append(xic.summary())
         if xic.scans_in_window == 0 and xic.window_s is not None:
             lo, hi = xic.window_s
-            notes.append(
+            window_notes.append(
                 f"expected ion {xic.ion.name}: no MS1 scan in its RT window "
                 f"{lo / 60:g}-{hi / 60:g} min (the run spans {span}); reported not found"
             )
-    return notes
+    return tuple(results), polarity_notes + window_notes
 
 
 def _is_gzip(path: Path) -> bool:
