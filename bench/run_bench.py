@@ -175,7 +175,9 @@ def _bench_config() -> Any:
 
 def _prepare_measure() -> Callable[[Path], dict[str, Any]]:
     """Import the measuring code and load the CV before the timer, as a long-lived daemon does."""
-    from watcher.measure import cv, read  # noqa: F401 (measure_file imports the readers lazily)
+    from watcher.measure.readers import (
+        cv,
+    )
     from watcher.measure.run import measure_file
 
     cv.disable_remote()

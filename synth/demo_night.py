@@ -33,7 +33,7 @@ SPACING = timedelta(minutes=25)
 DURATION_S = 600.0  # 10-minute gradient: caffeine ~3 min, MRFA ~6 min, reserpine ~9 min
 
 # Theoretical m/z, computed from the compositions (and checked in tests against molmass and
-# shared/reference/check-ions.tsv): siloxane [(C2H6SiO)6+H]+, leucine enkephalin [M+H]+,
+# tests/data/check-ions.tsv): siloxane [(C2H6SiO)6+H]+, leucine enkephalin [M+H]+,
 # caffeine [M+H]+, MRFA [M+2H]2+, reserpine [M+H]+.
 SILOXANE_MZ = 445.120025
 LEU_ENK_MZ = 556.276575

@@ -19,7 +19,7 @@ from lxml import etree
 from pyteomics import mgf, mzml, mzxml
 
 from synth import CalibrantTruth, RunSpec, TargetTruth, simulate, write_mgf, write_mzml, write_mzxml
-from tests.refdata import REFERENCE as SHARED_REFERENCE
+from tests.helpers.refdata import REFERENCE as SHARED_REFERENCE
 
 REFERENCE = SHARED_REFERENCE
 XSD_DIR = Path(psims.__file__).parent / "validation" / "xsd"  # psims ships the PSI mzML XSDs

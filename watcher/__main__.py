@@ -2,6 +2,6 @@
 
 import sys
 
-from watcher.cli import main
+from watcher.cli.main import main
 
 sys.exit(main())

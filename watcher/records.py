@@ -245,7 +245,7 @@ class AlertAction(StrEnum):
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class AlertState:
-    """An open alert as last told to one channel (stepped by ``watcher.notify.alerts``).
+    """An open alert as last told to one channel (stepped by ``watcher.notify.alert_state``).
 
     Attributes:
         severity: the highest severity sent since the alert was raised (escalation compares to it).

@@ -24,8 +24,8 @@ from typing import Any
 import pytest
 
 import synth
-from tests import browser
 from tests.e2e.conftest import REPO, Lab, wait_for
+from tests.helpers import browser
 
 SILOXANE_MZ = 445.120025  # polysiloxane background ion [C2H6SiO]6+H+ (common practice, lock mass)
 DAY = datetime(2026, 11, 27, 18, 0, tzinfo=UTC)

@@ -1,6 +1,6 @@
 """The daemon end to end: a real subprocess on a real folder and SQLite file, judged exactly once.
 
-Expectations come from the issue ("Watch") and shared/RELIABILITY.md items 2, 3, 5 and 7 (the
+Expectations come from the issue ("Watch") and docs/reliability.md items 2, 3, 5 and 7 (the
 failure modes measured on this machine); run files come from the project's synthetic generator.
 """
 

@@ -1,6 +1,6 @@
 """Helpers that craft broken and hostile run files in a test's tmp_path from the reference files.
 
-Every file is derived from /work/shared/reference/ (mzML examples of HUPO-PSI, pymzML and
+Every file is derived from tests/data/ (mzML examples of HUPO-PSI, pymzML and
 pyteomics; the mzXML and MGF files of pyteomics' tests): cut, damaged or wrapped, never invented
 from scratch, so the damage is the only thing that differs from a file known to parse.
 """
@@ -16,7 +16,7 @@ import zlib
 from collections.abc import Iterator
 from pathlib import Path
 
-from tests.refdata import REFERENCE as SHARED_REFERENCE
+from tests.helpers.refdata import REFERENCE as SHARED_REFERENCE
 
 REFERENCE = SHARED_REFERENCE
 TINY = REFERENCE / "mzml" / "tiny.pwiz.1.1.mzML"  # indexed, uncompressed, mixed RT units
@@ -150,7 +150,7 @@ def zlib_ok(data: bytes) -> bool:
     return True
 
 
-# --- hostile XML (RELIABILITY.md item 1) ----------------------------------------------------
+# --- hostile XML (docs/reliability.md item 1) ----------------------------------------------------
 
 
 def attack_files(tmp: Path) -> Iterator[tuple[str, Path]]:

@@ -22,7 +22,7 @@ import pytest
 from molmass import Formula
 
 from synth import CalibrantTruth, RunSpec, RunTruth, TargetTruth, write_mgf, write_mzml, write_mzxml
-from tests.refdata import REFERENCE as SHARED_REFERENCE
+from tests.helpers.refdata import REFERENCE as SHARED_REFERENCE
 
 ROOT = Path(__file__).resolve().parents[2]
 REFERENCE = SHARED_REFERENCE
@@ -294,7 +294,7 @@ def _bad_files(folder: Path) -> dict[str, Path]:
     assert binary is not None
     start = binary.start(1) + 8
     files["QC_bad_checksum.mzML"] = data[:start] + b"AAAAAAAAAAAA" + data[start + 12 :]
-    # external entity pointing at a local file (XXE, shared/RELIABILITY.md item 1)
+    # external entity pointing at a local file (XXE, docs/reliability.md item 1)
     prolog_end = plain_data.index(b"?>") + 2
     doctype = f'\n<!DOCTYPE mzML [<!ENTITY xxe SYSTEM "{secret_file.as_uri()}">]>'.encode()
     xxe = plain_data[:prolog_end] + doctype + plain_data[prolog_end:]

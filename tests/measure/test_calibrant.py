@@ -16,8 +16,8 @@ from watcher.measure.run import measure_scans
 from watcher.measure.scan import Scan
 from watcher.records import CalibrantDrift, RunMetrics
 
-SILOXANE_MZ = 445.120025  # check-ions.tsv (shared/reference), [(C2H6SiO)6+H]+
-LEU_ENK_MZ = 556.276575  # check-ions.tsv (shared/reference), YGGFL [M+H]+
+SILOXANE_MZ = 445.120025  # check-ions.tsv (tests/data), [(C2H6SiO)6+H]+
+LEU_ENK_MZ = 556.276575  # check-ions.tsv (tests/data), YGGFL [M+H]+
 SILOXANE = IonSpec(name="siloxane-445", mz=SILOXANE_MZ, search_ppm=30)
 LEU_ENK = IonSpec(name="leu-enk", peptide="YGGFL", charge=1, search_ppm=30)
 

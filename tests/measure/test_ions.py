@@ -7,7 +7,7 @@ import csv
 import pytest
 from molmass import Formula
 
-from tests.refdata import REFERENCE as SHARED_REFERENCE
+from tests.helpers.refdata import REFERENCE as SHARED_REFERENCE
 from watcher.config import IonSpec
 from watcher.measure.ions import isotope_ratios, ppm_error, resolve
 
@@ -52,7 +52,7 @@ def test_mz_matches_reference_table(row_key: tuple[str, int], spec: IonSpec) -> 
     """Each check ion's m/z agrees with check-ions.tsv within 0.1 ppm."""
     row = CHECK_IONS[row_key]
     ion = resolve(spec)
-    # check-ions.tsv (shared/reference, computed with molmass 2026.1.8 from NIST masses)
+    # check-ions.tsv (tests/data, computed with molmass 2026.1.8 from NIST masses)
     assert abs(ppm_error(ion.mz, float(row["mz_molmass"]))) < 0.1
     assert ion.charge == int(row["charge"])
 
@@ -62,7 +62,7 @@ def test_isotope_ratios_match_reference_table(row_key: tuple[str, int], spec: Io
     """(M+1)/M and (M+2)/M agree with check-ions.tsv to its six printed decimals."""
     row = CHECK_IONS[row_key]
     ion = resolve(spec)
-    # check-ions.tsv (shared/reference; molmass Formula.spectrum(), all isotopes included)
+    # check-ions.tsv (tests/data; molmass Formula.spectrum(), all isotopes included)
     assert ion.m1_ratio_expected == pytest.approx(float(row["m1_over_m_molmass"]), abs=1e-6)
     assert ion.m2_ratio_expected == pytest.approx(float(row["m2_over_m_molmass"]), abs=1e-6)
 
@@ -146,7 +146,7 @@ def test_acetone_molecular_ion_at_nominal_58() -> None:
 def test_acetone_ratio_uses_full_abundances() -> None:
     """Acetone (M+1)/M includes 2H and 17O: 0.0335, not the thresholded 0.0325."""
     m1, _m2 = isotope_ratios({"C": 3, "H": 6, "O": 1})
-    # shared/reference/README.md pitfall 4 and check-ions.tsv (molmass: 0.033518)
+    # tests/data/README.md pitfall 4 and check-ions.tsv (molmass: 0.033518)
     assert m1 == pytest.approx(0.033518, abs=2e-6)
 
 

@@ -13,7 +13,7 @@ from typing import Any
 import jsonschema
 import pytest
 
-from tests.refdata import REFERENCE as SHARED_REFERENCE
+from tests.helpers.refdata import REFERENCE as SHARED_REFERENCE
 from watcher.measure.mzqc import build_mzqc, write_mzqc
 from watcher.records import (
     CalibrantDrift,

@@ -9,7 +9,7 @@ from tests.measure.scanfactory import centroid_arrays, profile_arrays, shifted
 from watcher.measure.ions import ppm_error
 from watcher.measure.peaks import find_peak, looks_profile, refine_apex
 
-SILOXANE_MZ = 445.120025  # check-ions.tsv (shared/reference), [(C2H6SiO)6+H]+
+SILOXANE_MZ = 445.120025  # check-ions.tsv (tests/data), [(C2H6SiO)6+H]+
 
 
 def test_centroid_takes_most_intense_point_in_window() -> None:

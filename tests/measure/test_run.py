@@ -10,8 +10,8 @@ from pathlib import Path
 import pytest
 
 from synth import CalibrantTruth, RunSpec, TargetTruth, write_mgf, write_mzml
+from tests.helpers.refdata import REFERENCE as SHARED_REFERENCE
 from tests.measure.scanfactory import Analyte, Calibrant, header, make_run
-from tests.refdata import REFERENCE as SHARED_REFERENCE
 from watcher.config import Config, ExpectedIon, IonSpec
 from watcher.errors import ConfigError, ReadError
 from watcher.measure.ions import resolve
@@ -255,7 +255,7 @@ def test_measure_file_recovers_synthetic_truth(
 def test_measure_file_reference_mzml_counts() -> None:
     """The mzML standard's tiny example measures 3 MS1 and 1 MS2 spectra."""
     metrics = measure_file(REFERENCE / "mzml" / "tiny.pwiz.1.1.mzML", DEMO)
-    # shared/reference/README.md (files.tsv): tiny.pwiz.1.1.mzML has 4 spectra, MS1=3, MS2=1
+    # tests/data/README.md (files.tsv): tiny.pwiz.1.1.mzML has 4 spectra, MS1=3, MS2=1
     assert metrics.signal.ms1_count == 3
     assert metrics.signal.ms2_count == 1
 
@@ -264,7 +264,7 @@ def test_measure_file_without_spectra_is_empty_error(tmp_path: Path) -> None:
     """A chromatogram-only mzML is unreadable with kind 'empty'."""
     path = tmp_path / "mini.chrom.mzML"
     shutil.copyfile(REFERENCE / "mzml" / "mini.chrom.mzML", path)
-    # shared/reference/README.md: mini.chrom.mzML holds 0 spectra (SRM chromatograms only)
+    # tests/data/README.md: mini.chrom.mzML holds 0 spectra (SRM chromatograms only)
     with pytest.raises(ReadError) as caught:
         measure_file(path, DEMO)
     assert caught.value.kind == "empty"

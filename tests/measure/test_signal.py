@@ -121,7 +121,7 @@ def test_header_tic_preferred_over_arrays() -> None:
         intensity=np.array([1.0, 5.0]),
     )
     metrics = _signal([scan])
-    # shared/reference/README.md pitfall 6: test.mzML header TIC differs from its array sum
+    # tests/data/README.md pitfall 6: test.mzML header TIC differs from its array sum
     assert metrics.tic_median == 15245068.0
     assert metrics.bpi_median == 1471973.875
 

@@ -71,7 +71,7 @@ def test_m1_ratio_expected_comes_from_composition() -> None:
     """The reported expected M+1/M is the check-ions.tsv value for caffeine [M+H]+."""
     scans = make_run(duration_s=300, analytes=[_analyte(CAFFEINE, 180.0)])
     result = _xic(scans, CAFFEINE, (2.0, 4.0), 1e4)
-    # check-ions.tsv (shared/reference): caffeine [M+H]+ (M+1)/M = 0.103166
+    # check-ions.tsv (tests/data): caffeine [M+H]+ (M+1)/M = 0.103166
     assert result.m1_ratio_expected == pytest.approx(0.103166, abs=1e-6)
 
 
@@ -126,6 +126,6 @@ def test_profile_xic_with_narrow_window_is_not_noisy() -> None:
     truth = _analyte(spec, 181.3, ppm=3.0)
     scans = make_run(duration_s=300, analytes=[truth], profile=True)
     result = _xic(scans, spec, (2.0, 4.0), 1e4)
-    # shared/PERFORMANCE.md: a raw +-10 ppm sum on profile data put 2 of 10 apexes 5-7 s off
+    # docs/performance.md: a raw +-10 ppm sum on profile data put 2 of 10 apexes 5-7 s off
     assert result.apex_rt_s == pytest.approx(181.3, abs=CYCLE_S)
     assert result.apex_intensity == pytest.approx(truth.height, rel=0.05)

@@ -13,8 +13,8 @@ import pytest
 import structlog
 
 from tests.notify.conftest import Clock, Receiver, make_finding
-from tests.notify.test_service import Harness, lab_config
-from watcher import cmd_status
+from tests.notify.test_notifier import Harness, lab_config
+from watcher.cli import status as cmd_status
 from watcher.config import Channel, Config
 from watcher.notify import deliver
 from watcher.records import Severity
@@ -172,7 +172,7 @@ def test_retry_waits_come_from_the_config(tmp_path: Path, receiver: Receiver, cl
 
 
 def test_timeouts_are_added_to_every_url() -> None:
-    """cto/rto come from the config unless the URL sets them (RELIABILITY.md item 4)."""
+    """cto/rto come from the config unless the URL sets them (docs/reliability.md item 4)."""
     from watcher.config import Alerts
 
     alerts = Alerts(connect_timeout_s=2.0, read_timeout_s=3.0)

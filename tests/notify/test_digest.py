@@ -13,8 +13,8 @@ from pathlib import Path
 
 import pytest
 
-from tests import browser
-from watcher import cmd_digest
+from tests.helpers import browser
+from watcher.cli import digest as cmd_digest
 from watcher.config import (
     BaselineSpec,
     Check,
@@ -38,7 +38,7 @@ from watcher.records import (
 )
 from watcher.store import db, history
 
-# m/z from shared/reference/check-ions.tsv (molmass column).
+# m/z from tests/data/check-ions.tsv (molmass column).
 SILOXANE_MZ = 445.120025
 CAFFEINE_MZ = 195.087652
 

@@ -1,7 +1,7 @@
 """The judge: applicable checks on a run's metrics and history into findings and a run status.
 
 Demo names from the project brief (invented lab "Larkfield Metabolomics Core"); calibrant and ion
-m/z values from /work/shared/reference/check-ions.tsv (molmass and pyteomics agree there).
+m/z values from tests/data/check-ions.tsv (molmass and pyteomics agree there).
 """
 
 from __future__ import annotations

@@ -29,7 +29,7 @@ from watchdog.observers.api import BaseObserver
 from watchdog.observers.polling import PollingObserver
 
 from watcher.config import Watch
-from watcher.intake.catchup import is_ignored, is_run_path
+from watcher.intake.folderwalk import is_ignored, is_run_path
 
 
 @dataclass(frozen=True, slots=True)

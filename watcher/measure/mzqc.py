@@ -1,6 +1,6 @@
 """Write run metrics as one mzQC 1.0 document, using PSI-MS CV accessions where a term exists.
 
-Metric -> term (PSI-MS CV 4.1.257, extract in shared/reference/psi-ms-qc-terms.tsv):
+Metric -> term (PSI-MS CV 4.1.257, extract in tests/data/psi-ms-qc-terms.tsv):
 
 ==============================  ===========================================================
 ``signal.ms1_count``            MS:4000059 number of MS1 spectra

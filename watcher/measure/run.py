@@ -117,8 +117,8 @@ def measure_file(
         ReadError: the file is truncated, corrupt, of no known format, or holds no spectra.
         ConfigError: an ion in the config cannot be resolved.
     """
-    from watcher import formats
-    from watcher.measure import read
+    from watcher.intake import formats
+    from watcher.measure.readers import read
 
     # A .gz stream is proven whole in the reading pass itself (one gunzip, not two); no metrics
     # leave here before that proof is in.
@@ -178,7 +178,7 @@ def _searched_ions(
 
 
 def _is_gzip(path: Path) -> bool:
-    from watcher import formats
+    from watcher.intake import formats
 
     try:
         return formats.sniff_format(path) == "mzML.gz"

@@ -2,7 +2,7 @@
 
 apprise 2.x fails by value: ``add()`` returns False for a URL it cannot use and ``notify()``
 returns a falsy result (FAILURE, PARTIAL, TIMEOUT, NOMATCH) instead of raising; both are checked.
-Every URL gets explicit ``cto``/``rto`` (shared/RELIABILITY.md item 4: a hanging receiver held a
+Every URL gets explicit ``cto``/``rto`` (docs/reliability.md item 4: a hanging receiver held a
 call 4 s by default, a silent SMTP server 15 s). URLs leave this module only masked
 (``url(privacy=True)``), and apprise's own logger is held at INFO or above because its DEBUG and
 TRACE output carry message bodies and passwords.

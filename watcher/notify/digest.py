@@ -21,7 +21,7 @@ from zoneinfo import ZoneInfo
 
 from watcher.config import Check, Config
 from watcher.notify import plots
-from watcher.notify.message import format_value
+from watcher.notify.alert_text import format_value
 
 _ACCEPTED = ("ok", "notice")
 _BASELINE_LOOKBACK = timedelta(days=30)

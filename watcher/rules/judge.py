@@ -34,7 +34,8 @@ from typing import Protocol
 
 from watcher.config import Check, Condition, matches_applies_to
 from watcher.records import STATUS_RANK, Finding, HistoryPoint, RunMetrics, Severity, Status
-from watcher.rules import messages, trend, westgard
+from watcher.rules import finding_text as messages
+from watcher.rules import trend, westgard
 from watcher.rules.baseline import Baseline, from_spec
 from watcher.rules.checks import (
     critical_bounds,

@@ -2,7 +2,7 @@
 
 Every writing transaction starts with ``BEGIN IMMEDIATE``: a deferred transaction that upgrades
 a read snapshot to a write fails at once with "database is locked", whatever the busy timeout
-(measured here, shared/RELIABILITY.md item 5). Never parse, hash or send inside ``write()``.
+(measured here, docs/reliability.md item 5). Never parse, hash or send inside ``write()``.
 """
 
 from __future__ import annotations

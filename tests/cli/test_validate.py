@@ -1,0 +1,105 @@
+"""`python -m watcher validate -c FILE` in a subprocess: ok line and exit 0, or problems and 2."""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+from tests.config.test_load_errors import CASES, marker_line
+
+ROOT = Path(__file__).resolve().parents[2]
+
+
+def run_validate(path: Path | str, *, cwd: Path) -> subprocess.CompletedProcess[str]:
+    env = {k: v for k, v in os.environ.items() if not k.startswith("IONWARDEN_TEST_")}
+    env["PYTHONPATH"] = str(ROOT)
+    return subprocess.run(
+        [sys.executable, "-m", "watcher", "validate", "-c", str(path)],
+        capture_output=True,
+        text=True,
+        cwd=cwd,
+        env=env,
+        timeout=60,
+        check=False,
+    )
+
+
+def test_valid_config_prints_summary(tmp_path: Path) -> None:
+    """A valid config prints one ok line with its counts and exits 0."""
+    result = run_validate(ROOT / "config" / "example.yaml", cwd=tmp_path)
+    assert result.returncode == 0, result.stderr
+    assert result.stdout == (
+        f"{ROOT / 'config' / 'example.yaml'}: ok (7 checks, 2 calibrants, 3 expected ions, "
+        "2 channels)\n"
+    )
+    assert result.stderr == ""
+
+
+def test_path_is_printed_as_given(tmp_path: Path) -> None:
+    """The file name in the output is the one on the command line, relative or not."""
+    (tmp_path / "lab.yaml").write_text("instrument: {name: Kestrel-2 Q-TOF}\n")
+    result = run_validate("lab.yaml", cwd=tmp_path)
+    assert result.returncode == 0, result.stderr
+    assert result.stdout == "lab.yaml: ok (0 checks, 0 calibrants, 0 expected ions, 0 channels)\n"
+
+
+@pytest.mark.parametrize(("text", "key_path", "fragment"), CASES)
+def test_error_case_through_cli(tmp_path: Path, text: str, key_path: str, fragment: str) -> None:
+    """Each mistake comes out as 'lab.yaml:LINE: KEY: message' on stderr with exit code 2."""
+    (tmp_path / "lab.yaml").write_text(text)
+    result = run_validate("lab.yaml", cwd=tmp_path)
+    assert result.returncode == 2
+    assert result.stdout == ""
+    assert "Traceback" not in result.stderr
+    prefix = f"lab.yaml:{marker_line(text)}: " + (f"{key_path}: " if key_path else "")
+    lines = result.stderr.splitlines()
+    assert any(line.startswith(prefix) and fragment in line for line in lines), lines
+
+
+def test_all_problems_one_per_line(tmp_path: Path) -> None:
+    """Three mistakes give three lines, in line order."""
+    (tmp_path / "lab.yaml").write_text(
+        "watch: {settle_s: 0}\n"
+        "calibrants:\n  - {name: a, mz: 445.12, serch_ppm: 30}\n"
+        "digest_at: '25:00'\n"
+    )
+    result = run_validate("lab.yaml", cwd=tmp_path)
+    assert result.returncode == 2
+    lines = result.stderr.splitlines()
+    assert [line.split(":")[1] for line in lines] == ["1", "3", "4"]
+
+
+def test_missing_file_exits_2(tmp_path: Path) -> None:
+    """A config that does not exist is one line and exit 2, no traceback."""
+    result = run_validate("nope.yaml", cwd=tmp_path)
+    assert result.returncode == 2
+    assert result.stderr == "nope.yaml: cannot read: No such file or directory\n"
+
+
+def test_python_tag_not_executed(tmp_path: Path) -> None:
+    """A !!python/object/apply tag is refused and its command never runs."""
+    marker = tmp_path / "pwned"
+    (tmp_path / "lab.yaml").write_text(
+        f"instrument: {{name: !!python/object/apply:os.system ['touch {marker}']}}\n"
+    )
+    result = run_validate("lab.yaml", cwd=tmp_path)
+    assert result.returncode == 2
+    assert "refused: YAML tag" in result.stderr
+    assert not marker.exists()
+
+
+def test_alias_bomb_refused_quickly(tmp_path: Path) -> None:
+    """A billion-laughs config is refused within a few seconds, process start included."""
+    lines = ["l0: &l0 [lol, lol, lol, lol, lol, lol, lol, lol, lol, lol]"]
+    lines += [f"l{i}: &l{i} [{', '.join([f'*l{i - 1}'] * 10)}]" for i in range(1, 9)]
+    (tmp_path / "lab.yaml").write_text("\n".join(lines) + "\n")
+    started = time.monotonic()
+    result = run_validate("lab.yaml", cwd=tmp_path)
+    assert time.monotonic() - started < 5.0
+    assert result.returncode == 2
+    assert "an alias bomb?" in result.stderr

@@ -1,0 +1,91 @@
+"""Hostile XML: every entity attack is refused quickly, before any parser could expand it."""
+
+from __future__ import annotations
+
+import io
+import time
+from pathlib import Path
+
+import pytest
+
+from tests.helpers.refdata import REFERENCE as SHARED_REFERENCE
+from tests.measure.badfiles import SECRET_MARKER, attack_files
+from watcher.errors import ReadError
+from watcher.intake.formats import completeness, sniff_format
+from watcher.measure.readers.read import open_run
+from watcher.measure.readers.safexml import DOCTYPE_REASON, assert_no_doctype
+
+# The four attack files and the 1 s bound are docs/reliability.md R1.1 (docs/reliability.md).
+ATTACKS = [
+    f"{a}-{f}"
+    for f in ("mzML", "mzXML")
+    for a in ("xxe_general", "xxe_param_dtd", "billion_laughs", "quadratic_blowup")
+]
+
+
+@pytest.fixture
+def attacks(tmp_path: Path) -> dict[str, Path]:
+    return dict(attack_files(tmp_path))
+
+
+@pytest.mark.parametrize("case", ATTACKS)
+def test_open_run_refuses_doctype_fast(attacks: dict[str, Path], case: str) -> None:
+    """open_run refuses each attack with kind xml-doctype in well under 1 s, marker unseen."""
+    path = attacks[case]
+    started = time.monotonic()
+    with pytest.raises(ReadError) as info, open_run(path) as (_header, scans):
+        list(scans)
+    assert time.monotonic() - started < 1.0  # docs/reliability.md R1.1
+    assert info.value.kind == "xml-doctype"
+    assert info.value.reason == DOCTYPE_REASON
+    assert SECRET_MARKER not in str(info.value)
+    assert path.name in str(info.value)
+    assert str(path.parent) not in str(info.value)
+
+
+@pytest.mark.parametrize("case", ATTACKS)
+def test_lxml_prolog_check_refuses_doctype(attacks: dict[str, Path], case: str) -> None:
+    """The lxml prolog check alone (second line behind the byte sniff) refuses each attack."""
+    path = attacks[case]
+    started = time.monotonic()
+    with pytest.raises(ReadError) as info:
+        assert_no_doctype(path)
+    assert time.monotonic() - started < 1.0  # docs/reliability.md R1.1
+    assert info.value.kind == "xml-doctype"
+    assert SECRET_MARKER not in str(info.value)
+
+
+@pytest.mark.parametrize("case", ATTACKS)
+def test_intake_checks_refuse_doctype(attacks: dict[str, Path], case: str) -> None:
+    """sniff_format refuses a DOCTYPE; completeness does not hold the file back to wait on it."""
+    path = attacks[case]
+    with pytest.raises(ReadError) as info:
+        sniff_format(path)
+    assert info.value.kind == "xml-doctype"
+    assert completeness(path) is None  # refused at once by open_run, not retried for 24 h
+
+
+def test_prolog_check_reads_streams(attacks: dict[str, Path]) -> None:
+    """assert_no_doctype accepts an open stream and names the given file in its error."""
+    data = attacks["xxe_general-mzML"].read_bytes()
+    with pytest.raises(ReadError) as info:
+        assert_no_doctype(io.BytesIO(data), name="QC_0412.mzML")
+    assert str(info.value).startswith("QC_0412.mzML: ")
+
+
+def test_prolog_check_passes_clean_file() -> None:
+    """A real mzML without DOCTYPE passes the prolog check (reference tiny.pwiz.1.1.mzML)."""
+    assert_no_doctype(SHARED_REFERENCE / "mzml" / "tiny.pwiz.1.1.mzML")
+
+
+def test_undeclared_entity_is_an_error_not_a_leak(tmp_path: Path) -> None:
+    """An entity reference without any DOCTYPE is a well-formedness error, nothing is expanded."""
+    body = (SHARED_REFERENCE / "mzml" / "adv_mzqc_in_mzml.mzML").read_bytes()
+    at = body.index(b"<spectrum ")
+    close = body.index(b">", at) + 1
+    path = tmp_path / "S01_undeclared.mzML"
+    path.write_bytes(body[:close] + b"<note>&xxe;</note>" + body[close:])
+    with pytest.raises(ReadError) as info, open_run(path) as (_header, scans):
+        list(scans)
+    assert info.value.kind == "corrupt"
+    assert "\n" not in str(info.value)  # one line (house rule); libxml2's wording varies

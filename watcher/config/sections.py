@@ -1,0 +1,222 @@
+"""Builders of the config sections other than ``checks``: YAML mappings -> ``watcher.config`` types.
+
+Each builder reads one section through ``Values`` (which records every bad value and goes on)
+and falls back to the dataclass defaults for keys that are missing or bad.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+from watcher.config.checks import build_checks
+from watcher.config.keys import KEYS
+from watcher.config.model import (
+    Alerts,
+    Channel,
+    Config,
+    ExpectedIon,
+    HealthLog,
+    Instrument,
+    IonSpec,
+    Limits,
+    SignalSettings,
+    Watch,
+)
+from watcher.config.values import Values
+from watcher.config.yamllines import KeyPath
+
+
+def build_config(v: Values, data: Any, source: Path) -> Config:
+    if data is None:
+        return Config(source=source)
+    top = v.mapping((), data, KEYS["config"], "config sections")
+    if top is None:
+        return Config(source=source)
+    kw: dict[str, Any] = {}
+    kw["instrument"] = _instrument(v, top.get("instrument"))
+    kw["watch"] = _watch(v, top.get("watch"))
+    v.put(kw, top, (), "state_dir", lambda p, x: None if x is None else v.path(p, x))
+    kw["calibrants"] = _ions(v, top.get("calibrants"), "calibrants", "calibrant")
+    expected = _ions(v, top.get("expected_ions"), "expected_ions", "expected_ion")
+    kw["expected_ions"] = tuple(ion for ion in expected if isinstance(ion, ExpectedIon))
+    kw["signal"] = _section(v, top.get("signal"), ("signal",), SignalSettings, _signal_fields(v))
+    kw["checks"] = build_checks(v, top.get("checks"), kw["calibrants"], kw["expected_ions"])
+    kw["alerts"] = _alerts(v, top.get("alerts"), {c.name for c in kw["checks"]})
+    kw["health_log"] = _section(
+        v,
+        top.get("health_log"),
+        ("health_log",),
+        HealthLog,
+        {
+            "dir": lambda p, x: None if x is None else v.path(p, x),
+            "keep_days": lambda p, x: v.integer(p, x, ge=1),
+        },
+    )
+    kw["limits"] = _section(
+        v,
+        top.get("limits"),
+        ("limits",),
+        Limits,
+        {
+            "parse_timeout_s": lambda p, x: v.duration(p, x),
+            "parse_timeout_s_per_gb": lambda p, x: v.duration(p, x, allow_zero=True),
+            "parse_memory_mb": lambda p, x: v.integer(p, x, ge=64),
+            "queue_max": lambda p, x: v.integer(p, x, ge=1),
+        },
+    )
+    v.put(kw, top, (), "digest_at", lambda p, x: None if x is None else v.time_of_day(p, x))
+    v.put(kw, top, (), "log_keep_days", lambda p, x: v.integer(p, x, ge=1))
+    return Config(source=source, **kw)
+
+
+Converter = Callable[[KeyPath, Any], Any]
+
+
+def _section(
+    v: Values, data: Any, path: KeyPath, cls: Callable[..., Any], fields: dict[str, Converter]
+) -> Any:
+    """A flat section: each YAML key converted by its converter, defaults for the rest."""
+    m = v.mapping(path, data, KEYS[str(path[-1])], f"{path[-1]} keys")
+    kw: dict[str, Any] = {}
+    for key, convert in fields.items():
+        v.put(kw, m or {}, path, key, convert)
+    return cls(**kw)
+
+
+def _signal_fields(v: Values) -> dict[str, Converter]:
+    return {
+        "dropout_fraction": lambda p, x: v.number(p, x, gt=0, lt=1),
+        "dropout_min_scans": lambda p, x: v.integer(p, x, ge=1),
+    }
+
+
+def _instrument(v: Values, data: Any) -> Instrument:
+    return _section(  # type: ignore[no-any-return]
+        v,
+        data,
+        ("instrument",),
+        Instrument,
+        {"name": lambda p, x: v.text(p, x), "timezone": lambda p, x: v.timezone(p, x)},
+    )
+
+
+def _watch(v: Values, data: Any) -> Watch:
+    fields: dict[str, Converter] = {
+        "folders": lambda p, x: tuple(v.path((*p, i), s) for i, s in enumerate(v.texts(p, x))),
+        "patterns": lambda p, x: v.texts(p, x),
+        "ignore": lambda p, x: v.texts(p, x),
+        "recursive": lambda p, x: v.boolean(p, x),
+        "settle_s": lambda p, x: v.duration(p, x),
+        "polling": lambda p, x: v.boolean(p, x),
+        "poll_interval_s": lambda p, x: v.duration(p, x),
+        "rescan_interval_s": lambda p, x: v.duration(p, x),
+        "max_wait_s": lambda p, x: v.duration(p, x),
+    }
+    return _section(v, data, ("watch",), Watch, fields)  # type: ignore[no-any-return]
+
+
+def _ions(v: Values, data: Any, key: str, kind: str) -> tuple[Any, ...]:
+    items = v.sequence((key,), data)
+    out: list[Any] = []
+    seen: dict[str, int] = {}
+    for i, item in enumerate(items):
+        path: KeyPath = (key, i)
+        m = v.mapping(path, item, KEYS[kind], f"{kind} keys")
+        if m is None:
+            continue
+        ion = _ion(v, path, m)
+        if ion is None:
+            continue
+        if not v.is_new_name(seen, ion.name, path, kind):
+            continue
+        if kind == "calibrant":
+            out.append(ion)
+            continue
+        kw: dict[str, Any] = {}
+        v.put(kw, m, path, "rt_window_min", lambda p, x: v.pair(p, x, ge=0))
+        v.put(kw, m, path, "min_intensity", lambda p, x: v.number(p, x, ge=0))
+        out.append(ExpectedIon(ion=ion, **kw))
+    return tuple(out)
+
+
+def _ion(v: Values, path: KeyPath, m: dict[str, Any]) -> IonSpec | None:
+    kw: dict[str, Any] = {}
+    ok = v.require(path, m, "name")
+    v.put(kw, m, path, "name", lambda p, x: v.name(p, x))
+    ways = [k for k in ("mz", "formula", "peptide") if k in m]
+    if not ways:
+        v.problem(path, "an ion needs one of mz, formula (with adduct) or peptide (with charge)")
+        ok = False
+    elif len(ways) > 1:
+        v.problem(
+            (*path, ways[1]), f"give only one of mz, formula or peptide, got {' and '.join(ways)}"
+        )
+        ok = False
+    v.put(kw, m, path, "mz", lambda p, x: v.number(p, x, gt=0))
+    v.put(kw, m, path, "formula", lambda p, x: v.pattern(p, x, "formula"))
+    v.put(kw, m, path, "peptide", lambda p, x: v.pattern(p, x, "peptide"))
+    v.put(kw, m, path, "adduct", lambda p, x: v.pattern(p, x, "adduct"))
+    v.put(kw, m, path, "charge", lambda p, x: v.integer(p, x, ne=0))
+    v.put(kw, m, path, "search_ppm", lambda p, x: v.number(p, x, gt=0))
+    if "adduct" in m and "mz" in m:
+        v.problem((*path, "adduct"), "adduct does not apply to an ion given by mz")
+        ok = False
+    if not ok or "name" not in kw:
+        return None
+    return IonSpec(**kw)
+
+
+def _alerts(v: Values, data: Any, check_names: set[str]) -> Alerts:
+    path: KeyPath = ("alerts",)
+    m = v.mapping(path, data, KEYS["alerts"], "alerts keys") or {}
+    kw: dict[str, Any] = {}
+    v.put(kw, m, path, "channels", lambda p, x: _channels(v, p, x, check_names))
+
+    def seconds_or_never(p: KeyPath, x: Any) -> float | None:
+        return v.duration(p, x, allow_never=True)
+
+    v.put(kw, m, path, "remind_every", seconds_or_never, field="remind_every_s")
+    v.put(kw, m, path, "send_cleared", lambda p, x: v.boolean(p, x))
+    v.put(kw, m, path, "expect_run_every", seconds_or_never, field="expect_run_every_s")
+    v.put(kw, m, path, "active_hours", lambda p, x: None if x is None else v.hours(p, x))
+    for key in ("timeout_s", "connect_timeout_s", "read_timeout_s"):
+        v.put(kw, m, path, key, lambda p, x: v.duration(p, x))
+    v.put(kw, m, path, "retry_for", lambda p, x: v.duration(p, x), field="retry_for_s")
+    v.put(
+        kw, m, path, "retry_first_wait", lambda p, x: v.duration(p, x), field="retry_first_wait_s"
+    )
+    v.put(kw, m, path, "retry_max_wait", lambda p, x: v.duration(p, x), field="retry_max_wait_s")
+    v.put(kw, m, path, "plots", lambda p, x: v.boolean(p, x))
+    alerts = Alerts(**kw)
+    if alerts.retry_first_wait_s > alerts.retry_max_wait_s:
+        key = "retry_first_wait" if "retry_first_wait" in m else "retry_max_wait"
+        v.problem(
+            (*path, key),
+            f"retry_first_wait ({alerts.retry_first_wait_s:g} s) is longer than "
+            f"retry_max_wait ({alerts.retry_max_wait_s:g} s)",
+        )
+    return alerts
+
+
+def _channels(v: Values, path: KeyPath, data: Any, check_names: set[str]) -> tuple[Channel, ...]:
+    out: list[Channel] = []
+    seen: dict[str, int] = {}
+    for i, item in enumerate(v.sequence(path, data)):
+        p_item: KeyPath = (*path, i)
+        m = v.mapping(p_item, item, KEYS["channel"], "channel keys")
+        if m is None:
+            continue
+        kw: dict[str, Any] = {}
+        ok = v.require(p_item, m, "name") & v.require(p_item, m, "url")
+        v.put(kw, m, p_item, "name", lambda p, x: v.text(p, x))
+        v.put(kw, m, p_item, "url", lambda p, x: v.text(p, x))
+        v.put(kw, m, p_item, "min_severity", lambda p, x: v.severity(p, x))
+        v.put(kw, m, p_item, "checks", lambda p, x: v.names_of(p, x, check_names, "check"))
+        if not ok or "name" not in kw or "url" not in kw:
+            continue
+        if not v.is_new_name(seen, kw["name"], p_item, "channel"):
+            continue
+        out.append(Channel(**kw))
+    return tuple(out)

@@ -1,0 +1,401 @@
+"""The daemon's wiring and process life: watcher, settler, worker, signals, reload, sd_notify.
+
+``ionwarden run -c CONFIG`` calls ``main(args)``; the demo drives a ``Daemon`` in-process with
+``start()``, ``wait_idle()`` and ``close()``. Threads: watchdog's observer (hints only), one worker
+(measures one run at a time in a child process) and the main loop here, which hands hints and
+scans to the settler (``watcher.intake.pending``), queues the files it settles as jobs, checks
+the heartbeat, ticks the notifier and talks to systemd. Only the main loop pings the systemd
+watchdog, and only while the observer lives and the worker makes progress.
+"""
+
+from __future__ import annotations
+
+import argparse
+import contextlib
+import queue
+import signal
+import sqlite3
+import threading
+import time
+from collections.abc import Callable
+from pathlib import Path
+from types import FrameType
+from typing import Any
+
+import structlog
+
+from watcher import config as config_mod
+from watcher.config import Config, state_dir_of
+from watcher.daemon import logs, sdnotify
+from watcher.daemon import norun_alert as heartbeat
+from watcher.daemon.pipeline import Pipeline, time_limit_s
+from watcher.errors import ConfigError, ConfigProblem, IonwardenError, StoreError
+from watcher.intake import watch
+from watcher.intake.pending import Settled, Settler
+from watcher.intake.readiness import FileStat
+from watcher.notify.notifier import Notifier
+from watcher.store import db, jobs
+
+log = structlog.get_logger("watcher.daemon")
+
+TICK_S = 0.1
+STATUS_EVERY_S = 2.0
+NOTIFY_TICK_EVERY_S = 1.0
+CHECKPOINT_EVERY_S = 3600.0
+
+
+class Daemon:
+    """One daemon instance: ``start()``, then ``run()`` (blocking) or ``step()`` from a loop."""
+
+    def __init__(self, config: Config, *, clock: Callable[[], float] = time.time) -> None:
+        self.config = config
+        self.clock = clock
+        self.state_dir = state_dir_of(config)
+        self.hints: queue.Queue[watch.Hint] = queue.Queue(maxsize=max(1, config.limits.queue_max))
+        self.rescan = watch.RescanFlag()
+        self.settler = Settler(config.watch)
+        self.stop_event = threading.Event()
+        self.wake_worker = threading.Event()
+        self._stop_requested = threading.Event()
+        self._reload_requested = threading.Event()
+        self._observer: Any = None
+        self._overflow: watch.OverflowWatch | None = None
+        self._worker: threading.Thread | None = None
+        self._busy_since: float | None = None
+        self._busy_limit_s = 0.0
+        self._last_scan = 0.0
+        self._last_status = 0.0
+        self._last_notify_tick = 0.0
+        self._last_checkpoint = 0.0
+        self._started_s = 0.0
+        self._last_arrival_s = 0.0
+        self.conn: sqlite3.Connection | None = None
+        self.notifier: Any = None
+        self.pipeline: Pipeline | None = None
+
+    def _conn(self) -> sqlite3.Connection:
+        if self.conn is None:
+            raise StoreError("the daemon is not started (call start() first)")
+        return self.conn
+
+    # -- life -----------------------------------------------------------------------------------
+
+    def start(self) -> None:
+        """Open the store, resume interrupted work, start watching and queue the first scan.
+
+        Raises:
+            StoreError: state folder unusable (network filesystem, permissions).
+            DeliveryError: an alert channel was refused.
+        """
+        now_s = self.clock()
+        self._started_s = now_s
+        self.conn = db.connect(self.state_dir, daemon=True)
+        worker_conn = db.connect(self.state_dir, daemon=True)
+        for folder in self.config.watch.folders:
+            if not Path(folder).is_dir():
+                raise StoreError(f"watch folder {folder} does not exist or is not a folder")
+            if not self.config.watch.polling and db.is_network_fs(db.filesystem_type(folder)):
+                log.warning(
+                    "watch.network_folder",
+                    folder=str(folder),
+                    advice="inotify sees nothing on network shares; set watch.polling: true",
+                )
+        self.notifier = self._make_notifier(self.config)
+        with db.write(self.conn):
+            requeued = jobs.requeue_interrupted(self.conn, now_s)
+            if self.notifier is not None:
+                self.notifier.record_event(self.conn, "daemon.started", now_s)
+        if self.notifier is not None:
+            self.notifier.write_event("daemon.started")
+            self.notifier.start_delivery()
+        self._last_arrival_s = max(now_s, jobs.last_arrival_s(self.conn) or 0.0)
+        self.pipeline = Pipeline(
+            self.config, worker_conn, self.notifier, self.stop_event, self.clock
+        )
+        self.pipeline.resume_health_lines()
+        self._observer, self._overflow = watch.start_watching(
+            self.config.watch, self.hints, self.rescan
+        )
+        self._full_scan("start-up")
+        self._worker = threading.Thread(target=self._work, name="ionwarden-worker", daemon=True)
+        self._worker.start()
+        log.info(
+            "daemon.started",
+            state_dir=str(self.state_dir),
+            folders=[str(f) for f in self.config.watch.folders],
+            polling=self.config.watch.polling,
+            requeued=requeued,
+        )
+        sdnotify.notify("READY=1")
+        log.info("daemon.ready")
+
+    def run(self) -> int:
+        """The main loop until SIGTERM/SIGINT (``request_stop``); returns the exit code."""
+        watchdog_every_s = sdnotify.watchdog_interval_s()
+        last_ping = 0.0
+        while not self._stop_requested.is_set():
+            self.step()
+            due = watchdog_every_s is not None and time.monotonic() - last_ping >= watchdog_every_s
+            if due and self.is_healthy():
+                sdnotify.notify("WATCHDOG=1")
+                last_ping = time.monotonic()
+            self._stop_requested.wait(TICK_S)
+        self.close()
+        return 0
+
+    def request_stop(self) -> None:
+        self._stop_requested.set()
+
+    def request_reload(self) -> None:
+        self._reload_requested.set()
+
+    def close(self) -> None:
+        """Stop cleanly: STOPPING=1, stop watching, re-queue the run in flight, checkpoint WAL."""
+        sdnotify.notify("STOPPING=1")
+        log.info("daemon.stopping")
+        if self._observer is not None and self._overflow is not None:
+            watch.stop_watching(self._observer, self._overflow)
+        self.stop_event.set()
+        self.wake_worker.set()
+        if self._worker is not None:
+            self._worker.join(10.0)
+        if self.pipeline is not None:
+            self.pipeline.child.close()
+        if self.notifier is not None and self.conn is not None:
+            with db.write(self.conn):
+                self.notifier.record_event(self.conn, "daemon.stopped", self.clock())
+            self.notifier.write_event("daemon.stopped")
+            self.notifier.stop_delivery(2.0)
+        for conn in (self.conn, self.pipeline.conn if self.pipeline else None):
+            if conn is not None:
+                # Another connection may still be reading: the next start folds the WAL in.
+                with contextlib.suppress(sqlite3.Error):
+                    db.checkpoint(conn)
+                conn.close()
+        self.conn = None
+        log.info("daemon.stopped")
+
+    # -- main loop --------------------------------------------------------------------------------
+
+    def step(self) -> None:
+        """One pass of the main loop: reload, scans, hints, settle checks, heartbeat, notifier."""
+        self._conn()  # raises before start()
+        now_s = self.clock()
+        if self._reload_requested.is_set():
+            self._reload_requested.clear()
+            self._reload()
+        reason = self.rescan.take()
+        if reason is not None:
+            self._full_scan(reason)
+        elif now_s - self._last_scan >= self.config.watch.rescan_interval_s:
+            self._full_scan("interval")
+        self._drain_hints(now_s)
+        self._settle_due(now_s)
+        self._heartbeat(now_s)
+        if self.notifier is not None and now_s - self._last_notify_tick >= NOTIFY_TICK_EVERY_S:
+            self._last_notify_tick = now_s
+            self.notifier.tick(self._conn(), now_s)
+        if now_s - self._last_status >= STATUS_EVERY_S:
+            self._last_status = now_s
+            self._status()
+        if now_s - self._last_checkpoint >= CHECKPOINT_EVERY_S and self._busy_since is None:
+            self._last_checkpoint = now_s
+            db.checkpoint(self._conn())
+
+    def is_healthy(self) -> bool:
+        """Observer thread alive, and the worker idle or within its run's time limit."""
+        if self._observer is None or not self._observer.is_alive():
+            return False
+        if self._worker is None or not self._worker.is_alive():
+            return False
+        busy = self._busy_since
+        return busy is None or time.monotonic() - busy <= self._busy_limit_s + 60.0
+
+    def wait_idle(self, timeout_s: float) -> bool:
+        """For in-process use (demo, tests): step until nothing is pending, queued or measuring."""
+        deadline = time.monotonic() + timeout_s
+        while time.monotonic() < deadline:
+            self.step()
+            counts = jobs.counts(self._conn())
+            if (
+                not self.settler.pending
+                and self.hints.empty()
+                and counts["queued"] == 0
+                and counts["measuring"] == 0
+                and self._busy_since is None
+            ):
+                return True
+            time.sleep(TICK_S)
+        return False
+
+    def _full_scan(self, reason: str) -> None:
+        now_s = self.clock()
+        files, added = self.settler.scan(jobs.known_identities(self._conn()), now_s)
+        self._last_scan = now_s
+        log.info("scan.completed", reason=reason, files=files, new=added)
+
+    def _drain_hints(self, now_s: float) -> None:
+        while True:
+            try:
+                hint = self.hints.get_nowait()
+            except queue.Empty:
+                return
+            self.settler.take_hint(hint, now_s)
+
+    def _settle_due(self, now_s: float) -> None:
+        ready = self.settler.due(now_s, self._is_known)
+        if ready:
+            self._enqueue(ready, now_s)
+
+    def _is_known(self, path: Path, stat: FileStat) -> bool:
+        return jobs.known(self._conn(), path, stat.size, stat.mtime_ns)
+
+    def _enqueue(self, ready: list[Settled], now_s: float) -> None:
+        added: list[tuple[int, Path]] = []
+        resumed = False
+        with db.write(self._conn()):
+            for item in ready:
+                job_id = jobs.enqueue(
+                    self._conn(),
+                    item.path,
+                    item.stat.size,
+                    item.stat.mtime_ns,
+                    now_s,
+                    incomplete=item.incomplete,
+                )
+                if job_id is not None:
+                    added.append((job_id, item.path))
+            if added:
+                self._last_arrival_s = now_s
+                resumed = heartbeat.resume(self._conn(), self.notifier, now_s)
+        for job_id, path in added:
+            log.info("run.queued", file=str(path), job_id=job_id)
+        if resumed:
+            heartbeat.announce_resumed(self.notifier)
+        if added:
+            self.wake_worker.set()
+
+    def _heartbeat(self, now_s: float) -> None:
+        heartbeat.check(self._conn(), self.notifier, self.config, now_s, self._last_arrival_s)
+
+    def _status(self) -> None:
+        counts = jobs.counts(self._conn())
+        last = self.pipeline.last_file if self.pipeline else None
+        sdnotify.notify(
+            f"STATUS=queued {counts['queued']}, settling {len(self.settler.pending)}, "
+            f"done {counts['done']}; last run {last or 'none yet'}"
+        )
+
+    # -- reload ---------------------------------------------------------------------------------
+
+    def _reload(self) -> None:
+        source = self.config.source
+        if source is None:
+            return
+        sdnotify.notify("RELOADING=1")
+        try:
+            new = config_mod.load(source)
+            notifier = self._make_notifier(new)
+        except IonwardenError as exc:
+            text = str(exc).replace("\n", "; ")
+            log.error("config.rejected", config=str(source), error=text)
+            if self.notifier is not None:
+                with db.write(self._conn()):
+                    self.notifier.record_event(
+                        self._conn(), "config.rejected", self.clock(), error=text
+                    )
+                self.notifier.write_event("config.rejected", error=text)
+            sdnotify.notify("READY=1")
+            return
+        old = self.config
+        self.config = new
+        self.settler.watch = new.watch
+        if self.notifier is not None:
+            self.notifier.stop_delivery(2.0)
+        self.notifier = notifier
+        if notifier is not None:
+            notifier.start_delivery()
+        if self.pipeline is not None:
+            self.pipeline.config = new
+            self.pipeline.notifier = notifier
+        if new.watch != old.watch and self._observer is not None and self._overflow is not None:
+            watch.stop_watching(self._observer, self._overflow)
+            self._observer, self._overflow = watch.start_watching(
+                new.watch, self.hints, self.rescan
+            )
+            self.rescan.set("watch settings changed")
+        log.info("config.reloaded", config=str(source))
+        sdnotify.notify("READY=1")
+
+    def _make_notifier(self, config: Config) -> Notifier:
+        notifier = Notifier(config, self.state_dir, clock=self.clock)
+        notifier.validate_channels()
+        return notifier
+
+    # -- worker ---------------------------------------------------------------------------------
+
+    def _work(self) -> None:
+        pipeline = self.pipeline
+        if pipeline is None:
+            return
+        while not self.stop_event.is_set():
+            with db.write(pipeline.conn):
+                job = jobs.claim_next(pipeline.conn, self.clock())
+            if job is None:
+                self.wake_worker.wait(0.5)
+                self.wake_worker.clear()
+                continue
+            self._busy_limit_s = time_limit_s(self.config.limits, job.size)
+            self._busy_since = time.monotonic()
+            try:
+                if pipeline.process(job) == "requeued" and not self.stop_event.is_set():
+                    self.stop_event.wait(5.0)  # the child could not start: do not spin
+            except Exception:
+                log.exception("run.failed", file=str(job.path))
+                try:
+                    pipeline.fail(job, "internal error (see the daemon log)")
+                except sqlite3.Error:
+                    log.exception("run.failed", file=str(job.path))
+            finally:
+                self._busy_since = None
+
+
+def main(args: argparse.Namespace) -> int:
+    """``ionwarden run -c CONFIG``: 0 after SIGTERM/SIGINT, 2 bad config, 3 unusable store."""
+    config = config_mod.load(Path(args.config))  # ConfigError -> exit 2 in cli.main
+    if not config.watch.folders:
+        # A daemon that watches nothing would look healthy to systemd while missing every run.
+        raise ConfigError(
+            [
+                ConfigProblem(
+                    str(args.config),
+                    None,
+                    "watch.folders",
+                    "the daemon needs at least one folder to watch (the instrument's export "
+                    "folder), got none",
+                )
+            ]
+        )
+    state_dir = state_dir_of(config)
+    if db.is_network_fs(db.filesystem_type(state_dir if state_dir.exists() else state_dir.parent)):
+        raise StoreError(
+            f"state_dir {state_dir} is on a network filesystem; SQLite WAL needs a local disk"
+        )
+    logs.configure_daemon(state_dir / "logs", config.log_keep_days)
+    daemon = Daemon(config)
+
+    def on_stop(signum: int, frame: FrameType | None) -> None:
+        daemon.request_stop()
+
+    def on_hup(signum: int, frame: FrameType | None) -> None:
+        daemon.request_reload()
+
+    signal.signal(signal.SIGTERM, on_stop)
+    signal.signal(signal.SIGINT, on_stop)
+    signal.signal(signal.SIGHUP, on_hup)
+    try:
+        daemon.start()
+    except (StoreError, ConfigError) as exc:
+        log.error("daemon.failed", error=str(exc))
+        raise
+    return daemon.run()

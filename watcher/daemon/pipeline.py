@@ -1,0 +1,387 @@
+"""One run through the daemon: hash, measure in a child with limits, judge, record, notify.
+
+The final write for a run is ONE transaction (verdict in the history, the alert step, job
+``done``), so a kill at any moment leaves the run either wholly unjudged (measured again after
+restart) or wholly judged; the health-log line is written after the commit and is idempotent.
+Nothing slow happens inside a transaction: hashing, the child and judging come first.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import hashlib
+import os
+import pickle
+import select
+import signal
+import sqlite3
+import subprocess
+import sys
+import threading
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+import structlog
+
+from watcher.config import Config, Limits
+from watcher.daemon.child import HEADER, READY, frame
+from watcher.records import RunFile, RunMetrics, Status, Verdict
+from watcher.store import db, jobs
+
+log = structlog.get_logger("watcher.daemon.pipeline")
+
+_HASH_CHUNK = 1 << 20
+
+
+class Stopped(Exception):
+    """The daemon is stopping: the job goes back to the queue."""
+
+
+@dataclass(frozen=True, slots=True)
+class ChildResult:
+    """What the measuring child gave back: metrics, or an error kind and one-line reason."""
+
+    metrics: RunMetrics | None
+    error_kind: str | None = None
+    error: str | None = None
+
+
+def time_limit_s(limits: Limits, size: int) -> float:
+    """Wall-clock limit for measuring a file of ``size`` bytes: base + per-GB share."""
+    return limits.parse_timeout_s + limits.parse_timeout_s_per_gb * size / 1e9
+
+
+def memory_limit_mb(limits: Limits, size: int) -> int:
+    """Address-space limit for the child: the configured MB plus the file size.
+
+    Streaming readers stay flat, but decompression buffers of a large file scale with it.
+    """
+    return int(limits.parse_memory_mb + size / (1024 * 1024))
+
+
+def sha256_file(path: Path, stop: threading.Event | None = None) -> str:
+    """Content hash, streamed in 1 MiB chunks (checks ``stop`` between chunks)."""
+    digest = hashlib.sha256()
+    with path.open("rb") as fh:
+        while chunk := fh.read(_HASH_CHUNK):
+            digest.update(chunk)
+            if stop is not None and stop.is_set():
+                raise Stopped
+    return digest.hexdigest()
+
+
+class MeasuringChild:
+    """One long-lived ``python -m watcher.daemon.child``, spawned on demand, killed past a limit.
+
+    The child pays the interpreter start and the reader imports (about a second) once, not per
+    run, so a burst of small files is not bound by process start-up. Past the wall-clock limit
+    the child is killed and the next run starts a fresh one; it is also recycled every
+    ``recycle_after`` runs so that no slow growth accumulates over months.
+    """
+
+    def __init__(self, *, startup_limit_s: float = 120.0, recycle_after: int = 500) -> None:
+        self._proc: subprocess.Popen[bytes] | None = None
+        self._served = 0
+        self._startup_limit_s = startup_limit_s
+        self._recycle_after = recycle_after
+
+    def measure(
+        self, config: Config, path: Path, size: int, stop: threading.Event | None = None
+    ) -> ChildResult:
+        """Measure one file in the child; kill it past the time limit, report memory exhaustion."""
+        limit_s = time_limit_s(config.limits, size)
+        memory_mb = memory_limit_mb(config.limits, size)
+        proc = self._ensure(stop)
+        payload = frame(pickle.dumps((config, str(path), memory_mb)))
+        try:
+            if proc.stdin is None:
+                raise BrokenPipeError
+            proc.stdin.write(payload)
+            proc.stdin.flush()
+        except (BrokenPipeError, OSError):
+            return self._died(memory_mb, stop)
+        data = self._read_frame(proc, time.monotonic() + limit_s, stop)
+        if data is None:
+            if proc.poll() is None:  # still running: the time limit passed
+                self.close()
+                shown = f"{limit_s:.0f}" if limit_s >= 10 else f"{limit_s:.2g}"
+                return ChildResult(None, "timeout", f"timeout after {shown} s")
+            return self._died(memory_mb, stop)
+        self._served += 1
+        try:
+            result: tuple[Any, ...] = pickle.loads(data)  # noqa: S301 - our own child
+        except (pickle.UnpicklingError, EOFError, AttributeError, ValueError) as exc:
+            self.close()
+            return ChildResult(None, "corrupt", f"measuring process sent no result ({exc})")
+        if self._served >= self._recycle_after or result[1:2] == ("memory",):
+            self.close()
+        if result[0] == "ok":
+            return ChildResult(result[1])
+        return ChildResult(None, str(result[1]), str(result[2]))
+
+    def close(self) -> None:
+        """Stop the child (kill: it holds nothing worth saving)."""
+        proc, self._proc = self._proc, None
+        self._served = 0
+        if proc is None:
+            return
+        if proc.poll() is None:
+            proc.kill()
+        for stream in (proc.stdin, proc.stdout):
+            if stream is not None:
+                with contextlib.suppress(OSError):
+                    stream.close()
+        proc.wait(timeout=10)
+
+    def _ensure(self, stop: threading.Event | None) -> subprocess.Popen[bytes]:
+        if self._proc is not None and self._proc.poll() is None:
+            return self._proc
+        self.close()
+        env = dict(os.environ)
+        # One thread per numeric library: BLAS thread pools reserve address space under RLIMIT_AS.
+        env.update(OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1", MKL_NUM_THREADS="1")
+        proc = subprocess.Popen(
+            [sys.executable, "-m", "watcher.daemon.child"],
+            stdin=subprocess.PIPE,
+            stdout=subprocess.PIPE,
+            stderr=subprocess.DEVNULL,
+            env=env,
+        )
+        self._proc = proc
+        if proc.stdout is None:
+            raise ChildStartError("the measuring process has no output pipe")
+        ready = _read_exact(proc.stdout.fileno(), 1, time.monotonic() + self._startup_limit_s, stop)
+        if ready != READY:
+            self.close()
+            if stop is not None and stop.is_set():
+                raise Stopped
+            raise ChildStartError("the measuring process did not start")
+        return proc
+
+    def _read_frame(
+        self, proc: subprocess.Popen[bytes], deadline: float, stop: threading.Event | None
+    ) -> bytes | None:
+        if proc.stdout is None:
+            return None
+        fd = proc.stdout.fileno()
+        header = _read_exact(fd, HEADER.size, deadline, stop)
+        if header is None:
+            return None
+        (length,) = HEADER.unpack(header)
+        return _read_exact(fd, length, deadline, stop)
+
+    def _died(self, memory_mb: int, stop: threading.Event | None) -> ChildResult:
+        proc = self._proc
+        code = proc.wait(timeout=10) if proc is not None else None
+        self.close()
+        if stop is not None and stop.is_set():
+            raise Stopped  # systemd signals the whole cgroup on stop: not the file's fault
+        if code == -signal.SIGKILL:  # killed by the kernel's OOM killer or the unit's MemoryMax
+            return ChildResult(None, "memory", f"out of memory (limit {memory_mb} MB)")
+        return ChildResult(None, "corrupt", f"measuring process died (exit {code})")
+
+
+class ChildStartError(Exception):
+    """The measuring child did not come up (it is retried with the next run)."""
+
+
+def _read_exact(fd: int, n: int, deadline: float, stop: threading.Event | None) -> bytes | None:
+    """``n`` bytes from ``fd`` by ``deadline``; None on timeout or end of stream."""
+    chunks: list[bytes] = []
+    got = 0
+    while got < n:
+        if stop is not None and stop.is_set():
+            raise Stopped
+        wait_s = min(0.25, deadline - time.monotonic())
+        if wait_s <= 0:
+            return None
+        readable, _, _ = select.select([fd], [], [], wait_s)
+        if not readable:
+            continue
+        chunk = os.read(fd, min(n - got, 1 << 20))
+        if not chunk:
+            return None
+        chunks.append(chunk)
+        got += len(chunk)
+    return b"".join(chunks)
+
+
+@dataclass(slots=True)
+class Pipeline:
+    """Processes claimed jobs with one connection (the worker thread's).
+
+    Attributes:
+        config: the config in force (replaced on reload; read once per job).
+        conn: the worker's own SQLite connection.
+        notifier: the alerting service, or None when notify is not available.
+        stop: set when the daemon stops; a job in flight goes back to the queue.
+        clock: wall-clock seconds.
+    """
+
+    config: Config
+    conn: sqlite3.Connection
+    notifier: Any
+    stop: threading.Event
+    clock: Callable[[], float] = time.time
+    last_file: str | None = None
+    child: MeasuringChild = field(default_factory=MeasuringChild)
+
+    def process(self, job: jobs.Job) -> str:
+        """Take a claimed job to ``done`` (back to ``queued`` when stopping); returns outcome."""
+        config = self.config
+        structlog.contextvars.bind_contextvars(job_id=job.id, file=str(job.path))
+        try:
+            return self._process(config, job)
+        except (Stopped, ChildStartError) as exc:
+            self.child.close()
+            with db.write(self.conn):
+                jobs.release(self.conn, job.id, self.clock())
+            why = "daemon stopping" if isinstance(exc, Stopped) else str(exc)
+            log.info("run.requeued", reason=why)
+            return "requeued"
+        finally:
+            structlog.contextvars.unbind_contextvars("job_id", "file", "run_id")
+
+    def _process(self, config: Config, job: jobs.Job) -> str:
+        path = job.path
+        sha256: str | None = job.sha256
+        result: ChildResult
+        if job.incomplete is not None:
+            result = ChildResult(None, "incomplete", job.incomplete)
+        else:
+            try:
+                st = path.stat()
+            except OSError:
+                return self._drop(job, "vanished before it was measured")
+            if (st.st_size, st.st_mtime_ns) != (job.size, job.mtime_ns):
+                # Changed since it settled: the new identity gets its own job from the next look.
+                return self._drop(job, "changed before it was measured")
+            try:
+                sha256 = sha256_file(path, self.stop)
+            except OSError as exc:
+                return self._drop(job, f"cannot be read: {exc.strerror}")
+            # One worker: no other job can finish between this read and the write below.
+            twin = jobs.same_content(self.conn, sha256, job.id)
+            if twin is not None:
+                with db.write(self.conn):
+                    jobs.finish(
+                        self.conn,
+                        job.id,
+                        self.clock(),
+                        state=jobs.JobState.DONE,
+                        outcome="duplicate",
+                        run_id=twin.run_id,
+                        duplicate_of=twin.id,
+                        sha256=sha256,
+                    )
+                log.info("run.duplicate", same_as=str(twin.path), run_id=twin.run_id)
+                return "duplicate"
+            started = time.monotonic()
+            result = self.child.measure(config, path, job.size, self.stop)
+            if result.metrics is not None:
+                log.info(
+                    "run.measured",
+                    duration_s=round(time.monotonic() - started, 3),
+                    ms1_count=result.metrics.signal.ms1_count,
+                )
+            else:
+                log.warning("run.unreadable", kind=result.error_kind, reason=result.error)
+        run_file = RunFile(path=path, size=job.size, mtime_ns=job.mtime_ns, sha256=sha256)
+        verdict, acquired_at = self._judge(config, run_file, result)
+        now_s = self.clock()
+        blob = pickle.dumps(verdict)
+        with db.write(self.conn):
+            run_id = _record_verdict(self.conn, verdict, acquired_at)
+            if self.notifier is not None:
+                self.notifier.record_verdict(self.conn, verdict, run_id, now_s)
+            jobs.finish(
+                self.conn,
+                job.id,
+                now_s,
+                state=jobs.JobState.DONE,
+                outcome=str(verdict.status),
+                run_id=run_id,
+                verdict_blob=blob,
+                sha256=sha256,
+            )
+        structlog.contextvars.bind_contextvars(run_id=run_id)
+        self.write_health(verdict, run_id)
+        self.last_file = path.name
+        log.info(
+            "run.judged",
+            status=str(verdict.status),
+            findings=len(verdict.findings),
+            error=verdict.error,
+        )
+        return str(verdict.status)
+
+    def write_health(self, verdict: Verdict, run_id: int) -> None:
+        """The health-log line, after the commit; idempotent by run_id."""
+        if self.notifier is not None:
+            self.notifier.write_health(verdict, run_id)
+
+    def _judge(
+        self, config: Config, run_file: RunFile, result: ChildResult
+    ) -> tuple[Verdict, datetime]:
+        judged_at = datetime.fromtimestamp(self.clock(), UTC)
+        mtime_at = datetime.fromtimestamp(run_file.mtime_ns / 1e9, UTC)
+        metrics = result.metrics
+        if metrics is None:
+            verdict = Verdict(
+                run_file=run_file,
+                status=Status.UNREADABLE,
+                error=result.error,
+                error_kind=result.error_kind,
+                judged_at=judged_at,
+            )
+            return verdict, mtime_at
+        from watcher.rules.judge import judge
+        from watcher.store.history import StoreHistory
+
+        acquired_at = metrics.acquired_at or mtime_at
+        status, findings = judge(
+            metrics,
+            file_name=run_file.path.name,
+            acquired_at=acquired_at,
+            checks=config.checks,
+            history=StoreHistory(self.conn),
+        )
+        verdict = Verdict(
+            run_file=run_file,
+            status=status,
+            metrics=metrics,
+            findings=tuple(findings),
+            judged_at=judged_at,
+        )
+        return verdict, acquired_at
+
+    def fail(self, job: jobs.Job, outcome: str) -> None:
+        """Mark a claimed job ``failed`` with ``outcome``, in its own transaction."""
+        with db.write(self.conn):
+            jobs.finish(
+                self.conn, job.id, self.clock(), state=jobs.JobState.FAILED, outcome=outcome
+            )
+
+    def _drop(self, job: jobs.Job, why: str) -> str:
+        self.fail(job, why)
+        log.info("run.skipped", reason=why)
+        return "skipped"
+
+    def resume_health_lines(self) -> int:
+        """Start-up: re-offer the newest health lines (a kill may have cut one off)."""
+        rows = jobs.recent_verdicts(self.conn)
+        for run_id, blob in reversed(rows):
+            verdict: Verdict = pickle.loads(blob)  # noqa: S301 - written by this daemon
+            self.write_health(verdict, run_id)
+        return len(rows)
+
+
+def _record_verdict(conn: sqlite3.Connection, verdict: Verdict, acquired_at: datetime) -> int:
+    from watcher.store.history import record_verdict
+
+    run_id: int = record_verdict(conn, verdict, acquired_at=acquired_at)
+    return run_id

@@ -1,0 +1,157 @@
+"""The files seen but not yet settled: hints and folder scans in, settled or given-up files out.
+
+The daemon's main loop owns one ``Settler``: it passes on the watcher's hints (``take_hint``),
+asks for full scans (``scan``) and, every pass, for the files that became ready (``due``). The
+readiness rules themselves are the pure ``watcher.intake.readiness``; this module adds the stat
+calls, the format completeness check and the bookkeeping of pending files. It never writes the
+job table: the caller says which identities are already known and queues what comes out.
+"""
+
+from __future__ import annotations
+
+import stat
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+
+import structlog
+
+from watcher.config import Watch
+from watcher.intake import folderwalk as catchup
+from watcher.intake import readiness as settle
+from watcher.intake import watch
+
+log = structlog.get_logger("watcher.intake.pending")
+
+IsKnown = Callable[[Path, settle.FileStat], bool]
+
+
+@dataclass(frozen=True, slots=True)
+class Settled:
+    """A file to queue: whole, or given up with ``incomplete`` saying why (judged unreadable)."""
+
+    path: Path
+    stat: settle.FileStat
+    incomplete: str | None = None
+
+
+class Settler:
+    """Pending files and their settle checks, under the current ``watch`` settings."""
+
+    def __init__(self, watch_settings: Watch) -> None:
+        self.watch = watch_settings  # replaced on reload; pending files keep their state
+        self.pending: dict[Path, settle.Pending] = {}
+
+    def scan(self, known: set[tuple[str, int, int]], now_s: float) -> tuple[int, int]:
+        """Look through every watched folder; returns (run files seen, newly pending).
+
+        Args:
+            known: the (path, size, mtime_ns) identities already in the job table.
+        """
+        w = self.watch
+        seen = catchup.scan(w.folders, w.patterns, w.ignore, recursive=w.recursive)
+        added = 0
+        for item in catchup.unknown(seen, known):
+            if item.path not in self.pending:
+                self.pending[item.path] = settle.new_pending(item.path, now_s, w.settle_s)
+                added += 1
+        return len(seen), added
+
+    def take_hint(self, hint: watch.Hint, now_s: float) -> None:
+        """Start settling what a watcher event names (a folder moved in: every run file in it)."""
+        if not hint.is_dir:
+            self._note(hint.path, now_s)
+            return
+        # A folder moved in carries its files without an event per file: scan it.
+        w = self.watch
+        for item in catchup.scan([hint.path], w.patterns, w.ignore, recursive=w.recursive):
+            self._note(item.path, now_s)
+
+    def due(self, now_s: float, is_known: IsKnown) -> list[Settled]:
+        """Look at every pending file whose next check is due; returns those to queue.
+
+        Args:
+            is_known: whether a settled identity is already in the job table (then it is
+                forgotten, not queued again).
+        """
+        ready: list[Settled] = []
+        for path, pending in list(self.pending.items()):
+            if pending.next_check_s > now_s:
+                continue
+            stat = _stat(path)
+            decision, nxt = self._decide(pending, stat, now_s, None)
+            if decision is settle.Decision.READY and stat is not None:
+                if is_known(path, stat):
+                    del self.pending[path]
+                    continue
+                why = _completeness(path)
+                if why is not None:
+                    decision, nxt = self._decide(pending, stat, now_s, why)
+            if decision is settle.Decision.READY and stat is not None:
+                del self.pending[path]
+                log.info(
+                    "run.settled",
+                    file=str(path),
+                    size=stat.size,
+                    waited_s=round(now_s - pending.first_seen_s, 3),
+                )
+                ready.append(Settled(path, stat))
+            elif decision is settle.Decision.GIVE_UP and stat is not None:
+                del self.pending[path]
+                text = settle.incomplete_message(
+                    nxt.reason or "not whole", now_s - nxt.first_seen_s
+                )
+                log.warning("run.incomplete", file=str(path), reason=text)
+                ready.append(Settled(path, stat, text))
+            elif decision is settle.Decision.GONE:
+                del self.pending[path]
+            else:
+                self.pending[path] = nxt
+        return ready
+
+    def _decide(
+        self,
+        pending: settle.Pending,
+        stat: settle.FileStat | None,
+        now_s: float,
+        incomplete_reason: str | None,
+    ) -> tuple[settle.Decision, settle.Pending]:
+        return settle.step(
+            pending,
+            stat,
+            now_s,
+            settle_s=self.watch.settle_s,
+            max_wait_s=self.watch.max_wait_s,
+            incomplete_reason=incomplete_reason,
+        )
+
+    def _note(self, path: Path, now_s: float) -> None:
+        if path not in self.pending:
+            self.pending[path] = settle.new_pending(path, now_s, self.watch.settle_s)
+            log.info("run.detected", file=str(path))
+
+
+def _stat(path: Path) -> settle.FileStat | None:
+    """Size and mtime of a regular file; None when it is gone or is no regular file.
+
+    Opening a FIFO or a device named like a run would block the main loop (nobody writes to
+    it), so anything but a regular file is treated as not there.
+    """
+    try:
+        st = path.stat()
+    except OSError:
+        return None
+    if not stat.S_ISREG(st.st_mode):
+        return None
+    return settle.FileStat(st.st_size, st.st_mtime_ns)
+
+
+def _completeness(path: Path) -> str | None:
+    # Imported here: the format checks are only needed once a file has settled.
+    from watcher.intake.formats import completeness
+
+    try:
+        reason: str | None = completeness(path)
+    except OSError as exc:
+        return f"cannot be read ({exc.strerror})"
+    return reason

@@ -1,0 +1,260 @@
+"""Open a run file of any supported format and stream its scans; every failure is a ReadError.
+
+``open_run`` sniffs the format from content, refuses XML with a DOCTYPE before any streaming
+parser sees it, picks the fastest safe path (index-guided for indexedmzML whose index checks
+out, sequential otherwise) and turns every parser, codec and I/O error into one ReadError line
+that names the file and no other path. It does not check completeness: the caller does that
+first (``watcher.intake.formats.check_complete``), because readers yield intact spectra of a
+cut file --
+except, on request, for the gzip stream of a .mzML.gz, which is proven whole in the same
+decompressing pass as the parse (``watcher.intake.formats.GunzipCheck``) instead of in a second one.
+"""
+
+from __future__ import annotations
+
+import binascii
+import gzip
+import io
+import os
+import re
+import time
+import zlib
+from collections.abc import Callable, Iterator
+from contextlib import ExitStack, contextmanager
+from pathlib import Path
+from typing import IO, Any
+
+from lxml import etree  # type: ignore[import-untyped, unused-ignore]
+
+from watcher.errors import ReadError
+from watcher.intake.formats import GunzipCheck, sniff
+from watcher.measure.readers import mgf, mzml, mzxml, safexml
+from watcher.measure.readers import mzml_index as mzmlindex
+from watcher.measure.readers.cv import disable_remote
+from watcher.measure.scan import RunHeader, Scan
+
+Progress = Callable[[int, int], None]
+
+_PROGRESS_INTERVAL_S = 0.05  # at most ~20 progress calls per second
+_PATH_RE = re.compile(r"(?:[A-Za-z]:)?(?:[\\/][^\s'\"\\/:]+)+[\\/]([^\s'\"\\/:]+)")
+
+
+@contextmanager
+def open_run(
+    path: Path,
+    *,
+    ms1_arrays: bool = True,
+    progress: Progress | None = None,
+    check_gzip: bool = False,
+) -> Iterator[tuple[RunHeader, Iterator[Scan]]]:
+    """Open ``path`` and yield ``(header, scans)``; scans come one at a time in file order.
+
+    Args:
+        path: the run file (mzML, mzML.gz, mzXML or MGF; decided from content).
+        ms1_arrays: decode m/z and intensity arrays (float64, m/z ascending) of MS1 scans.
+            MS2 arrays are never decoded.
+        progress: called as ``progress(done, total)`` in bytes, at most ~20 times a second.
+        check_gzip: for mzML.gz, check the whole gzip stream (CRC-32, end of stream, closing
+            tag, index offset and SHA-1 inside) while parsing; after the last scan, ``scans``
+            raises ``ReadError(kind="truncated")`` if it is not whole. Pair it with
+            ``check_complete(path, whole_gzip=False)`` before the call.
+
+    Raises:
+        ReadError: from opening and from iterating ``scans``; the message names the file's
+            basename only, one line, no traceback.
+    """
+    disable_remote()  # nothing below may fetch the PSI-MS CV over the network
+    throttle = _Throttle(progress, _size(path))
+    with ExitStack() as stack:
+        try:
+            header, scans = _open(
+                path, stack, ms1_arrays=ms1_arrays, throttle=throttle, check_gzip=check_gzip
+            )
+        except (ReadError, MemoryError):
+            raise  # out of memory is the limit's doing, not the file's: the caller reports it
+        except Exception as exc:
+            raise _as_read_error(path, exc) from None
+        yield header, _guarded(path, scans, throttle)
+
+
+def _open(
+    path: Path, stack: ExitStack, *, ms1_arrays: bool, throttle: _Throttle, check_gzip: bool
+) -> tuple[RunHeader, Iterator[Scan]]:
+    found = sniff(path)
+    if found.format == "MGF":
+        text = stack.enter_context(
+            io.TextIOWrapper(
+                io.BufferedReader(_Counted(stack.enter_context(path.open("rb")), throttle)),
+                encoding="utf-8",
+                errors="strict",
+            )
+        )
+        return RunHeader(format="MGF"), mgf.read_scans(text)
+    if found.format == "mzML.gz":
+        with gzip.open(path, "rb") as probe:
+            safexml.assert_no_doctype(probe, name=path.name)
+        raw = stack.enter_context(path.open("rb"))
+        if check_gzip:
+            check = GunzipCheck(_Counted(raw, throttle), found.root)  # type: ignore[arg-type]
+            events = safexml.safe_iterparse(check, events=("start", "end"), tag=mzml.stream_tags())
+            pre = mzml.read_preamble(events)
+            header = _mzml_header(found.format, pre)
+            scans = mzml.stream_scans(events, pre, want_arrays=ms1_arrays)
+            return header, _then_whole(path, scans, check)
+        gz = gzip.GzipFile(fileobj=_Counted(raw, throttle))
+        stack.callback(gz.close)
+        source: IO[bytes] = gz  # type: ignore[assignment]
+    else:
+        safexml.assert_no_doctype(path)
+        source = _Counted(stack.enter_context(path.open("rb")), throttle)  # type: ignore[assignment]
+    if found.format == "mzXML":
+        return RunHeader(format="mzXML"), mzxml.read_scans(source, want_arrays=ms1_arrays)
+    events = safexml.safe_iterparse(source, events=("start", "end"), tag=mzml.stream_tags())
+    pre = mzml.read_preamble(events)
+    header = _mzml_header(found.format, pre)
+    if found.format == "mzML" and found.root == "indexedmzML":
+        fd = os.open(path, os.O_RDONLY)
+        stack.callback(os.close, fd)
+        index = mzmlindex.load_offset_index(fd, os.fstat(fd).st_size)
+        if index is not None:
+            scans = mzmlindex.indexed_scans(
+                fd,
+                index,
+                pre,
+                want_arrays=ms1_arrays,
+                parse=safexml.parse_fragment,
+                on_offset=throttle.at,
+            )
+            return header, _with_fallback(path, scans, stack, ms1_arrays=ms1_arrays)
+    return header, mzml.stream_scans(events, pre, want_arrays=ms1_arrays)
+
+
+def _mzml_header(fmt: str, pre: mzml.Preamble) -> RunHeader:
+    return RunHeader(
+        format=fmt, acquired_at_iso=pre.start_time_stamp, n_spectra_declared=pre.spectrum_count
+    )
+
+
+def _with_fallback(
+    path: Path, scans: Iterator[Scan], stack: ExitStack, *, ms1_arrays: bool
+) -> Iterator[Scan]:
+    """Index-guided scans; if the index turns out wrong midway, stream the rest sequentially."""
+    try:
+        yield from scans
+    except mzmlindex.IndexDoubt as doubt:
+        source = stack.enter_context(path.open("rb"))
+        events = safexml.safe_iterparse(source, events=("start", "end"), tag=mzml.stream_tags())
+        pre = mzml.read_preamble(events)
+        yield from mzml.stream_scans(events, pre, want_arrays=ms1_arrays, skip=doubt.position)
+
+
+def _then_whole(path: Path, scans: Iterator[Scan], check: GunzipCheck) -> Iterator[Scan]:
+    """The scans, then the rest of the gzip stream checked: a cut stream ends in a ReadError."""
+    yield from scans
+    check.drain()
+    reason = check.problem()
+    if reason is not None:
+        raise ReadError(path, reason, kind="truncated")
+
+
+def _guarded(path: Path, scans: Iterator[Scan], throttle: _Throttle) -> Iterator[Scan]:
+    """Re-raise anything the readers throw as one ReadError; report progress at the end."""
+    try:
+        yield from scans
+    except (ReadError, GeneratorExit, MemoryError):
+        raise  # a MemoryError means the memory limit, not a corrupt file (childmeasure says so)
+    except Exception as exc:
+        raise _as_read_error(path, exc) from None
+    throttle.done()
+
+
+def _as_read_error(path: Path, exc: BaseException) -> ReadError:
+    kind = "corrupt"
+    if isinstance(exc, etree.XMLSyntaxError):
+        what = "XML is not well-formed"
+        if "Premature end" in str(exc) or "EndTag" in str(exc) or "end of data" in str(exc):
+            kind = "truncated"
+    elif isinstance(exc, mzml.UnsupportedCompression):
+        what, kind = "unsupported data", "unsupported"
+    elif isinstance(exc, mzml.SpectrumError):
+        what = "bad spectrum data"
+    elif isinstance(exc, EOFError):
+        what, kind = "file ends early", "truncated"
+    elif isinstance(exc, zlib.error | gzip.BadGzipFile):
+        what = "corrupt compressed data"
+    elif isinstance(exc, binascii.Error):
+        what = "invalid base64"
+    elif isinstance(exc, UnicodeDecodeError):
+        what = "not text in the expected encoding"
+    elif isinstance(exc, OSError):
+        what, kind = "cannot read file", "io"
+    else:  # ValueError, PyteomicsError, KeyError, ... from the parsers
+        what = "cannot parse"
+    return ReadError(path, f"{what}: {_one_line(exc, path)}", kind=kind)
+
+
+def _one_line(exc: BaseException, path: Path) -> str:
+    text = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+    text = text.replace(str(path), path.name).replace(str(path.resolve()), path.name)
+    return _PATH_RE.sub(r"\1", text)[:300]
+
+
+def _size(path: Path) -> int:
+    try:
+        return path.stat().st_size
+    except OSError:
+        return 0
+
+
+class _Throttle:
+    """Calls ``progress(done, total)`` at most every 50 ms, and once at the end."""
+
+    def __init__(self, progress: Progress | None, total: int) -> None:
+        self._progress = progress
+        self._total = total
+        self._last_s = 0.0
+
+    def at(self, done: int) -> None:
+        if self._progress is None:
+            return
+        now_s = time.monotonic()
+        if now_s - self._last_s >= _PROGRESS_INTERVAL_S:
+            self._last_s = now_s
+            self._progress(min(done, self._total), self._total)
+
+    def done(self) -> None:
+        if self._progress is not None:
+            self._progress(self._total, self._total)
+
+
+class _Counted(io.RawIOBase):
+    """A read-only byte stream that reports how far into the underlying file it has read."""
+
+    def __init__(self, raw: IO[bytes], throttle: _Throttle) -> None:
+        super().__init__()
+        self._raw = raw
+        self._throttle = throttle
+
+    def readable(self) -> bool:
+        return True
+
+    def readinto(self, buffer: Any) -> int:
+        data = self._raw.read(len(buffer))
+        n = len(data)
+        buffer[:n] = data
+        self._throttle.at(self._raw.tell())
+        return n
+
+    def read(self, size: int = -1) -> bytes:
+        data = self._raw.read(size)
+        self._throttle.at(self._raw.tell())
+        return data
+
+    def seekable(self) -> bool:
+        return True  # pyteomics' mzXML and MGF readers rewind once at the start
+
+    def seek(self, offset: int, whence: int = io.SEEK_SET) -> int:
+        return self._raw.seek(offset, whence)
+
+    def tell(self) -> int:
+        return self._raw.tell()
