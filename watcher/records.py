@@ -8,7 +8,7 @@ paths that checks, the store and the health log use, e.g. ``calibrant.siloxane-4
 from __future__ import annotations
 
 import dataclasses
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from datetime import datetime
 from enum import StrEnum
 from pathlib import Path
@@ -258,18 +258,6 @@ class AlertState:
     raised_at_s: float
     last_sent_at_s: float
     finding: Finding
-
-
-@dataclass(frozen=True, slots=True, kw_only=True)
-class AlertEvent:
-    """One alert state change to tell people about. ``key`` is (instrument, check, subject)."""
-
-    key: tuple[str, str, str]
-    action: AlertAction
-    severity: Severity | None  # None for clear
-    run_file: str | None
-    at: datetime
-    findings: tuple[Finding, ...] = field(default=())
 
 
 def _jsonable(value: Any) -> Any:

@@ -13,6 +13,8 @@ import statistics
 from collections.abc import Sequence
 from dataclasses import dataclass
 
+from watcher.rules.baseline import MAD_TO_SD
+
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class EwmaPoint:
@@ -173,7 +175,7 @@ def _trend_holds(
     """
     residuals = [v - (intercept + slope * t) for t, v in zip(times_h, values, strict=True)]
     centre = statistics.median(residuals)
-    spread = 1.4826 * statistics.median(abs(r - centre) for r in residuals)
+    spread = MAD_TO_SD * statistics.median(abs(r - centre) for r in residuals)
     # Noise-free data have a spread of 0: allow for float rounding relative to the values' size.
     spread = max(spread, 1e-9 * (1.0 + max(abs(v) for v in values)))
     if abs(slope * (times_h[-1] - times_h[0])) <= 2.0 * spread:
@@ -203,7 +205,7 @@ def _last_step(values: Sequence[float]) -> int:
         return 0
     diffs = [b - a for a, b in itertools.pairwise(values)]
     centre = statistics.median(diffs)
-    spread = 1.4826 * statistics.median(abs(d - centre) for d in diffs)
+    spread = MAD_TO_SD * statistics.median(abs(d - centre) for d in diffs)
     spread = max(spread, 1e-9 * (1.0 + max(abs(v) for v in values)))
     start = 0
     for i, d in enumerate(diffs):

@@ -165,7 +165,7 @@ def _read_error(path: Path) -> ReadError | None:
 
 @pytest.mark.parametrize("case", sorted(CASES))
 def test_bad_file_is_caught(tmp_path: Path, case: str) -> None:
-    """Each broken file is flagged where docs/reliability.md item 2 says it can be, and only there."""
+    """Each broken file is flagged where docs/reliability.md item 2 says it can be, only there."""
     build, incomplete, unreadable = CASES[case]
     path = build(tmp_path)
     assert _completeness_objects(path) is incomplete  # docs/reliability.md item 2 (completeness)

@@ -155,12 +155,6 @@ def _unescape(value: bytes) -> bytes:
     )
 
 
-def peek_ms_level(head: bytes) -> int | None:
-    """The ms level written as a direct cvParam in the first bytes of a spectrum, if any."""
-    match = _MS_LEVEL_RE.search(head)
-    return int(match.group(1)) if match else None
-
-
 def indexed_scans(
     fd: int,
     index: OffsetIndex,
