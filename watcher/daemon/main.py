@@ -160,7 +160,7 @@ class Daemon:
         if self._worker is not None:
             self._worker.join(10.0)
         if self.pipeline is not None:
-            self.pipeline.child.close()
+            self.pipeline.close()
         if self.notifier is not None and self.conn is not None:
             with db.write(self.conn):
                 self.notifier.record_event(self.conn, "daemon.stopped", self.clock())
@@ -316,8 +316,7 @@ class Daemon:
         if notifier is not None:
             notifier.start_delivery()
         if self.pipeline is not None:
-            self.pipeline.config = new
-            self.pipeline.notifier = notifier
+            self.pipeline.reconfigure(new, notifier)
         if new.watch != old.watch and self._observer is not None and self._overflow is not None:
             watch.stop_watching(self._observer, self._overflow)
             self._observer, self._overflow = watch.start_watching(

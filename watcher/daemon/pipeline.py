@@ -230,6 +230,16 @@ class Pipeline:
     last_file: str | None = None
     child: MeasuringChild = field(default_factory=MeasuringChild)
 
+    def reconfigure(self, config: Config, notifier: Any) -> None:
+        """Use a reloaded config and its notifier from the next job on (the job in flight keeps
+        the config it started with)."""
+        self.config = config
+        self.notifier = notifier
+
+    def close(self) -> None:
+        """Stop the measuring child; the pipeline starts a new one if it is used again."""
+        self.child.close()
+
     def process(self, job: jobs.Job) -> str:
         """Take a claimed job to ``done`` (back to ``queued`` when stopping); returns outcome."""
         config = self.config
