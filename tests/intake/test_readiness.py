@@ -9,9 +9,9 @@ import pytest
 from watcher.intake.readiness import (
     Decision,
     FileStat,
-    backoff_s,
     incomplete_message,
     new_pending,
+    recheck_delay_s,
     step,
 )
 
@@ -93,7 +93,7 @@ def test_vanished_file_is_gone():
 )
 def test_backoff_doubles_and_caps(checks, expected):
     """Unready looks back off: settle_s doubling per look, capped at a minute."""
-    assert backoff_s(checks, SETTLE_S) == pytest.approx(expected)
+    assert recheck_delay_s(checks, SETTLE_S) == pytest.approx(expected)
 
 
 def test_incomplete_message_names_reason_and_hours():

@@ -143,7 +143,7 @@ def test_message_older_than_retry_for_is_abandoned_and_unblocks_the_next(
 
 def test_backoff_doubles_to_the_cap() -> None:
     """Retry waits: 5, 10, 20 ... s, never above 10 min (the backoff the brief asks for)."""
-    waits = [deliver.backoff_s(n, base_s=5.0, max_s=600.0) for n in range(1, 10)]
+    waits = [deliver.retry_wait_s(n, base_s=5.0, max_s=600.0) for n in range(1, 10)]
     assert waits == [5.0, 10.0, 20.0, 40.0, 80.0, 160.0, 320.0, 600.0, 600.0]
 
 

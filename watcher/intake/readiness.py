@@ -60,7 +60,7 @@ def new_pending(path: Path, now_s: float, settle_s: float) -> Pending:
     )
 
 
-def backoff_s(checks: int, settle_s: float, *, max_delay_s: float = 60.0) -> float:
+def recheck_delay_s(checks: int, settle_s: float, *, max_delay_s: float = 60.0) -> float:
     """Delay before the next look: settle_s, then doubling per unready look, capped.
 
     A file that stays incomplete for hours is looked at about once a minute, not every settle_s.
@@ -114,7 +114,9 @@ def step(
     if now_s - pending.last_change_s >= max_wait_s:
         return Decision.GIVE_UP, replace(pending, reason=incomplete_reason)
     checks = pending.checks + 1
-    delay_s = min(backoff_s(checks, settle_s), max(0.0, pending.last_change_s + max_wait_s - now_s))
+    delay_s = min(
+        recheck_delay_s(checks, settle_s), max(0.0, pending.last_change_s + max_wait_s - now_s)
+    )
     return Decision.WAIT, replace(
         pending, checks=checks, next_check_s=now_s + max(delay_s, 0.05), reason=incomplete_reason
     )

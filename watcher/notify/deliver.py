@@ -128,7 +128,7 @@ def send(
     return bool(result), str(word)
 
 
-def backoff_s(attempts: int, *, base_s: float, max_s: float) -> float:
+def retry_wait_s(attempts: int, *, base_s: float, max_s: float) -> float:
     """Wait after the n-th failed attempt: base, 2 x base, 4 x base, ... capped at ``max_s``."""
     return float(min(max_s, base_s * 2 ** max(0, attempts - 1)))
 
@@ -252,7 +252,9 @@ class DeliveryWorker:
                 self._event("message.delivered", **fields)
             else:
                 attempts = message.attempts + 1
-                wait_s = backoff_s(attempts, base_s=self._backoff_base_s, max_s=self._backoff_max_s)
+                wait_s = retry_wait_s(
+                    attempts, base_s=self._backoff_base_s, max_s=self._backoff_max_s
+                )
                 error = f"{word} sending to {target.masked_url}"
                 with db.write(conn):
                     outbox.mark_failed(
