@@ -1,4 +1,4 @@
-"""Folder scans: which names are runs, oldest first, and which files the job table lacks."""
+"""Folder walks: which names are runs, oldest first, and which files the job table lacks."""
 
 from __future__ import annotations
 
@@ -8,7 +8,7 @@ from pathlib import Path
 import pytest
 
 from watcher.config import Watch
-from watcher.intake.folderwalk import is_run_name, is_run_path, scan, unknown
+from watcher.intake.folderwalk import is_run_name, is_run_path, unknown, walk
 from watcher.intake.readiness import FileStat
 
 PATTERNS = Watch().patterns
@@ -56,32 +56,32 @@ def _touch(path: Path, mtime_s: int, data: bytes = b"x") -> None:
 
 
 def test_scan_oldest_first_recursive(tmp_path):
-    """A scan lists run files under every folder, oldest mtime first, skipping other names."""
+    """A walk lists run files under every folder, oldest mtime first, skipping other names."""
     _touch(tmp_path / "b" / "S02_1.mzML", 2000)
     _touch(tmp_path / "QC_1.mzML", 3000)
     _touch(tmp_path / "S01_1.mgf", 1000)
     _touch(tmp_path / "notes.txt", 500)
     _touch(tmp_path / ".hidden" / "QC_9.mzML", 100)
-    seen = scan([tmp_path], PATTERNS, IGNORE, recursive=True)
+    seen = walk([tmp_path], PATTERNS, IGNORE, recursive=True)
     assert [s.path.name for s in seen] == ["S01_1.mgf", "S02_1.mzML", "QC_1.mzML"]
-    flat = scan([tmp_path], PATTERNS, IGNORE, recursive=False)
+    flat = walk([tmp_path], PATTERNS, IGNORE, recursive=False)
     assert [s.path.name for s in flat] == ["S01_1.mgf", "QC_1.mzML"]
 
 
 def test_scan_of_missing_folder_is_empty(tmp_path):
-    """A folder that vanished scans as empty instead of raising."""
-    assert scan([tmp_path / "gone"], PATTERNS, IGNORE, recursive=True) == []
+    """A folder that vanished walks as empty instead of raising."""
+    assert walk([tmp_path / "gone"], PATTERNS, IGNORE, recursive=True) == []
 
 
 def test_unknown_keeps_new_and_changed(tmp_path):
     """Known identities are dropped; a file changed in place (new size) comes back."""
     _touch(tmp_path / "QC_1.mzML", 1000, b"abc")
     _touch(tmp_path / "QC_2.mzML", 2000, b"abc")
-    seen = scan([tmp_path], PATTERNS, IGNORE, recursive=True)
+    seen = walk([tmp_path], PATTERNS, IGNORE, recursive=True)
     known = {(str(tmp_path / "QC_1.mzML"), 3, 1000 * 10**9)}
     assert [s.path.name for s in unknown(seen, known)] == ["QC_2.mzML"]
     _touch(tmp_path / "QC_1.mzML", 1000, b"abcd")
-    seen = scan([tmp_path], PATTERNS, IGNORE, recursive=True)
+    seen = walk([tmp_path], PATTERNS, IGNORE, recursive=True)
     names = [s.path.name for s in unknown(seen, known)]
     assert names == ["QC_1.mzML", "QC_2.mzML"]
     assert seen[0].stat == FileStat(4, 1000 * 10**9)

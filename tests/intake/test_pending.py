@@ -60,7 +60,7 @@ def test_cut_file_gives_up_with_reason_after_max_wait(tmp_path: Path) -> None:
     run = tmp_path / "QC_005.mgf"
     run.write_text(CUT_MGF)
     settler = Settler(Watch(folders=(tmp_path,), settle_s=1.0, max_wait_s=20.0))
-    files, added = settler.scan(set(), 0.0)
+    files, added = settler.walk(set(), 0.0)
     assert (files, added) == (1, 1)
     assert _settle(settler, 0.5, 15.0) == []  # not yet given up: still waiting
     out = _settle(settler, 15.5, 40.0)
@@ -82,7 +82,7 @@ def test_folder_hint_and_scan_skip_known_and_ignored(tmp_path: Path) -> None:
     assert sorted(settler.pending) == [a, b]
     fresh = Settler(Watch(folders=(tmp_path,)))
     st = a.stat()
-    files, added = fresh.scan({(str(a), st.st_size, st.st_mtime_ns)}, 0.0)
+    files, added = fresh.walk({(str(a), st.st_size, st.st_mtime_ns)}, 0.0)
     assert (files, added) == (2, 1)
     assert list(fresh.pending) == [b]
 

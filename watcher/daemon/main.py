@@ -230,7 +230,7 @@ class Daemon:
 
     def _full_scan(self, reason: str) -> None:
         now_s = self.clock()
-        files, added = self.settler.scan(jobs.known_identities(self._conn()), now_s)
+        files, added = self.settler.walk(jobs.known_identities(self._conn()), now_s)
         self._last_scan = now_s
         log.info("scan.completed", reason=reason, files=files, new=added)
 

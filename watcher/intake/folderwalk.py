@@ -1,4 +1,4 @@
-"""Folder scans and their reconciliation with the job table: which files are runs, which are new.
+"""Folder walks and their reconciliation with the job table: which files are runs, which are new.
 
 Events are only hints; the truth is a full scan, done at start-up (so runs that landed while the
 daemon was down are caught up), every ``rescan_interval_s`` and at once after an inotify overflow.
@@ -84,7 +84,7 @@ def _walk(root: Path, *, recursive: bool, ignore: Sequence[str]) -> Iterator[os.
             continue  # folder removed or unreadable: the next scan tries again
 
 
-def scan(
+def walk(
     folders: Iterable[Path],
     patterns: Sequence[str],
     ignore: Sequence[str],

@@ -17,9 +17,8 @@ from pathlib import Path
 import structlog
 
 from watcher.config import Watch
-from watcher.intake import folderwalk as catchup
+from watcher.intake import folderwalk, watch
 from watcher.intake import readiness as settle
-from watcher.intake import watch
 
 log = structlog.get_logger("watcher.intake.pending")
 
@@ -42,16 +41,16 @@ class Settler:
         self.watch = watch_settings  # replaced on reload; pending files keep their state
         self.pending: dict[Path, settle.Pending] = {}
 
-    def scan(self, known: set[tuple[str, int, int]], now_s: float) -> tuple[int, int]:
+    def walk(self, known: set[tuple[str, int, int]], now_s: float) -> tuple[int, int]:
         """Look through every watched folder; returns (run files seen, newly pending).
 
         Args:
             known: the (path, size, mtime_ns) identities already in the job table.
         """
         w = self.watch
-        seen = catchup.scan(w.folders, w.patterns, w.ignore, recursive=w.recursive)
+        seen = folderwalk.walk(w.folders, w.patterns, w.ignore, recursive=w.recursive)
         added = 0
-        for item in catchup.unknown(seen, known):
+        for item in folderwalk.unknown(seen, known):
             if item.path not in self.pending:
                 self.pending[item.path] = settle.new_pending(item.path, now_s, w.settle_s)
                 added += 1
@@ -64,7 +63,7 @@ class Settler:
             return
         # A folder moved in carries its files without an event per file: scan it.
         w = self.watch
-        for item in catchup.scan([hint.path], w.patterns, w.ignore, recursive=w.recursive):
+        for item in folderwalk.walk([hint.path], w.patterns, w.ignore, recursive=w.recursive):
             self._note(item.path, now_s)
 
     def due(self, now_s: float, is_known: IsKnown) -> list[Settled]:
