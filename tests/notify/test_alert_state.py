@@ -2,9 +2,12 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import pytest
 
 from tests.notify.conftest import make_finding
+from tests.rules.test_judge import make_metrics
 from watcher.config import Channel, Check
 from watcher.notify.alert_state import (
     clearable_checks,
@@ -14,6 +17,7 @@ from watcher.notify.alert_state import (
     step,
 )
 from watcher.records import AlertAction, AlertState, Severity
+from watcher.rules.judge import evaluated_checks
 
 W, C, N = Severity.WARNING, Severity.CRITICAL, Severity.NOTICE
 H = 3600.0
@@ -99,11 +103,37 @@ def test_only_evaluated_checks_may_clear() -> None:
     assert rx.applies_to_file("BLANK_07.mzML")
     assert not rx.applies_to_file("QC_07.mzML")
     configured = {"caffeine present", "blank"}
-    sample = clearable_checks((qc, rx), "S01_0412.mzML", readable=True)
+
+    def evaluated(file_name: str) -> set[str]:
+        metrics = make_metrics(file=file_name)
+        return evaluated_checks(metrics, file_name=file_name, checks=(qc, rx))
+
+    sample = clearable_checks(evaluated("S01_0412.mzML"), readable=True)
     assert not is_clearable("caffeine present", sample, configured, readable=True)
     assert is_clearable("unreadable", sample, configured, readable=True)
     assert is_clearable("removed check", sample, configured, readable=True)
     assert not is_clearable("heartbeat", sample, configured, readable=True)
-    qc_run = clearable_checks((qc, rx), "QC_0413.mzML", readable=True)
+    qc_run = clearable_checks(evaluated("QC_0413.mzML"), readable=True)
     assert is_clearable("caffeine present", qc_run, configured, readable=True)
     assert not is_clearable("caffeine present", set(), configured, readable=False)
+
+
+def test_run_without_ms1_data_does_not_clear_calibration_alerts() -> None:
+    """An MGF run (no MS1 spectra) measured no calibrant: its calibration check was not evaluated,
+    so an open calibration alert stays open, while the signal check it did evaluate may clear."""
+    drift = Check(name="calibration drift", metric="calibrant.siloxane-445.median_ppm")
+    signal = Check(name="signal collapse", metric="signal.tic_median")
+    configured = {"calibration drift", "signal collapse"}
+    mzml = make_metrics(file="QC_0001.mzML")
+    base = make_metrics(file="QC_0002.mgf")
+    mgf = replace(base, signal=replace(base.signal, ms1_count=0))
+    checks = (drift, signal)
+    on_mzml = clearable_checks(
+        evaluated_checks(mzml, file_name="QC_0001.mzML", checks=checks), readable=True
+    )
+    on_mgf = clearable_checks(
+        evaluated_checks(mgf, file_name="QC_0002.mgf", checks=checks), readable=True
+    )
+    assert is_clearable("calibration drift", on_mzml, configured, readable=True)
+    assert not is_clearable("calibration drift", on_mgf, configured, readable=True)
+    assert is_clearable("signal collapse", on_mgf, configured, readable=True)

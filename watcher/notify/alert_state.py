@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from dataclasses import replace
 
-from watcher.config import Channel, Check
+from watcher.config import Channel
 from watcher.records import AlertAction, AlertState, Finding
 
 # Pseudo-checks that are not in the config: an unreadable run file, and runs that stopped coming.
@@ -74,18 +74,18 @@ def passes(channel: Channel, finding: Finding) -> bool:
     return not channel.checks or finding.check in channel.checks
 
 
-def clearable_checks(checks: tuple[Check, ...], file_name: str, *, readable: bool) -> set[str]:
-    """Names of the checks whose alerts this run may clear (those it was evaluated on).
+def clearable_checks(evaluated: set[str], *, readable: bool) -> set[str]:
+    """Names of the checks whose alerts this run may clear: those it was evaluated on.
 
-    An unreadable run evaluates nothing. A readable run clears the ``unreadable`` alert. Checks no
-    longer in the config are returned by ``is_clearable`` too, so a removed check cannot keep an
-    alert open forever.
+    ``evaluated`` comes from the rules (``watcher.rules.judge.evaluated_checks``): a check whose
+    metrics are all null on this run (no calibrant measured in an MGF file) was not evaluated and
+    keeps its alert open. An unreadable run evaluates nothing. A readable run clears the
+    ``unreadable`` alert. Checks no longer in the config are returned by ``is_clearable`` too, so
+    a removed check cannot keep an alert open forever.
     """
     if not readable:
         return set()
-    names = {c.name for c in checks if c.applies_to_file(file_name)}
-    names.add(UNREADABLE_CHECK)
-    return names
+    return set(evaluated) | {UNREADABLE_CHECK}
 
 
 def is_clearable(

@@ -22,6 +22,7 @@ from watcher.notify import alert_state as machine
 from watcher.notify.alert_text import Item, Text, compose
 from watcher.notify.healthlog import HealthLog
 from watcher.records import AlertAction, Finding, Severity, Status, Verdict
+from watcher.rules.judge import evaluated_checks
 from watcher.store import db, outbox
 
 log = structlog.get_logger("watcher.notify.notifier")
@@ -129,7 +130,13 @@ class Notifier:
             findings.append(unreadable_finding(verdict))
         file_name = verdict.run_file.path.name
         configured = {c.name for c in self.config.checks}
-        clearable = machine.clearable_checks(self.config.checks, file_name, readable=readable)
+        evaluated = (
+            evaluated_checks(verdict.metrics, file_name=file_name, checks=self.config.checks)
+            if verdict.metrics is not None
+            # a verdict without metrics is built from findings alone: every applicable check
+            else {c.name for c in self.config.checks if c.applies_to_file(file_name)}
+        )
+        clearable = machine.clearable_checks(evaluated, readable=readable)
         acquired_at = verdict.metrics.acquired_at if verdict.metrics is not None else None
         # Without an acquisition time (unreadable file, mzXML), the file's mtime says when the
         # instrument wrote it, which is what a person matches against the queue.

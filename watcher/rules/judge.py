@@ -318,12 +318,42 @@ def judge(
     Returns:
         The run status (the highest finding severity, ``ok`` without findings) and the findings.
     """
+    flat = _judgeable(metrics)
+    findings: list[Finding] = []
+    for check, path in _evaluated(flat, file_name, checks):
+        value = flat[path]
+        if value is None:  # never: _evaluated keeps only paths with a value
+            continue
+        findings.extend(_judge_path(check, path, value, file_name, acquired_at, history))
+    status = Status.OK
+    for f in findings:
+        candidate = Status(f.severity.value)
+        if STATUS_RANK[candidate] > STATUS_RANK[status]:
+            status = candidate
+    return status, tuple(findings)
+
+
+def evaluated_checks(metrics: RunMetrics, *, file_name: str, checks: Sequence[Check]) -> set[str]:
+    """Names of the checks that ``judge`` evaluates on this run: those that apply to the file and
+    have at least one metric with a value. Only these may clear an open alert; a run that
+    measured no calibrant (an MGF file, no MS1 spectra) says nothing about calibration drift."""
+    return {check.name for check, _ in _evaluated(_judgeable(metrics), file_name, checks)}
+
+
+def _judgeable(metrics: RunMetrics) -> dict[str, float | bool | None]:
     flat = metrics.flat()
     if not metrics.signal.ms1_count:
         # No MS1 spectra (MGF, an MS2-only export): calibrants and expected ions were never
         # searched, so their values are missing, not "lost" or "not found" (README: null + note).
         flat = {k: v for k, v in flat.items() if not k.startswith(MS1_ONLY_PREFIXES)}
-    findings: list[Finding] = []
+    return flat
+
+
+def _evaluated(
+    flat: dict[str, float | bool | None], file_name: str, checks: Sequence[Check]
+) -> list[tuple[Check, str]]:
+    """The (check, metric path) pairs with a value to judge, in config order."""
+    pairs: list[tuple[Check, str]] = []
     for check in checks:
         if not check.applies_to_file(file_name):
             continue
@@ -331,13 +361,8 @@ def judge(
             value = flat[path]
             if value is None or is_missing(value):
                 continue
-            findings.extend(_judge_path(check, path, value, file_name, acquired_at, history))
-    status = Status.OK
-    for f in findings:
-        candidate = Status(f.severity.value)
-        if STATUS_RANK[candidate] > STATUS_RANK[status]:
-            status = candidate
-    return status, tuple(findings)
+            pairs.append((check, path))
+    return pairs
 
 
 def _judge_path(
