@@ -1,13 +1,13 @@
 """The intake stage: watch folders, walk them, settle files and tell complete runs from cut ones.
 
-Entry points are imported on first use (PEP 562), so that importing one small module of this
-package does not pay for the heavy ones (numpy, lxml, apprise, matplotlib).
+Entry points are imported on first use (``watcher.entry_point_getattr``).
 """
 
 from __future__ import annotations
 
-import importlib
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
+
+from watcher import entry_point_getattr
 
 if TYPE_CHECKING:
     from watcher.intake.formats import completeness, sniff
@@ -25,8 +25,4 @@ _ENTRY_POINTS = {
 
 __all__ = ["Settled", "Settler", "completeness", "sniff", "start_watching", "stop_watching"]
 
-
-def __getattr__(name: str) -> Any:
-    if name in _ENTRY_POINTS:
-        return getattr(importlib.import_module(_ENTRY_POINTS[name]), name)
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+__getattr__ = entry_point_getattr(__name__, _ENTRY_POINTS)
