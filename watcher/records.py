@@ -227,11 +227,32 @@ class Verdict:
     error_kind: str | None = None
     metrics: RunMetrics | None = None
     findings: tuple[Finding, ...] = ()
+    # The (check, subject) pairs the rules evaluated on this run (``Judgement.evaluated``): only
+    # these may clear an open alert. Empty for an unreadable run.
+    evaluated: frozenset[tuple[str, str]] = frozenset()
     judged_at: datetime | None = None
 
     def to_dict(self) -> dict[str, Any]:
         out: dict[str, Any] = _jsonable(dataclasses.asdict(self))
+        out["evaluated"] = sorted([list(pair) for pair in self.evaluated])
         return out
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Judgement:
+    """What the rules made of one run's metrics (``watcher.rules.judge``), for the Verdict.
+
+    Attributes:
+        status: the highest finding severity, ``ok`` without findings.
+        findings: the checks that fired, in config order.
+        evaluated: every (check name, subject) pair that was judged, whether it fired or not.
+            A check whose metrics are all null on this run (no calibrant measured in an MGF
+            file) has no pair: that run says nothing about it and must not clear its alert.
+    """
+
+    status: Status
+    findings: tuple[Finding, ...]
+    evaluated: frozenset[tuple[str, str]]
 
 
 class AlertAction(StrEnum):

@@ -26,6 +26,7 @@ import pytest
 import synth
 from tests.e2e.conftest import REPO, Lab, wait_for
 from tests.helpers import browser
+from tests.helpers.refdata import REFERENCE
 
 SILOXANE_MZ = 445.120025  # polysiloxane background ion [C2H6SiO]6+H+ (common practice, lock mass)
 DAY = datetime(2026, 11, 27, 18, 0, tzinfo=UTC)
@@ -185,6 +186,33 @@ def test_raise_once_then_clear(lab: Lab, rx: Receiver, tmp_path: Path) -> None:
     assert [s for _, s, _ in deliveries(lab)] == ["delivered", "delivered"]
     status = cli(lab, "status")
     assert status.returncode == 0, status.stdout + status.stderr
+
+
+def test_a_run_without_ms1_data_keeps_the_calibration_alert_open(
+    lab: Lab, rx: Receiver, tmp_path: Path
+) -> None:
+    """Bad mzML raises; an MGF run (MS2 peak lists only: no calibrant measured) sends nothing and
+    leaves the alert open; the next good mzML run clears it with one message.
+
+    The MGF file is the pyteomics test file (tests/data/README.md), written by another tool."""
+    configure(lab, rx.url())
+    d = lab.start()
+    drop(lab, "QC_01.mzML", run_bytes(6.0, 1, tmp_path))
+    lab.wait_runs(1)
+    drop(lab, "QC_02.mgf", (REFERENCE / "mgf" / "test.mgf").read_bytes())
+    lab.wait_runs(2)
+    # Messages are queued in the run's own transaction: the MGF run's row means its verdict
+    # has been through the notifier.
+    assert [t for t, _, _ in deliveries(lab)] == [f"{INSTRUMENT}: CRITICAL QC_01.mzML"]
+    drop(lab, "QC_03.mzML", run_bytes(0.0, 3, tmp_path))
+    lab.wait_runs(3)
+    wait_for(lambda: len(rx.bodies) >= 2, 15, "two messages at the receiver")
+    assert d.stop() == 0
+    assert [s for _, s, _ in lab.runs()] == ["critical", "ok", "ok"]
+    assert rx.titles() == [f"{INSTRUMENT}: CRITICAL QC_01.mzML", f"{INSTRUMENT}: OK QC_03.mzML"]
+    assert (
+        "OK AGAIN: calibration drift (calibrant.siloxane-445.median_ppm)" in rx.bodies[1]["message"]
+    )
 
 
 def _pending_in_status(lab: Lab) -> int:

@@ -169,7 +169,9 @@ def make_verdict(
     status: Status | None = None,
     error: str | None = None,
     folder: Path = Path("/exports"),
+    evaluated: frozenset[tuple[str, str]] | None = None,
 ) -> Verdict:
+    """A verdict as the rules would hand it on; ``evaluated`` defaults to the findings' keys."""
     if status is None:
         worst = max(findings, key=lambda f: f.severity.rank, default=None)
         status = Status.OK if worst is None else Status(str(worst.severity))
@@ -178,6 +180,9 @@ def make_verdict(
         status=status,
         error=error,
         findings=findings,
+        evaluated=(
+            frozenset((f.check, f.subject) for f in findings) if evaluated is None else evaluated
+        ),
         judged_at=datetime.fromtimestamp(at_s, UTC),
     )
 

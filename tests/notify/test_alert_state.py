@@ -7,17 +7,11 @@ from dataclasses import replace
 import pytest
 
 from tests.notify.conftest import make_finding
-from tests.rules.test_judge import make_metrics
+from tests.rules.test_judge import T0, make_metrics
 from watcher.config import Channel, Check
-from watcher.notify.alert_state import (
-    clearable_checks,
-    is_clearable,
-    passes,
-    remind_due,
-    step,
-)
-from watcher.records import AlertAction, AlertState, Severity
-from watcher.rules.judge import evaluated_checks
+from watcher.notify.alert_state import may_clear, passes, remind_due, step
+from watcher.records import AlertAction, AlertState, RunMetrics, Severity
+from watcher.rules.judge import judge
 
 W, C, N = Severity.WARNING, Severity.CRITICAL, Severity.NOTICE
 H = 3600.0
@@ -93,6 +87,14 @@ def test_channel_filter(
     assert passes(channel, make_finding(sev, check=check)) is ok
 
 
+def _evaluated(
+    metrics: RunMetrics, file_name: str, checks: tuple[Check, ...]
+) -> frozenset[tuple[str, str]]:
+    return judge(
+        metrics, file_name=file_name, acquired_at=T0, checks=checks, history=None
+    ).evaluated
+
+
 def test_only_evaluated_checks_may_clear() -> None:
     """A QC-only check is clearable by QC runs, never by sample runs or unreadable runs."""
     qc = Check(name="caffeine present", metric="expected_ion.caffeine.found", applies_to=("QC_*",))
@@ -103,19 +105,20 @@ def test_only_evaluated_checks_may_clear() -> None:
     assert rx.applies_to_file("BLANK_07.mzML")
     assert not rx.applies_to_file("QC_07.mzML")
     configured = {"caffeine present", "blank"}
+    caffeine = ("caffeine present", "expected_ion.caffeine.found")
 
-    def evaluated(file_name: str) -> set[str]:
-        metrics = make_metrics(file=file_name)
-        return evaluated_checks(metrics, file_name=file_name, checks=(qc, rx))
+    def evaluated(file_name: str) -> frozenset[tuple[str, str]]:
+        return _evaluated(make_metrics(file=file_name), file_name, (qc, rx))
 
-    sample = clearable_checks(evaluated("S01_0412.mzML"), readable=True)
-    assert not is_clearable("caffeine present", sample, configured, readable=True)
-    assert is_clearable("unreadable", sample, configured, readable=True)
-    assert is_clearable("removed check", sample, configured, readable=True)
-    assert not is_clearable("heartbeat", sample, configured, readable=True)
-    qc_run = clearable_checks(evaluated("QC_0413.mzML"), readable=True)
-    assert is_clearable("caffeine present", qc_run, configured, readable=True)
-    assert not is_clearable("caffeine present", set(), configured, readable=False)
+    sample = evaluated("S01_0412.mzML")
+    assert not may_clear(caffeine, sample, configured, readable=True)
+    assert may_clear(("unreadable", "file"), sample, configured, readable=True)
+    assert may_clear(("removed check", "signal.tic_median"), sample, configured, readable=True)
+    assert not may_clear(("heartbeat", "heartbeat"), sample, configured, readable=True)
+    qc_run = evaluated("QC_0413.mzML")
+    assert may_clear(caffeine, qc_run, configured, readable=True)
+    assert not may_clear(caffeine, frozenset(), configured, readable=False)
+    assert not may_clear(("unreadable", "file"), frozenset(), configured, readable=False)
 
 
 def test_run_without_ms1_data_does_not_clear_calibration_alerts() -> None:
@@ -124,16 +127,29 @@ def test_run_without_ms1_data_does_not_clear_calibration_alerts() -> None:
     drift = Check(name="calibration drift", metric="calibrant.siloxane-445.median_ppm")
     signal = Check(name="signal collapse", metric="signal.tic_median")
     configured = {"calibration drift", "signal collapse"}
+    drift_key = ("calibration drift", "calibrant.siloxane-445.median_ppm")
+    signal_key = ("signal collapse", "signal.tic_median")
     mzml = make_metrics(file="QC_0001.mzML")
     base = make_metrics(file="QC_0002.mgf")
     mgf = replace(base, signal=replace(base.signal, ms1_count=0))
     checks = (drift, signal)
-    on_mzml = clearable_checks(
-        evaluated_checks(mzml, file_name="QC_0001.mzML", checks=checks), readable=True
-    )
-    on_mgf = clearable_checks(
-        evaluated_checks(mgf, file_name="QC_0002.mgf", checks=checks), readable=True
-    )
-    assert is_clearable("calibration drift", on_mzml, configured, readable=True)
-    assert not is_clearable("calibration drift", on_mgf, configured, readable=True)
-    assert is_clearable("signal collapse", on_mgf, configured, readable=True)
+    on_mzml = _evaluated(mzml, "QC_0001.mzML", checks)
+    on_mgf = _evaluated(mgf, "QC_0002.mgf", checks)
+    assert may_clear(drift_key, on_mzml, configured, readable=True)
+    assert not may_clear(drift_key, on_mgf, configured, readable=True)
+    assert may_clear(signal_key, on_mgf, configured, readable=True)
+
+
+def test_a_check_clears_only_the_subjects_it_judged() -> None:
+    """One check over every calibrant (``*``): a run where one calibrant has no value judged only
+    the other, so the first one's open alert stays open while the same check clears the other."""
+    drift = Check(name="calibration drift", metric="calibrant.*.median_ppm")
+    configured = {"calibration drift"}
+    lost = ("calibration drift", "calibrant.leu-enk.median_ppm")
+    kept = ("calibration drift", "calibrant.siloxane-445.median_ppm")
+    both = _evaluated(make_metrics(file="QC_0003.mzML"), "QC_0003.mzML", (drift,))
+    assert both == {lost, kept}
+    one = _evaluated(make_metrics(file="QC_0004.mzML", leu_enk_ppm=None), "QC_0004.mzML", (drift,))
+    assert one == {kept}
+    assert may_clear(kept, one, configured, readable=True)
+    assert not may_clear(lost, one, configured, readable=True)

@@ -47,13 +47,23 @@ class Harness:
 
     def __init__(self, config: Config, state_dir: Path, clock: Clock) -> None:
         self.clock = clock
+        self.config = config
         self.notifier = Notifier(config, state_dir, clock=clock, **FAST)  # type: ignore[arg-type]
         self.conn = db.connect(state_dir, daemon=True)
         self.run_id = 0
 
     def run(self, name: str, *findings: object, **kw: object) -> None:
         self.run_id += 1
-        verdict = make_verdict(name, findings, at_s=self.clock(), **kw)  # type: ignore[arg-type]
+        # Judged on every configured check that applies to the file, each on its own metric.
+        judged = {(c.name, c.metric) for c in self.config.checks if c.applies_to_file(name)}
+        judged |= {(f.check, f.subject) for f in findings}  # type: ignore[attr-defined]
+        verdict = make_verdict(
+            name,
+            findings,  # type: ignore[arg-type]
+            at_s=self.clock(),
+            evaluated=frozenset(judged),
+            **kw,  # type: ignore[arg-type]
+        )
         with db.write(self.conn):
             self.notifier.record_verdict(self.conn, verdict, self.run_id, self.clock())
         self.notifier.write_health(verdict, self.run_id)

@@ -37,7 +37,8 @@ def judge_at_t0(
     metrics: RunMetrics, file_name: str, checks: Sequence[Check], history: History | None
 ) -> tuple[Status, tuple[Finding, ...]]:
     """``judge`` for a run acquired at T0, the time every test here measures from."""
-    return judge(metrics, file_name=file_name, acquired_at=T0, checks=checks, history=history)
+    judged = judge(metrics, file_name=file_name, acquired_at=T0, checks=checks, history=history)
+    return judged.status, judged.findings
 
 
 def make_metrics(

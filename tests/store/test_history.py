@@ -232,9 +232,10 @@ def test_thirty_runs_judged_against_the_real_store(tmp_path: Path) -> None:
             tic = 2.5e5  # 25 % of the QC baseline
         at = T0 + timedelta(minutes=20 * i)
         metrics = make_metrics(file=name, tic=tic, acquired_at=at)
-        status, findings = judge(
+        judged = judge(
             metrics, file_name=name, acquired_at=at, checks=[check], history=StoreHistory(conn)
         )
+        status, findings = judged.status, judged.findings
         results[name] = (status, findings)
         v = Verdict(
             run_file=RunFile(path=tmp_path / name, size=100 + i, mtime_ns=i, sha256=f"{i:064x}"),

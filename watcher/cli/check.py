@@ -121,7 +121,7 @@ def check_file(
             run_file, _one_line(f"{type(exc).__name__}: {exc}", path), "corrupt", judged_at
         )
     acquired_at = metrics.acquired_at or datetime.fromtimestamp(st.st_mtime, tz=UTC)
-    status, findings = judge(
+    judgement = judge(
         metrics,
         file_name=path.name,
         acquired_at=acquired_at,
@@ -129,7 +129,12 @@ def check_file(
         history=history,
     )
     return Verdict(
-        run_file=run_file, status=status, metrics=metrics, findings=findings, judged_at=judged_at
+        run_file=run_file,
+        status=judgement.status,
+        metrics=metrics,
+        findings=judgement.findings,
+        evaluated=judgement.evaluated,
+        judged_at=judged_at,
     )
 
 

@@ -353,7 +353,7 @@ class Pipeline:
         from watcher.store.history import StoreHistory
 
         acquired_at = metrics.acquired_at or mtime_at
-        status, findings = judge(
+        judgement = judge(
             metrics,
             file_name=run_file.path.name,
             acquired_at=acquired_at,
@@ -362,9 +362,10 @@ class Pipeline:
         )
         verdict = Verdict(
             run_file=run_file,
-            status=status,
+            status=judgement.status,
             metrics=metrics,
-            findings=tuple(findings),
+            findings=judgement.findings,
+            evaluated=judgement.evaluated,
             judged_at=judged_at,
         )
         return verdict, acquired_at

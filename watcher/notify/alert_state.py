@@ -74,24 +74,25 @@ def passes(channel: Channel, finding: Finding) -> bool:
     return not channel.checks or finding.check in channel.checks
 
 
-def clearable_checks(evaluated: set[str], *, readable: bool) -> set[str]:
-    """Names of the checks whose alerts this run may clear: those it was evaluated on.
-
-    ``evaluated`` comes from the rules (``watcher.rules.judge.evaluated_checks``): a check whose
-    metrics are all null on this run (no calibrant measured in an MGF file) was not evaluated and
-    keeps its alert open. An unreadable run evaluates nothing. A readable run clears the
-    ``unreadable`` alert. Checks no longer in the config are returned by ``is_clearable`` too, so
-    a removed check cannot keep an alert open forever.
-    """
-    if not readable:
-        return set()
-    return set(evaluated) | {UNREADABLE_CHECK}
-
-
-def is_clearable(
-    check_name: str, clearable: set[str], configured: set[str], *, readable: bool
+def may_clear(
+    key: tuple[str, str],
+    evaluated: frozenset[tuple[str, str]],
+    configured: set[str],
+    *,
+    readable: bool,
 ) -> bool:
-    """Whether an open alert of ``check_name`` is judged by this run (see ``clearable_checks``)."""
+    """Whether this run may clear the open alert ``key`` = (check, subject).
+
+    ``evaluated`` is the run's ``Verdict.evaluated``: the (check, metric path) pairs the rules
+    judged. A pair whose metric is null on this run (no calibrant measured in an MGF file) was not
+    judged and keeps its alert open; so does the same check's alert on another subject. An
+    unreadable run judges nothing. A readable run clears the ``unreadable`` alert. An alert of a
+    check no longer in the config is cleared by the next readable run, so a removed check cannot
+    keep an alert open forever. A run never clears the no-run alert (the no-run watch does).
+    """
+    check_name = key[0]
     if check_name == HEARTBEAT_CHECK or not readable:
         return False
-    return check_name in clearable or check_name not in configured
+    if check_name == UNREADABLE_CHECK or check_name not in configured:
+        return True
+    return key in evaluated

@@ -22,7 +22,6 @@ from watcher.notify import alert_state as machine
 from watcher.notify.alert_text import Item, Text, compose
 from watcher.notify.healthlog import HealthLog
 from watcher.records import AlertAction, Finding, Severity, Status, Verdict
-from watcher.rules.judge import evaluated_checks
 from watcher.store import db, outbox
 
 log = structlog.get_logger("watcher.notify.notifier")
@@ -130,13 +129,6 @@ class Notifier:
             findings.append(unreadable_finding(verdict))
         file_name = verdict.run_file.path.name
         configured = {c.name for c in self.config.checks}
-        evaluated = (
-            evaluated_checks(verdict.metrics, file_name=file_name, checks=self.config.checks)
-            if verdict.metrics is not None
-            # a verdict without metrics is built from findings alone: every applicable check
-            else {c.name for c in self.config.checks if c.applies_to_file(file_name)}
-        )
-        clearable = machine.clearable_checks(evaluated, readable=readable)
         acquired_at = verdict.metrics.acquired_at if verdict.metrics is not None else None
         # Without an acquisition time (unreadable file, mzXML), the file's mtime says when the
         # instrument wrote it, which is what a person matches against the queue.
@@ -161,8 +153,8 @@ class Notifier:
                 wanted,
                 now_s,
                 run_file=file_name,
-                may_clear=lambda check: machine.is_clearable(
-                    check, clearable, configured, readable=readable
+                may_clear=lambda key: machine.may_clear(
+                    key, verdict.evaluated, configured, readable=readable
                 ),
             )
             if items:
@@ -200,7 +192,7 @@ class Notifier:
                     wanted,
                     now_s,
                     run_file=None,
-                    may_clear=lambda check: check == machine.HEARTBEAT_CHECK,
+                    may_clear=lambda key: key[0] == machine.HEARTBEAT_CHECK,
                     only=key,
                 )
                 if items:
@@ -317,7 +309,7 @@ class Notifier:
         now_s: float,
         *,
         run_file: str | None,
-        may_clear: Callable[[str], bool],
+        may_clear: Callable[[tuple[str, str]], bool],
         only: tuple[str, str] | None = None,
     ) -> list[Item]:
         instrument = self.config.instrument.name
@@ -325,7 +317,7 @@ class Notifier:
             (a.check, a.subject): a
             for a in outbox.load_alerts(conn, instrument=instrument, channel=channel.name)
         }
-        keys = set(wanted) | {k for k in states if may_clear(k[0])}
+        keys = set(wanted) | {k for k in states if may_clear(k)}
         if only is not None:
             keys &= {only}
         items: list[Item] = []

@@ -33,7 +33,15 @@ from datetime import UTC, datetime
 from typing import Protocol
 
 from watcher.config import Check, Condition, matches_applies_to
-from watcher.records import STATUS_RANK, Finding, HistoryPoint, RunMetrics, Severity, Status
+from watcher.records import (
+    STATUS_RANK,
+    Finding,
+    HistoryPoint,
+    Judgement,
+    RunMetrics,
+    Severity,
+    Status,
+)
 from watcher.rules import finding_text as messages
 from watcher.rules import trend, westgard
 from watcher.rules.baseline import Baseline, from_spec
@@ -304,7 +312,7 @@ def judge(
     acquired_at: datetime,
     checks: Sequence[Check],
     history: History | None,
-) -> tuple[Status, tuple[Finding, ...]]:
+) -> Judgement:
     """Evaluate every applicable check on one run.
 
     Args:
@@ -316,28 +324,21 @@ def judge(
             and ``for_runs`` > 1 never fires).
 
     Returns:
-        The run status (the highest finding severity, ``ok`` without findings) and the findings.
+        The run status (the highest finding severity, ``ok`` without findings), the findings, and
+        the (check, metric path) pairs evaluated: those that apply to the file and have a value.
     """
     flat = _judgeable(metrics)
     findings: list[Finding] = []
-    for check, path in _evaluated(flat, file_name, checks):
-        value = flat[path]
-        if value is None:  # never: _evaluated keeps only paths with a value
-            continue
+    evaluated: set[tuple[str, str]] = set()
+    for check, path, value in _evaluated(flat, file_name, checks):
+        evaluated.add((check.name, path))
         findings.extend(_judge_path(check, path, value, file_name, acquired_at, history))
     status = Status.OK
     for f in findings:
         candidate = Status(f.severity.value)
         if STATUS_RANK[candidate] > STATUS_RANK[status]:
             status = candidate
-    return status, tuple(findings)
-
-
-def evaluated_checks(metrics: RunMetrics, *, file_name: str, checks: Sequence[Check]) -> set[str]:
-    """Names of the checks that ``judge`` evaluates on this run: those that apply to the file and
-    have at least one metric with a value. Only these may clear an open alert; a run that
-    measured no calibrant (an MGF file, no MS1 spectra) says nothing about calibration drift."""
-    return {check.name for check, _ in _evaluated(_judgeable(metrics), file_name, checks)}
+    return Judgement(status=status, findings=tuple(findings), evaluated=frozenset(evaluated))
 
 
 def _judgeable(metrics: RunMetrics) -> dict[str, float | bool | None]:
@@ -351,9 +352,12 @@ def _judgeable(metrics: RunMetrics) -> dict[str, float | bool | None]:
 
 def _evaluated(
     flat: dict[str, float | bool | None], file_name: str, checks: Sequence[Check]
-) -> list[tuple[Check, str]]:
-    """The (check, metric path) pairs with a value to judge, in config order."""
-    pairs: list[tuple[Check, str]] = []
+) -> list[tuple[Check, str, float | bool]]:
+    """The (check, metric path, value) triples with a value to judge, in config order.
+
+    A finding's subject is its metric path, so the (check, path) pairs are the alert keys this
+    run judged."""
+    out: list[tuple[Check, str, float | bool]] = []
     for check in checks:
         if not check.applies_to_file(file_name):
             continue
@@ -361,8 +365,8 @@ def _evaluated(
             value = flat[path]
             if value is None or is_missing(value):
                 continue
-            pairs.append((check, path))
-    return pairs
+            out.append((check, path, value))
+    return out
 
 
 def _judge_path(
