@@ -24,6 +24,12 @@ class Status(StrEnum):
     CRITICAL = "critical"
     UNREADABLE = "unreadable"
 
+    @property
+    def accepted(self) -> bool:
+        """Whether a run of this status may enter a baseline: ok or notice (a notice is a heads-up,
+        not a rejection). The one definition the rules, the digest and ``check`` share."""
+        return self in (Status.OK, Status.NOTICE)
+
 
 class Severity(StrEnum):
     """Finding severities, in the words of syslog (RFC 5424)."""

@@ -11,6 +11,7 @@ from contextlib import redirect_stdout
 from datetime import UTC, date, datetime, timedelta
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from tests.helpers import browser
@@ -288,3 +289,47 @@ def test_levey_jennings_lines_come_from_the_check_with_the_lab_set_target(state:
     conn.close()
     (cal,) = d.calibrants
     assert cal.baseline == "fixed by check 'siloxane QC rules'"
+
+
+def test_levey_jennings_centre_and_spread_are_the_rules_baseline(tmp_path: Path) -> None:
+    """Without a lab-set target the chart's lines are the rules' robust baseline of the runs
+    before the day: median and 1.4826 x MAD (MAD scaled to estimate a normal SD; NIST/SEMATECH
+    e-Handbook of Statistical Methods, section 1.3.5.6) of the accepted runs only, with the
+    check's ``runs`` window and ``min_runs`` floor."""
+    check = Check(
+        name="calibration drift",
+        metric="calibrant.*.median_ppm",
+        warning=Condition(z_outside=(-2.0, 2.0)),
+        baseline=BaselineSpec(runs=6, min_runs=4),
+    )
+    config = dataclasses.replace(CONFIG, checks=(check,))
+    before = datetime(2026, 3, 9, 8, 0, tzinfo=UTC)
+    # 8 accepted runs the day before (the window keeps the last 6) and one rejected outlier.
+    accepted_ppm = [9.0, 9.0, 0.4, -0.2, 1.1, 0.7, 0.1, 0.9]
+    state_dir = tmp_path / "state"
+    conn = db.connect(state_dir, daemon=True)
+    with db.write(conn):
+        for i, ppm in enumerate(accepted_ppm):
+            history.record_verdict(conn, _verdict(i, before + timedelta(minutes=30 * i), ppm))
+        rejected = dataclasses.replace(
+            _verdict(50, before + timedelta(hours=5), 25.0), status=Status.CRITICAL
+        )
+        history.record_verdict(conn, rejected)
+        history.record_verdict(conn, _verdict(60, datetime(2026, 3, 10, 9, 0, tzinfo=UTC), 0.3))
+    d = digest_mod.build_digest(conn, config, DAY)
+    window = np.array(accepted_ppm[-6:])
+    centre = float(np.median(window))
+    sd = 1.4826 * float(np.median(np.abs(window - centre)))
+    (cal,) = d.calibrants
+    assert cal.centre_ppm == pytest.approx(centre)
+    assert cal.sd_ppm == pytest.approx(sd)
+    assert "last 6 accepted runs" in cal.baseline
+
+    # With fewer accepted runs before the day than min_runs, the rules had no baseline: no lines.
+    short = dataclasses.replace(check, baseline=BaselineSpec(runs=6, min_runs=20))
+    d2 = digest_mod.build_digest(conn, dataclasses.replace(CONFIG, checks=(short,)), DAY)
+    conn.close()
+    (cal2,) = d2.calibrants
+    assert cal2.centre_ppm is None
+    assert cal2.sd_ppm is None
+    assert cal2.baseline.startswith("none yet")

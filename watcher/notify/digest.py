@@ -9,21 +9,24 @@ attached or opened from a USB stick.
 from __future__ import annotations
 
 import base64
-import fnmatch
 import html
+import sqlite3
 import statistics
 from collections import Counter
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import UTC, date, datetime, time, timedelta
-from typing import Any
 from zoneinfo import ZoneInfo
 
-from watcher.config import Check, Config
+from watcher.config import BaselineSpec, Check, Config
 from watcher.notify import plots
 from watcher.notify.alert_text import format_value
+from watcher.records import Status
+from watcher.rules.baseline import Baseline, from_spec
+from watcher.rules.checks import matches_metric
+from watcher.store import history
+from watcher.store.history import RunRow
 
-_ACCEPTED = ("ok", "notice")
 _BASELINE_LOOKBACK = timedelta(days=30)
 
 
@@ -53,7 +56,9 @@ class CalibrantSummary:
     mean_ppm: float | None
     min_ppm: float | None
     max_ppm: float | None
-    baseline: str  # where the chart's mean/SD come from
+    baseline: str  # where the chart's centre and SD come from
+    centre_ppm: float | None = None  # the rules' baseline centre at the start of the day
+    sd_ppm: float | None = None  # and its spread; None when the rules had no baseline yet
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -72,38 +77,8 @@ class Digest:
 # -- reading the history ----------------------------------------------------------------------
 
 
-def _history(history: Any) -> Any:
-    if history is not None:
-        return history
-    from watcher.store import history as real
-
-    return real
-
-
-def _get(obj: Any, name: str) -> Any:
-    if isinstance(obj, Mapping):
-        return obj.get(name)
-    return getattr(obj, name, None)
-
-
-def _as_datetime(value: Any) -> datetime | None:
-    if value is None:
-        return None
-    if isinstance(value, datetime):
-        return value if value.tzinfo else value.replace(tzinfo=UTC)
-    if isinstance(value, int | float):
-        return datetime.fromtimestamp(value, UTC)
-    parsed = datetime.fromisoformat(str(value))
-    return parsed if parsed.tzinfo else parsed.replace(tzinfo=UTC)
-
-
-def _run_time(run: Any) -> datetime | None:
-    return _as_datetime(_get(run, "acquired_at")) or _as_datetime(_get(run, "judged_at"))
-
-
-def _value(run: Any, metric: str) -> float | None:
-    metrics = _get(run, "metrics") or {}
-    value = metrics.get(metric)
+def _value(run: RunRow, metric: str) -> float | None:
+    value = run.metrics.get(metric)
     if isinstance(value, bool) or not isinstance(value, int | float) or value != value:
         return None
     return float(value)
@@ -148,9 +123,10 @@ def _check_for(config: Config, metric: str) -> Check | None:
     """The check whose baseline a chart of ``metric`` should show.
 
     A lab-set mean and SD (the Westgard rules' target) win over a check that only sets limits,
-    so the chart's lines are the ones the rules judged against.
+    so the chart's lines are the ones the rules judged against. Metric patterns match as the
+    rules expand them (``watcher.rules.checks.matches_metric``).
     """
-    matching = [c for c in config.checks if fnmatch.fnmatchcase(metric, c.metric)]
+    matching = [c for c in config.checks if matches_metric(c.metric, metric)]
     for check in matching:
         if check.baseline.mean is not None and check.baseline.sd is not None:
             return check
@@ -160,148 +136,157 @@ def _check_for(config: Config, metric: str) -> Check | None:
     return matching[0] if matching else None
 
 
-def _applies(check: Check | None, run: Any) -> bool:
-    return check is None or check.applies_to_file(str(_get(run, "file_name") or ""))
+def _applies(check: Check | None, run: RunRow) -> bool:
+    return check is None or check.applies_to_file(run.file_name)
 
 
 def _baseline(
-    config: Config, metric: str, earlier_runs: Sequence[Any], day_runs: Sequence[Any]
-) -> tuple[float | None, float | None, str]:
-    """Mean and SD for a Levey-Jennings chart: fixed in the check, else recent accepted runs."""
-    check = _check_for(config, metric)
-    if check is not None and check.baseline.mean is not None and check.baseline.sd is not None:
-        return check.baseline.mean, check.baseline.sd, f"fixed by check '{check.name}'"
-    n_runs = check.baseline.runs if check is not None else 20
+    check: Check | None, metric: str, earlier_runs: Sequence[RunRow]
+) -> tuple[Baseline | None, str]:
+    """The rules' own baseline for ``metric`` as it stood before ``earlier_runs`` ended.
+
+    ``watcher.rules.baseline.from_spec`` on the check's spec: the lab's mean/SD, else median and
+    1.4826 x MAD of the last ``runs`` accepted runs of the same kind, needing ``min_runs`` of
+    them. A chart without a check uses the default spec. Returns the baseline (None: the rules
+    had none either) and a line saying where it came from.
+    """
+    spec = check.baseline if check is not None else BaselineSpec()
     accepted = [
         v
         for run in earlier_runs
-        if _get(run, "status") in _ACCEPTED
-        and _applies(check, run)
-        and (v := _value(run, metric)) is not None
-    ][-n_runs:]
-    source = f"last {len(accepted)} accepted runs before the day"
-    if len(accepted) < 2:
-        accepted = [
-            v
-            for run in day_runs
-            if _get(run, "status") in _ACCEPTED
-            and _applies(check, run)
-            and (v := _value(run, metric)) is not None
-        ]
-        source = f"the day's {len(accepted)} accepted runs (no earlier baseline)"
-    if len(accepted) < 2:
-        return None, None, "not enough accepted runs for a baseline"
-    return statistics.fmean(accepted), statistics.stdev(accepted), source
-
-
-# -- building ---------------------------------------------------------------------------------
-
-
-def build_digest(conn: Any, config: Config, day: date, *, history: Any = None) -> Digest:
-    """Collect one local day of runs and draw its charts.
-
-    Args:
-        conn: the state database (read only is enough).
-        config: the lab config (instrument, calibrants, expected ions, checks).
-        day: the day in the instrument's time zone.
-        history: the run-history module (default ``watcher.store.history``).
-    """
-    hist = _history(history)
-    tz_name = config.instrument.timezone
-    tz = ZoneInfo(tz_name)
-    start, end = day_bounds(day, tz_name)
-    runs = sorted(
-        hist.runs_between(conn, start, end),
-        key=lambda r: _run_time(r) or start,
+        if run.status.accepted and _applies(check, run) and (v := _value(run, metric)) is not None
+    ]
+    baseline = from_spec(spec, accepted)
+    if baseline is None:
+        return None, (
+            f"none yet: {len(accepted[-spec.runs :])} accepted runs before the day, "
+            f"{spec.min_runs} needed"
+        )
+    if baseline.is_fixed:
+        name = check.name if check is not None else "?"
+        return baseline, f"fixed by check '{name}'"
+    return baseline, (
+        f"median and 1.4826 MAD of the last {baseline.n_runs} accepted runs before the day"
     )
-    earlier = sorted(
-        hist.runs_between(conn, start - _BASELINE_LOOKBACK, start),
-        key=lambda r: _run_time(r) or start,
-    )
-    by_status = Counter(str(_get(r, "status")) for r in runs)
 
-    findings: list[FindingRow] = []
-    unreadable: list[tuple[str, str]] = []
+
+# -- building: collect, summarise, draw -------------------------------------------------------
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class _DayRuns:
+    """The runs of one local day and of the lookback before it, each oldest first."""
+
+    runs: list[RunRow]
+    earlier: list[RunRow]
+
+
+def _collect(conn: sqlite3.Connection, config: Config, day: date) -> _DayRuns:
+    start, end = day_bounds(day, config.instrument.timezone)
+    # The store's acquired_at is the acquisition time, else the file's mtime (one definition,
+    # ``watcher.store.history.record_verdict``), so every run has a place on the time axis.
+    return _DayRuns(
+        runs=history.runs_between(conn, start, end),
+        earlier=history.runs_between(conn, start - _BASELINE_LOOKBACK, start),
+    )
+
+
+def _finding_rows(runs: Sequence[RunRow], tz: ZoneInfo) -> list[FindingRow]:
+    rows: list[FindingRow] = []
     for run in runs:
-        at = _run_time(run)
-        when = at.astimezone(tz).strftime("%H:%M") if at else "--:--"
-        file_name = str(_get(run, "file_name") or "")
-        if _get(run, "status") == "unreadable":
-            unreadable.append((file_name, str(_get(run, "error") or "unreadable")))
-        for f in _get(run, "findings") or ():
-            findings.append(
+        when = run.acquired_at.astimezone(tz).strftime("%H:%M")
+        for f in run.findings:
+            rows.append(
                 FindingRow(
                     time=when,
-                    file=file_name,
-                    check=str(_get(f, "check")),
-                    severity=str(_get(f, "severity")),
-                    value=with_unit(format_value(_get(f, "value")), _get(f, "metric")),
-                    limit=with_unit(str(_get(f, "limit") or ""), _get(f, "metric")),
-                    rule=str(_get(f, "rule") or ""),
-                    message=str(_get(f, "message") or ""),
+                    file=run.file_name,
+                    check=f.check,
+                    severity=str(f.severity),
+                    value=with_unit(format_value(f.value), f.metric),
+                    limit=with_unit(f.limit, f.metric),
+                    rule=f.rule,
+                    message=f.message,
                 )
             )
+    return rows
 
-    charts: list[Chart] = []
-    summaries: list[CalibrantSummary] = []
-    for cal in config.calibrants:
-        metric = f"calibrant.{cal.name}.median_ppm"
-        check = _check_for(config, metric)
-        pts = [
-            (t, v, str(_get(r, "status")))
-            for r in runs
-            if _applies(check, r)
-            and (t := _run_time(r)) is not None
-            and (v := _value(r, metric)) is not None
-        ]
-        mean, sd, source = _baseline(config, metric, earlier, runs)
-        values = [p[1] for p in pts]
-        summaries.append(
-            CalibrantSummary(
-                name=cal.name,
-                runs=len(values),
-                mean_ppm=statistics.fmean(values) if values else None,
-                min_ppm=min(values) if values else None,
-                max_ppm=max(values) if values else None,
-                baseline=source,
-            )
-        )
-        charts.append(
-            Chart(
-                title=f"Levey-Jennings: {cal.name} median ppm (baseline: {source})",
-                png=plots.levey_jennings(
-                    [(p[0].astimezone(tz), p[1]) for p in pts],
-                    mean=mean,
-                    sd=sd,
-                    title=f"{cal.name} (m/z {cal.mz:.4f})" if cal.mz else cal.name,
-                    statuses=[p[2] for p in pts],
-                ),
-                kind="levey-jennings",
-            )
-        )
 
-    def line(metric: str) -> list[plots.Point]:
-        return [
-            (t.astimezone(tz), v)
-            for r in runs
-            if (t := _run_time(r)) is not None and (v := _value(r, metric)) is not None
-        ]
+def _points(
+    runs: Sequence[RunRow], metric: str, check: Check | None
+) -> list[tuple[datetime, float, str]]:
+    """(acquired at, value, status) of the runs of the check's kind with a value for ``metric``."""
+    return [
+        (r.acquired_at, v, str(r.status))
+        for r in runs
+        if _applies(check, r) and (v := _value(r, metric)) is not None
+    ]
 
-    charts.append(
+
+def _summarise_calibrant(
+    name: str,
+    points: Sequence[tuple[datetime, float, str]],
+    baseline: Baseline | None,
+    source: str,
+) -> CalibrantSummary:
+    values = [p[1] for p in points]
+    return CalibrantSummary(
+        name=name,
+        runs=len(values),
+        mean_ppm=statistics.fmean(values) if values else None,
+        min_ppm=min(values) if values else None,
+        max_ppm=max(values) if values else None,
+        baseline=source,
+        centre_ppm=baseline.centre if baseline is not None else None,
+        sd_ppm=baseline.sd if baseline is not None else None,
+    )
+
+
+def _levey_jennings(
+    points: Sequence[tuple[datetime, float, str]],
+    baseline: Baseline | None,
+    tz: ZoneInfo,
+    *,
+    title: str,
+    ylabel: str = "ppm",
+) -> bytes:
+    return plots.levey_jennings(
+        [(p[0].astimezone(tz), p[1]) for p in points],
+        mean=baseline.centre if baseline is not None else None,
+        sd=baseline.sd if baseline is not None and baseline.sd > 0 else None,
+        title=title,
+        ylabel=ylabel,
+        statuses=[p[2] for p in points],
+    )
+
+
+def _line(
+    runs: Sequence[RunRow], metric: str, tz: ZoneInfo, scale: float = 1.0
+) -> list[plots.Point]:
+    return [
+        (r.acquired_at.astimezone(tz), v * scale)
+        for r in runs
+        if (v := _value(r, metric)) is not None
+    ]
+
+
+def _run_charts(config: Config, runs: Sequence[RunRow], tz: ZoneInfo) -> list[Chart]:
+    """TIC, expected-ion intensity and RT, and the status timeline of the day."""
+    charts = [
         Chart(
             title="TIC (median MS1 total ion current) per run",
             png=plots.series(
-                {"TIC median": line("signal.tic_median")}, title="TIC", ylabel="counts", log_y=True
+                {"TIC median": _line(runs, "signal.tic_median", tz)},
+                title="TIC",
+                ylabel="counts",
+                log_y=True,
             ),
             kind="tic",
         )
-    )
+    ]
     if config.expected_ions:
         names = [e.ion.name for e in config.expected_ions]
-        intensity = {n: line(f"expected_ion.{n}.apex_intensity") for n in names}
-        apex_rt_min = {
-            n: [(t, v / 60.0) for t, v in line(f"expected_ion.{n}.apex_rt_s")] for n in names
-        }
+        intensity = {n: _line(runs, f"expected_ion.{n}.apex_intensity", tz) for n in names}
+        apex_rt_min = {n: _line(runs, f"expected_ion.{n}.apex_rt_s", tz, 1 / 60.0) for n in names}
         charts.append(
             Chart(
                 title="Expected ions: apex intensity per run",
@@ -316,9 +301,7 @@ def build_digest(conn: Any, config: Config, day: date, *, history: Any = None) -
                 kind="ion-rt",
             )
         )
-    timeline = [
-        (t.astimezone(tz), str(_get(r, "status"))) for r in runs if (t := _run_time(r)) is not None
-    ]
+    timeline = [(r.acquired_at.astimezone(tz), str(r.status)) for r in runs]
     charts.append(
         Chart(
             title="Run status over the day",
@@ -326,46 +309,68 @@ def build_digest(conn: Any, config: Config, day: date, *, history: Any = None) -
             kind="status",
         )
     )
+    return charts
+
+
+def build_digest(conn: sqlite3.Connection, config: Config, day: date) -> Digest:
+    """Collect one local day of runs, summarise them and draw their charts.
+
+    Args:
+        conn: the state database (read only is enough).
+        config: the lab config (instrument, calibrants, expected ions, checks).
+        day: the day in the instrument's time zone.
+    """
+    tz = ZoneInfo(config.instrument.timezone)
+    day_runs = _collect(conn, config, day)
+    runs = day_runs.runs
+    charts: list[Chart] = []
+    summaries: list[CalibrantSummary] = []
+    for cal in config.calibrants:
+        metric = f"calibrant.{cal.name}.median_ppm"
+        check = _check_for(config, metric)
+        points = _points(runs, metric, check)
+        baseline, source = _baseline(check, metric, day_runs.earlier)
+        summaries.append(_summarise_calibrant(cal.name, points, baseline, source))
+        title = f"{cal.name} (m/z {cal.mz:.4f})" if cal.mz else cal.name
+        charts.append(
+            Chart(
+                title=f"Levey-Jennings: {cal.name} median ppm (baseline: {source})",
+                png=_levey_jennings(points, baseline, tz, title=title),
+                kind="levey-jennings",
+            )
+        )
+    charts.extend(_run_charts(config, runs, tz))
     return Digest(
         day=day,
         instrument=config.instrument.name,
-        timezone=tz_name,
+        timezone=config.instrument.timezone,
         run_count=len(runs),
-        by_status=dict(by_status),
+        by_status=dict(Counter(str(r.status) for r in runs)),
         calibrants=tuple(summaries),
-        findings=tuple(findings),
-        unreadable=tuple(unreadable),
+        findings=tuple(_finding_rows(runs, tz)),
+        unreadable=tuple(
+            (r.file_name, r.error or "unreadable") for r in runs if r.status is Status.UNREADABLE
+        ),
         charts=tuple(charts),
     )
 
 
 def metric_history_png(
-    conn: Any, config: Config, metric: str, *, end_s: float, history: Any = None
+    conn: sqlite3.Connection, config: Config, metric: str, *, end_s: float
 ) -> bytes | None:
-    """A small chart of one metric over the last week's runs, for an alert attachment."""
-    hist = _history(history)
+    """A small chart of one metric over the last week's runs, for an alert attachment.
+
+    The centre and SD lines are the rules' baseline for the newest run: from the runs before it.
+    """
     end = datetime.fromtimestamp(end_s, UTC)
-    runs = hist.runs_between(conn, end - timedelta(days=7), end + timedelta(seconds=1))
+    runs = history.runs_between(conn, end - timedelta(days=7), end + timedelta(seconds=1))
     check = _check_for(config, metric)
     tz = ZoneInfo(config.instrument.timezone)
-    pts = [
-        (t.astimezone(tz), v, str(_get(r, "status")))
-        for r in runs
-        if _applies(check, r)
-        and (t := _run_time(r)) is not None
-        and (v := _value(r, metric)) is not None
-    ][-50:]
-    if not pts:
+    points = _points(runs, metric, check)[-50:]
+    if not points:
         return None
-    mean, sd, _ = _baseline(config, metric, [], runs)
-    return plots.levey_jennings(
-        [(p[0], p[1]) for p in pts],
-        mean=mean,
-        sd=sd,
-        title=metric,
-        ylabel=metric.rsplit(".", 1)[-1],
-        statuses=[p[2] for p in pts],
-    )
+    baseline, _ = _baseline(check, metric, runs[:-1])
+    return _levey_jennings(points, baseline, tz, title=metric, ylabel=metric.rsplit(".", 1)[-1])
 
 
 # -- rendering --------------------------------------------------------------------------------

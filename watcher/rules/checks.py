@@ -40,6 +40,11 @@ def expand(pattern: str, paths: Iterable[str]) -> list[str]:
     return [p for p in paths if regex.fullmatch(p)]
 
 
+def matches_metric(pattern: str, path: str) -> bool:
+    """Whether a check's metric pattern names the concrete metric path (as ``expand`` reads it)."""
+    return bool(expand(pattern, (path,)))
+
+
 def is_missing(value: Value) -> bool:
     """A value that was not measured: None or NaN."""
     return value is None or (isinstance(value, float) and math.isnan(value))

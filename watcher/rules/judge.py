@@ -55,7 +55,6 @@ from watcher.rules.checks import (
 
 TREND_RUNS = 50  # earlier runs fed to EWMA and CUSUM
 WESTGARD_RUNS = 9  # 10x needs the nine runs before this one
-ACCEPTED = (Status.OK, Status.NOTICE)
 # metric paths measured from MS1 spectra only
 MS1_ONLY_PREFIXES = ("calibrant.", "expected_ion.", "expected_ions.", "mass_correction.")
 
@@ -92,7 +91,7 @@ def _points(
             for p in raw
             if not is_missing(p.value)
             and matches_applies_to(applies_to, p.file_name)
-            and (not accepted_only or p.status in ACCEPTED)
+            and (not accepted_only or p.status.accepted)
         ]
         if len(kept) >= limit or len(raw) < fetch:
             return kept[-limit:]
