@@ -500,3 +500,33 @@ def test_retry_waits_read_and_default() -> None:
     assert (config.alerts.retry_first_wait_s, config.alerts.retry_max_wait_s) == (30.0, 3600.0)
     default = load_config_text("alerts: {}\n", source="lab.yaml")
     assert (default.alerts.retry_first_wait_s, default.alerts.retry_max_wait_s) == (5.0, 600.0)
+
+
+def test_allowed_keys_are_the_model_fields() -> None:
+    """Every field of every config record is a YAML key of its section (the table is derived,
+    not a second list): a renamed key is read into its field, a loader-set field is no key."""
+    import dataclasses
+
+    from watcher.config import keys, load_config_text, model
+
+    for section, records in keys._SECTIONS.items():
+        for record in records:
+            for f in dataclasses.fields(record):
+                key = f.metadata.get(model.YAML_KEY, f.name)
+                if key is not None and (record, f.name) not in keys._NESTED:
+                    assert key in keys.KEYS[section], (section, f.name)
+    assert "source" not in keys.KEYS["config"]
+    assert "line" not in keys.KEYS["check"]
+    assert "is" in keys.KEYS["condition"]
+    assert "is_" not in keys.KEYS["condition"]
+    config = load_config_text(
+        "alerts:\n  remind_every: 2h\n  retry_for: 30min\n  retry_max_wait: 90s\n"
+        "checks:\n  - name: t\n    metric: signal.tic_median\n"
+        "    ewma: {lambda: 0.3, L: 2.5}\n",
+        source="inline.yaml",
+    )
+    assert config.alerts.remind_every_s == 7200.0
+    assert config.alerts.retry_for_s == 1800.0
+    assert config.alerts.retry_max_wait_s == 90.0
+    assert config.checks[0].ewma is not None
+    assert config.checks[0].ewma.lam == 0.3

@@ -20,6 +20,15 @@ from watcher.errors import ConfigError, ConfigProblem
 from watcher.records import Severity
 
 REGEX_PREFIX = "re:"  # an applies_to entry starting so is a regular expression, not a glob
+YAML_KEY = "yaml_key"  # field metadata: the YAML key, where it is not the field's name
+
+
+def _key(name: str | None) -> dict[str, str | None]:
+    """Field metadata naming the field's YAML key; None: set by the loader, not a YAML key.
+
+    Durations are ``*_s`` numbers in the types but written ``4h`` in YAML without the suffix;
+    ``is`` and ``lambda`` are Python keywords. ``watcher.config.keys`` reads this."""
+    return {YAML_KEY: name}
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -86,7 +95,7 @@ class Condition:
     below: float | None = None
     outside: tuple[float, float] | None = None
     inside: tuple[float, float] | None = None
-    is_: bool | None = None
+    is_: bool | None = field(default=None, metadata=_key("is"))
     below_ratio: float | None = None
     above_ratio: float | None = None
     diff_above: float | None = None
@@ -113,7 +122,7 @@ class BaselineSpec:
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class EwmaSpec:
-    lam: float = 0.2  # lambda, weight of the newest run
+    lam: float = field(default=0.2, metadata=_key("lambda"))  # weight of the newest run
     L: float = 3.0  # control-limit width in sigma of the EWMA statistic
 
 
@@ -146,7 +155,8 @@ class Check:
     ewma: EwmaSpec | None = None
     cusum: CusumSpec | None = None
     forecast: ForecastSpec | None = None
-    line: int | None = None  # where the check starts in the YAML, for messages
+    # where the check starts in the YAML, for messages
+    line: int | None = field(default=None, metadata=_key(None))
 
     def applies_to_file(self, file_name: str) -> bool:
         """Whether this check is evaluated on a run file named ``file_name``."""
@@ -195,17 +205,20 @@ class Channel:
 @dataclass(frozen=True, slots=True, kw_only=True)
 class Alerts:
     channels: tuple[Channel, ...] = ()
-    remind_every_s: float | None = 4 * 3600.0  # None = never remind
+    # None = never remind
+    remind_every_s: float | None = field(default=4 * 3600.0, metadata=_key("remind_every"))
     send_cleared: bool = True
-    expect_run_every_s: float | None = None  # heartbeat; None = off
+    # the no-run alert; None = off
+    expect_run_every_s: float | None = field(default=None, metadata=_key("expect_run_every"))
     active_hours: tuple[str, str] | None = None  # ("18:00", "08:00") local; heartbeat only then
     timeout_s: float = 30.0  # whole notify() call
     connect_timeout_s: float = 10.0  # per URL (apprise cto)
     read_timeout_s: float = 10.0  # per URL (apprise rto)
-    retry_for_s: float = 24 * 3600.0  # give up on a message older than this
+    # give up on a message older than this
+    retry_for_s: float = field(default=24 * 3600.0, metadata=_key("retry_for"))
     # Wait before the first retry of a failed delivery; it doubles per attempt up to the max.
-    retry_first_wait_s: float = 5.0
-    retry_max_wait_s: float = 600.0
+    retry_first_wait_s: float = field(default=5.0, metadata=_key("retry_first_wait"))
+    retry_max_wait_s: float = field(default=600.0, metadata=_key("retry_max_wait"))
     plots: bool = False  # attach a PNG of the metric history where the channel takes attachments
 
 
@@ -227,7 +240,8 @@ class Limits:
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class Config:
-    source: Path | None = None  # the YAML file, None for built-in defaults
+    # the YAML file, None for built-in defaults
+    source: Path | None = field(default=None, metadata=_key(None))
     instrument: Instrument = field(default_factory=Instrument)
     watch: Watch = field(default_factory=Watch)
     state_dir: Path | None = None
