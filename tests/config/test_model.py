@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import dataclasses
+import datetime as dt
 import time
 from pathlib import Path
 
@@ -242,8 +243,8 @@ def test_times_of_day_and_active_hours() -> None:
     """HH:MM times are kept zero-padded; active_hours is a (start, end) pair."""
     text = "digest_at: '7:30'\nalerts: {active_hours: ['18:00', '08:00']}\n"
     config = load_config_text(text, source="lab.yaml")
-    assert config.digest_at == "07:30"
-    assert config.alerts.active_hours == ("18:00", "08:00")
+    assert config.digest_at == dt.time(7, 30)
+    assert config.alerts.active_hours == (dt.time(18, 0), dt.time(8, 0))
 
 
 def test_relative_paths_resolve_against_config_folder(tmp_path: Path) -> None:

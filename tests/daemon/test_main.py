@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from datetime import datetime
+from datetime import datetime, time
 from pathlib import Path
 from zoneinfo import ZoneInfo
 
@@ -29,7 +29,8 @@ def _at(text: str, tz: str = "Europe/Oslo") -> float:
 )
 def test_active_hours_in_instrument_time(local, hours, expected):
     """The heartbeat window is read in the instrument's time zone and may wrap midnight."""
-    assert in_active_hours(_at(local), "Europe/Oslo", hours) is expected
+    window = tuple(time.fromisoformat(t) for t in hours)
+    assert in_active_hours(_at(local), "Europe/Oslo", window) is expected  # type: ignore[arg-type]
 
 
 def test_no_window_means_always():

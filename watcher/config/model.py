@@ -13,6 +13,7 @@ import functools
 import re
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
+from datetime import time
 from fnmatch import fnmatchcase
 from pathlib import Path
 
@@ -210,7 +211,8 @@ class Alerts:
     send_cleared: bool = True
     # the no-run alert; None = off
     expect_run_every_s: float | None = field(default=None, metadata=_key("expect_run_every"))
-    active_hours: tuple[str, str] | None = None  # ("18:00", "08:00") local; heartbeat only then
+    # local (start, end), e.g. 18:00 to 08:00: the no-run alert watches only then (may wrap)
+    active_hours: tuple[time, time] | None = None
     timeout_s: float = 30.0  # whole notify() call
     connect_timeout_s: float = 10.0  # per URL (apprise cto)
     read_timeout_s: float = 10.0  # per URL (apprise rto)
@@ -252,7 +254,7 @@ class Config:
     alerts: Alerts = field(default_factory=Alerts)
     health_log: HealthLog = field(default_factory=HealthLog)
     limits: Limits = field(default_factory=Limits)
-    digest_at: str | None = None  # "07:30" local time: the daemon sends the digest then
+    digest_at: time | None = None  # local time of day (YAML "07:30"): the daemon sends the digest
     log_keep_days: int = 30
 
 

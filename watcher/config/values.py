@@ -14,6 +14,7 @@ import operator
 import re
 import zoneinfo
 from collections.abc import Callable, Mapping
+from datetime import time
 from pathlib import Path
 from typing import Any
 
@@ -288,15 +289,16 @@ class Values:
             raise self.fail(path, f"expected {wanted}, got {self.show(x)}")
         return seconds
 
-    def time_of_day(self, path: KeyPath, x: Any) -> str:
+    def time_of_day(self, path: KeyPath, x: Any) -> time:
+        """ "HH:MM" (00:00-23:59) as a time of day, parsed here once for every use at run time."""
         if not isinstance(x, str) or not _TIME_RE.match(x):
             raise self.fail(
                 path, f'expected a time of day as "HH:MM" (00:00-23:59), got {self.show(x)}'
             )
         hours, minutes = x.split(":")
-        return f"{int(hours):02d}:{minutes}"
+        return time(int(hours), int(minutes))
 
-    def hours(self, path: KeyPath, x: Any) -> tuple[str, str]:
+    def hours(self, path: KeyPath, x: Any) -> tuple[time, time]:
         if not isinstance(x, list) or len(x) != 2:
             raise self.fail(path, f'expected ["HH:MM", "HH:MM"] (start, end), got {self.show(x)}')
         start = self.time_of_day((*path, 0), x[0])

@@ -8,7 +8,7 @@ tick and ``resume`` inside the transaction that queues new runs.
 from __future__ import annotations
 
 import sqlite3
-from datetime import datetime
+from datetime import datetime, time
 from typing import Any
 from zoneinfo import ZoneInfo
 
@@ -22,18 +22,14 @@ log = structlog.get_logger("watcher.daemon")
 STATE_KEY = "heartbeat.missed"
 
 
-def in_active_hours(now_s: float, tz_name: str, hours: tuple[str, str] | None) -> bool:
+def in_active_hours(now_s: float, tz_name: str, hours: tuple[time, time] | None) -> bool:
     """True when ``now_s`` falls in the local window ``(start, end)`` (may wrap midnight)."""
     if hours is None:
         return True
     local = datetime.fromtimestamp(now_s, ZoneInfo(tz_name))
     minute = local.hour * 60 + local.minute
-
-    def parse(text: str) -> int:
-        h, _, m = text.partition(":")
-        return int(h) * 60 + int(m or 0)
-
-    start, end = parse(hours[0]), parse(hours[1])
+    start = hours[0].hour * 60 + hours[0].minute
+    end = hours[1].hour * 60 + hours[1].minute
     if start <= end:
         return start <= minute < end
     return minute >= start or minute < end

@@ -384,8 +384,8 @@ class Notifier:
     def _maybe_digest(self, conn: sqlite3.Connection, now_s: float) -> None:
         assert self.config.digest_at is not None  # noqa: S101 - checked by the caller
         local = datetime.fromtimestamp(now_s, self._tz)
-        hour, minute = (int(p) for p in self.config.digest_at.split(":", 1))
-        if (local.hour, local.minute) < (hour, minute):
+        at = self.config.digest_at
+        if (local.hour, local.minute) < (at.hour, at.minute):
             return
         day = local.date() - timedelta(days=1)  # the morning digest covers the whole of yesterday
         ref = f"digest:{day.isoformat()}"
