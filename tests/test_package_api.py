@@ -20,7 +20,7 @@ PUBLIC = {
         "start_watching",
         "stop_watching",
     ],
-    "watcher.measure": ["measure_file", "measure_scans"],
+    "watcher.measure": ["measure_file", "measure_or_failure", "measure_scans"],
     "watcher.measure.readers": ["open_run"],
     "watcher.rules": ["History", "judge"],
     "watcher.notify": ["Notifier", "build_digest"],

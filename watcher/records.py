@@ -245,6 +245,20 @@ class Verdict:
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
+class ReadFailure:
+    """Why a run file gave no metrics (``watcher.measure.run.measure_or_failure``).
+
+    Attributes:
+        kind: short machine-readable reason (``truncated``, ``corrupt``, ``memory``, ...; the
+            kinds of ``watcher.errors.ReadError``).
+        reason: one line for a person: no traceback, no directory names, at most 240 characters.
+    """
+
+    kind: str
+    reason: str
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
 class Judgement:
     """What the rules made of one run's metrics (``watcher.rules.judge``), for the Verdict.
 

@@ -322,3 +322,23 @@ def test_measure_file_refuses_gz_damaged_after_the_spectra(
         measure_file(path, DEMO)
     assert reason in info.value.reason
     assert info.value.kind == "truncated"
+
+
+def test_every_failure_becomes_one_read_failure(tmp_path: Path) -> None:
+    """The one mapping the measuring child and ``check`` share: a truncated file is a
+    ``truncated`` failure; an empty file ``empty``; each reason is one line without the folder."""
+    from watcher.measure.run import measure_or_failure
+    from watcher.records import ReadFailure
+
+    good = SHARED_REFERENCE / "mzml" / "tiny.pwiz.1.1.mzML"
+    cut = tmp_path / "QC_cut.mzML"
+    cut.write_bytes(good.read_bytes()[: good.stat().st_size // 2])
+    empty = tmp_path / "QC_empty.mzML"
+    empty.write_bytes(b"")
+    for path, kind in ((cut, "truncated"), (empty, "empty")):
+        outcome = measure_or_failure(path, Config())
+        assert isinstance(outcome, ReadFailure), path
+        assert outcome.kind == kind
+        assert "\n" not in outcome.reason
+        assert str(tmp_path) not in outcome.reason
+    assert not isinstance(measure_or_failure(good, Config()), ReadFailure)

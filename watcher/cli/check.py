@@ -24,10 +24,7 @@ from typing import Any, TextIO
 
 from watcher.cli.exitcodes import ExitCode
 from watcher.config import Config
-from watcher.errors import ConfigError, ReadError
-from watcher.records import RunFile, RunMetrics, Status, Verdict
-
-_MAX_ERROR_CHARS = 240
+from watcher.records import ReadFailure, RunFile, RunMetrics, Status, Verdict
 
 Progress = Callable[[int, int], None]
 
@@ -92,7 +89,7 @@ def check_file(
     Raises:
         ConfigError: an ion of the config cannot be resolved (a config problem, not the file's).
     """
-    from watcher.measure.run import measure_file
+    from watcher.measure.run import measure_or_failure
     from watcher.rules.judge import judge
 
     judged_at = now or datetime.now(tz=UTC)
@@ -107,18 +104,10 @@ def check_file(
     if not stat.S_ISREG(st.st_mode) and not stat.S_ISDIR(st.st_mode):
         # A FIFO or device would block the read forever (or never end): refuse it by its type.
         return _unreadable(run_file, "cannot read: not a regular file", "io", judged_at)
-    try:
-        metrics = measure_file(path, config, progress=progress)
-    except ReadError as exc:
-        return _unreadable(run_file, _one_line(exc.reason, path), exc.kind, judged_at)
-    except ConfigError:
-        raise
-    except MemoryError:
-        return _unreadable(run_file, "out of memory while reading", "memory", judged_at)
-    except Exception as exc:  # a reader bug must not stop the other files of the call
-        return _unreadable(
-            run_file, _one_line(f"{type(exc).__name__}: {exc}", path), "corrupt", judged_at
-        )
+    outcome = measure_or_failure(path, config, progress=progress)
+    if isinstance(outcome, ReadFailure):
+        return _unreadable(run_file, outcome.reason, outcome.kind, judged_at)
+    metrics = outcome
     acquired_at = metrics.acquired_at or datetime.fromtimestamp(st.st_mtime, tz=UTC)
     judgement = judge(
         metrics,
@@ -206,15 +195,6 @@ def _unreadable(run_file: RunFile, reason: str, kind: str, judged_at: datetime) 
         error_kind=kind,
         judged_at=judged_at,
     )
-
-
-def _one_line(text: str, path: Path) -> str:
-    """One line, no directory names (they may be private), at most ~240 characters."""
-    for folder in {str(path.parent.resolve()), str(path.parent)}:
-        if folder not in ("", "."):
-            text = text.replace(folder + os.sep, "")
-    line = " ".join(text.split())
-    return line if len(line) <= _MAX_ERROR_CHARS else line[: _MAX_ERROR_CHARS - 3] + "..."
 
 
 def _write_mzqc(path: Path, verdicts: Sequence[Verdict]) -> None:

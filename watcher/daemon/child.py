@@ -62,16 +62,16 @@ def _no_limit() -> None:
 def measure(config: Any, path: Path, memory_mb: int) -> tuple[Any, ...]:
     """Measure one file; never raises (every failure becomes an ``("error", kind, reason)``)."""
     try:
-        from watcher.errors import ReadError
-        from watcher.measure.run import measure_file
+        from watcher.measure.run import measure_or_failure
+        from watcher.records import ReadFailure
 
-        try:
-            return ("ok", measure_file(path, config, progress=None))
-        except ReadError as exc:
-            return ("error", exc.kind, exc.reason)
-    except MemoryError:
+        outcome = measure_or_failure(path, config, memory_limit_mb=memory_mb)
+        if isinstance(outcome, ReadFailure):
+            return ("error", outcome.kind, outcome.reason)
+        return ("ok", outcome)
+    except MemoryError:  # the import itself, or building the failure, ran out
         return ("error", "memory", f"out of memory (limit {memory_mb} MB)")
-    except Exception as exc:  # any reader failure must become a verdict, not a crash
+    except Exception as exc:  # a bad config here must become a verdict, not a dead child
         first_line = (str(exc).splitlines() or [""])[0][:200]
         return ("error", "corrupt", f"{type(exc).__name__}: {first_line}")
 

@@ -14,9 +14,10 @@ if TYPE_CHECKING:
 
 _ENTRY_POINTS = {
     "measure_file": "watcher.measure.run",
+    "measure_or_failure": "watcher.measure.run",
     "measure_scans": "watcher.measure.run",
 }
 
-__all__ = ["measure_file", "measure_scans"]
+__all__ = ["measure_file", "measure_or_failure", "measure_scans"]
 
 __getattr__ = entry_point_getattr(__name__, _ENTRY_POINTS)

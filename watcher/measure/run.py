@@ -6,6 +6,7 @@ check, reader) and turns a file without spectra into a ReadError.
 
 from __future__ import annotations
 
+import os
 from collections import Counter
 from collections.abc import Callable, Iterable
 from datetime import UTC, datetime
@@ -19,7 +20,13 @@ from watcher.measure.peaks import looks_profile
 from watcher.measure.scan import RunHeader, Scan
 from watcher.measure.signal import SignalTrace
 from watcher.measure.xic import XicTrace, absent
-from watcher.records import CalibrantDrift, ExpectedIonResult, RunMetrics, SignalMetrics
+from watcher.records import (
+    CalibrantDrift,
+    ExpectedIonResult,
+    ReadFailure,
+    RunMetrics,
+    SignalMetrics,
+)
 
 NO_MS1_NOTE = "no MS1 spectra: calibrant and expected-ion metrics not available"
 NO_ARRAYS_NOTE = (
@@ -101,6 +108,50 @@ def measure_scans(
         expected_ions=ions,
         notes=tuple(notes),
     )
+
+
+MAX_REASON_CHARS = 240
+
+
+def measure_or_failure(
+    path: Path,
+    config: Config,
+    *,
+    progress: Callable[[int, int], None] | None = None,
+    memory_limit_mb: int | None = None,
+) -> RunMetrics | ReadFailure:
+    """``measure_file`` for callers that must go on with the next file: the one mapping of every
+    way a file can fail into a ReadFailure (the daemon's measuring child and ``check`` share it).
+
+    A reader bug (any other exception) is the file's failure too, kind ``corrupt``: one odd
+    file must not stop a night's queue. Out of memory is kind ``memory``; ``memory_limit_mb``
+    names the limit the measuring process ran under, if any.
+
+    Raises:
+        ConfigError: an ion in the config cannot be resolved (the config is wrong, not the file).
+    """
+    try:
+        return measure_file(path, config, progress=progress)
+    except ReadError as exc:
+        return ReadFailure(kind=exc.kind, reason=one_line(exc.reason, path))
+    except ConfigError:
+        raise
+    except MemoryError:
+        limit = (
+            f" (limit {memory_limit_mb} MB)" if memory_limit_mb is not None else " while reading"
+        )
+        return ReadFailure(kind="memory", reason=f"out of memory{limit}")
+    except Exception as exc:
+        return ReadFailure(kind="corrupt", reason=one_line(f"{type(exc).__name__}: {exc}", path))
+
+
+def one_line(text: str, path: Path) -> str:
+    """One line, no directory names (they may be private), at most ``MAX_REASON_CHARS``."""
+    for folder in {str(path.parent.resolve()), str(path.parent)}:
+        if folder not in ("", "."):
+            text = text.replace(folder + os.sep, "")
+    line = " ".join(text.split())
+    return line if len(line) <= MAX_REASON_CHARS else line[: MAX_REASON_CHARS - 3] + "..."
 
 
 def measure_file(
