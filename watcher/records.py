@@ -275,6 +275,16 @@ class Judgement:
     evaluated: frozenset[tuple[str, str]]
 
 
+class DaemonEvent(StrEnum):
+    """Daemon events: health-log ``kind`` values, and the ones the notifier turns into messages."""
+
+    STARTED = "daemon.started"
+    STOPPED = "daemon.stopped"
+    CONFIG_REJECTED = "config.rejected"  # a reload that failed validation: a warning message
+    NORUN_MISSED = "heartbeat.missed"  # no run arrived in time: raises the no-run alert
+    NORUN_RESUMED = "heartbeat.resumed"  # runs arrive again: clears it
+
+
 class AlertAction(StrEnum):
     """What the alert state machine decided for one alert key."""
 

@@ -12,7 +12,7 @@ from tests.notify.conftest import Clock, Receiver, make_finding, make_verdict
 from watcher.config import Alerts, Channel, Check, Condition, Config, Instrument
 from watcher.errors import DeliveryError
 from watcher.notify.notifier import Notifier
-from watcher.records import Severity, Status
+from watcher.records import DaemonEvent, Severity, Status
 from watcher.store import db, outbox
 
 FAST = {"backoff_base_s": 0.05, "backoff_max_s": 0.2, "poll_s": 0.02}
@@ -243,13 +243,13 @@ def test_heartbeat_missed_and_resumed(harness: Harness, receiver: Receiver) -> N
     """heartbeat.missed raises one alert, a second missed adds nothing, resumed clears it."""
     n = harness.notifier
     with db.write(harness.conn):
-        n.record_event(harness.conn, "heartbeat.missed", harness.clock(), since="01:00")
+        n.record_event(harness.conn, DaemonEvent.NORUN_MISSED, harness.clock(), since="01:00")
     harness.clock.advance(60)
     with db.write(harness.conn):
-        n.record_event(harness.conn, "heartbeat.missed", harness.clock(), since="01:00")
+        n.record_event(harness.conn, DaemonEvent.NORUN_MISSED, harness.clock(), since="01:00")
     harness.clock.advance(60)
     with db.write(harness.conn):
-        n.record_event(harness.conn, "heartbeat.resumed", harness.clock())
+        n.record_event(harness.conn, DaemonEvent.NORUN_RESUMED, harness.clock())
     bodies = receiver.wait_for(2)
     assert [b["title"] for b in bodies] == [
         "Kestrel-2 Q-TOF: NO RUNS",

@@ -26,14 +26,14 @@ import structlog
 
 from watcher import config as config_mod
 from watcher.config import Config, state_dir_of
-from watcher.daemon import logs, sdnotify
-from watcher.daemon import norun_alert as heartbeat
+from watcher.daemon import logs, norun_alert, sdnotify
 from watcher.daemon.pipeline import Pipeline, time_limit_s
 from watcher.errors import ConfigError, ConfigProblem, IonwardenError, StoreError
 from watcher.intake import watch
 from watcher.intake.pending import Settled, Settler
 from watcher.intake.readiness import FileStat
 from watcher.notify.notifier import Notifier
+from watcher.records import DaemonEvent
 from watcher.store import db, jobs
 
 log = structlog.get_logger("watcher.daemon")
@@ -70,8 +70,13 @@ class Daemon:
         self._started_s = 0.0
         self._last_arrival_s = 0.0
         self.conn: sqlite3.Connection | None = None
-        self.notifier: Any = None
+        self.notifier: Notifier | None = None
         self.pipeline: Pipeline | None = None
+
+    def _notifier(self) -> Notifier:
+        if self.notifier is None:
+            raise StoreError("the daemon is not started (call start() first)")
+        return self.notifier
 
     def _conn(self) -> sqlite3.Connection:
         if self.conn is None:
@@ -100,18 +105,14 @@ class Daemon:
                     folder=str(folder),
                     advice="inotify sees nothing on network shares; set watch.polling: true",
                 )
-        self.notifier = self._make_notifier(self.config)
+        notifier = self.notifier = self._make_notifier(self.config)
         with db.write(self.conn):
             requeued = jobs.requeue_interrupted(self.conn, now_s)
-            if self.notifier is not None:
-                self.notifier.record_event(self.conn, "daemon.started", now_s)
-        if self.notifier is not None:
-            self.notifier.write_event("daemon.started")
-            self.notifier.start_delivery()
+            notifier.record_event(self.conn, DaemonEvent.STARTED, now_s)
+        notifier.write_event(DaemonEvent.STARTED)
+        notifier.start_delivery()
         self._last_arrival_s = max(now_s, jobs.last_arrival_s(self.conn) or 0.0)
-        self.pipeline = Pipeline(
-            self.config, worker_conn, self.notifier, self.stop_event, self.clock
-        )
+        self.pipeline = Pipeline(self.config, worker_conn, notifier, self.stop_event, self.clock)
         self.pipeline.resume_health_lines()
         self._observer, self._overflow = watch.start_watching(
             self.config.watch, self.hints, self.rescan
@@ -163,8 +164,8 @@ class Daemon:
             self.pipeline.close()
         if self.notifier is not None and self.conn is not None:
             with db.write(self.conn):
-                self.notifier.record_event(self.conn, "daemon.stopped", self.clock())
-            self.notifier.write_event("daemon.stopped")
+                self.notifier.record_event(self.conn, DaemonEvent.STOPPED, self.clock())
+            self.notifier.write_event(DaemonEvent.STOPPED)
             self.notifier.stop_delivery(2.0)
         for conn in (self.conn, self.pipeline.conn if self.pipeline else None):
             if conn is not None:
@@ -178,7 +179,7 @@ class Daemon:
     # -- main loop --------------------------------------------------------------------------------
 
     def step(self) -> None:
-        """One pass of the main loop: reload, scans, hints, settle checks, heartbeat, notifier."""
+        """One pass of the main loop: reload, scans, hints, settling, no-run alert, notifier."""
         self._conn()  # raises before start()
         now_s = self.clock()
         if self._reload_requested.is_set():
@@ -191,7 +192,7 @@ class Daemon:
             self._full_scan("interval")
         self._drain_hints(now_s)
         self._settle_due(now_s)
-        self._heartbeat(now_s)
+        self._check_norun(now_s)
         if self.notifier is not None and now_s - self._last_notify_tick >= NOTIFY_TICK_EVERY_S:
             self._last_notify_tick = now_s
             self.notifier.tick(self._conn(), now_s)
@@ -267,16 +268,16 @@ class Daemon:
                     added.append((job_id, item.path))
             if added:
                 self._last_arrival_s = now_s
-                resumed = heartbeat.resume(self._conn(), self.notifier, now_s)
+                resumed = norun_alert.resume(self._conn(), self._notifier(), now_s)
         for job_id, path in added:
             log.info("run.queued", file=str(path), job_id=job_id)
         if resumed:
-            heartbeat.announce_resumed(self.notifier)
+            norun_alert.announce_resumed(self._notifier())
         if added:
             self.wake_worker.set()
 
-    def _heartbeat(self, now_s: float) -> None:
-        heartbeat.check(self._conn(), self.notifier, self.config, now_s, self._last_arrival_s)
+    def _check_norun(self, now_s: float) -> None:
+        norun_alert.check(self._conn(), self._notifier(), self.config, now_s, self._last_arrival_s)
 
     def _status(self) -> None:
         counts = jobs.counts(self._conn())
@@ -299,22 +300,20 @@ class Daemon:
         except IonwardenError as exc:
             text = str(exc).replace("\n", "; ")
             log.error("config.rejected", config=str(source), error=text)
-            if self.notifier is not None:
-                with db.write(self._conn()):
-                    self.notifier.record_event(
-                        self._conn(), "config.rejected", self.clock(), error=text
-                    )
-                self.notifier.write_event("config.rejected", error=text)
+            current = self._notifier()
+            with db.write(self._conn()):
+                current.record_event(
+                    self._conn(), DaemonEvent.CONFIG_REJECTED, self.clock(), error=text
+                )
+            current.write_event(DaemonEvent.CONFIG_REJECTED, error=text)
             sdnotify.notify("READY=1")
             return
         old = self.config
         self.config = new
         self.settler.watch = new.watch
-        if self.notifier is not None:
-            self.notifier.stop_delivery(2.0)
+        self._notifier().stop_delivery(2.0)
         self.notifier = notifier
-        if notifier is not None:
-            notifier.start_delivery()
+        notifier.start_delivery()
         if self.pipeline is not None:
             self.pipeline.reconfigure(new, notifier)
         if new.watch != old.watch and self._observer is not None and self._overflow is not None:

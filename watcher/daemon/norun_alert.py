@@ -9,17 +9,21 @@ from __future__ import annotations
 
 import sqlite3
 from datetime import datetime, time
-from typing import Any
+from typing import TYPE_CHECKING
 from zoneinfo import ZoneInfo
 
 import structlog
 
 from watcher.config import Config
+from watcher.records import DaemonEvent
 from watcher.store import db, jobs
+
+if TYPE_CHECKING:
+    from watcher.notify.notifier import Notifier
 
 log = structlog.get_logger("watcher.daemon")
 
-STATE_KEY = "heartbeat.missed"
+STATE_KEY = DaemonEvent.NORUN_MISSED.value
 
 
 def in_active_hours(now_s: float, tz_name: str, hours: tuple[time, time] | None) -> bool:
@@ -36,7 +40,11 @@ def in_active_hours(now_s: float, tz_name: str, hours: tuple[time, time] | None)
 
 
 def check(
-    conn: sqlite3.Connection, notifier: Any, config: Config, now_s: float, last_arrival_s: float
+    conn: sqlite3.Connection,
+    notifier: Notifier,
+    config: Config,
+    now_s: float,
+    last_arrival_s: float,
 ) -> None:
     """Raise the "missed" event once when the queue has been silent too long in active hours."""
     every_s = config.alerts.expect_run_every_s
@@ -49,14 +57,12 @@ def check(
     silent_s = round(now_s - last_arrival_s)
     with db.write(conn):
         jobs.set_state(conn, STATE_KEY, "1")
-        if notifier is not None:
-            notifier.record_event(conn, "heartbeat.missed", now_s, silent_s=silent_s)
+        notifier.record_event(conn, DaemonEvent.NORUN_MISSED, now_s, silent_s=silent_s)
     log.warning("heartbeat.missed", silent_s=silent_s, expected_every_s=every_s)
-    if notifier is not None:
-        notifier.write_event("heartbeat.missed", silent_s=silent_s)
+    notifier.write_event(DaemonEvent.NORUN_MISSED, silent_s=silent_s)
 
 
-def resume(conn: sqlite3.Connection, notifier: Any, now_s: float) -> bool:
+def resume(conn: sqlite3.Connection, notifier: Notifier, now_s: float) -> bool:
     """Clear a raised "missed" state; call inside the write that queues the new runs.
 
     Returns whether it was raised, so that the caller announces the resumption after commit.
@@ -64,13 +70,11 @@ def resume(conn: sqlite3.Connection, notifier: Any, now_s: float) -> bool:
     if jobs.get_state(conn, STATE_KEY) != "1":
         return False
     jobs.set_state(conn, STATE_KEY, "0")
-    if notifier is not None:
-        notifier.record_event(conn, "heartbeat.resumed", now_s)
+    notifier.record_event(conn, DaemonEvent.NORUN_RESUMED, now_s)
     return True
 
 
-def announce_resumed(notifier: Any) -> None:
+def announce_resumed(notifier: Notifier) -> None:
     """Log and write the resumption (after the transaction of ``resume`` committed)."""
     log.info("heartbeat.resumed")
-    if notifier is not None:
-        notifier.write_event("heartbeat.resumed")
+    notifier.write_event(DaemonEvent.NORUN_RESUMED)

@@ -21,7 +21,7 @@ from watcher.config import Channel, Config
 from watcher.notify import alert_state as machine
 from watcher.notify.alert_text import Item, Text, compose
 from watcher.notify.healthlog import HealthLog
-from watcher.records import AlertAction, Finding, Severity, Status, Verdict
+from watcher.records import AlertAction, DaemonEvent, Finding, Severity, Status, Verdict
 from watcher.store import db, outbox
 
 log = structlog.get_logger("watcher.notify.notifier")
@@ -170,7 +170,7 @@ class Notifier:
                 self._enqueue(conn, channel, "alert", ref, now_s, text, items)
 
     def record_event(
-        self, conn: sqlite3.Connection, kind: str, now_s: float, **fields: object
+        self, conn: sqlite3.Connection, kind: DaemonEvent, now_s: float, **fields: object
     ) -> None:
         """Alerts from daemon events, inside the caller's write transaction.
 
@@ -179,11 +179,11 @@ class Notifier:
         (the caller writes them there with ``write_event``).
         """
         at = datetime.fromtimestamp(now_s, UTC)
-        if kind in ("heartbeat.missed", "heartbeat.resumed"):
+        if kind in (DaemonEvent.NORUN_MISSED, DaemonEvent.NORUN_RESUMED):
             finding = heartbeat_finding(fields)
             key = (finding.check, finding.subject)
             for channel in self.config.alerts.channels:
-                wanted = {key: finding} if kind == "heartbeat.missed" else {}
+                wanted = {key: finding} if kind == DaemonEvent.NORUN_MISSED else {}
                 if wanted and not machine.passes(channel, finding):
                     continue
                 items = self._step_channel(
@@ -201,11 +201,11 @@ class Notifier:
                         run_file=None,
                         at=at,
                         timezone=self.config.instrument.timezone,
-                        status="no runs" if kind == "heartbeat.missed" else "runs again",
+                        status="no runs" if kind == DaemonEvent.NORUN_MISSED else "runs again",
                         items=items,
                     )
                     self._enqueue(conn, channel, "event", f"{kind}:{now_s:.3f}", now_s, text, items)
-        elif kind == "config.rejected":
+        elif kind == DaemonEvent.CONFIG_REJECTED:
             problem = str(fields.get("error") or fields.get("problems") or "see the daemon log")
             title = f"{self.config.instrument.name}: config reload rejected"
             body = f"The new config was not loaded; the old one stays in force.\n{problem}"
@@ -230,7 +230,7 @@ class Notifier:
         self.health.write_run(verdict, run_id)
         self.wake()
 
-    def write_event(self, kind: str, **fields: object) -> None:
+    def write_event(self, kind: DaemonEvent, **fields: object) -> None:
         """One daemon event in the health log."""
         self.health.write_event(kind, **fields)
 
