@@ -29,7 +29,13 @@ from watcher.config import Config, state_dir_of
 from watcher.daemon import logs, sdnotify
 from watcher.daemon import norun_alert as heartbeat
 from watcher.daemon.pipeline import Pipeline, time_limit_s
-from watcher.errors import ConfigError, ConfigProblem, IonwardenError, StoreError
+from watcher.errors import (
+    ConfigError,
+    ConfigProblem,
+    IonwardenError,
+    StoreError,
+    StoreTooNewError,
+)
 from watcher.intake import watch
 from watcher.intake.pending import Settled, Settler
 from watcher.intake.readiness import FileStat
@@ -360,7 +366,8 @@ class Daemon:
 
 
 def main(args: argparse.Namespace) -> int:
-    """``ionwarden run -c CONFIG``: 0 after SIGTERM/SIGINT, 2 bad config, 3 unusable store."""
+    """``ionwarden run -c CONFIG``: 0 after SIGTERM/SIGINT, 2 bad config or a store written by a
+    newer version, 3 unusable store."""
     config = config_mod.load(Path(args.config))  # ConfigError -> exit 2 in cli.main
     if not config.watch.folders:
         # A daemon that watches nothing would look healthy to systemd while missing every run.
@@ -394,7 +401,7 @@ def main(args: argparse.Namespace) -> int:
     signal.signal(signal.SIGHUP, on_hup)
     try:
         daemon.start()
-    except (StoreError, ConfigError) as exc:
+    except (StoreError, StoreTooNewError, ConfigError) as exc:
         log.error("daemon.failed", error=str(exc))
         raise
     return daemon.run()
