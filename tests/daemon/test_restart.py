@@ -4,41 +4,11 @@ from __future__ import annotations
 
 import json
 from pathlib import Path
-from typing import Any
 
 import synth
+from tests.helpers.daemon_lab import run_lines, write_config
 from watcher import config as config_mod
 from watcher.daemon.main import Daemon
-
-
-def write_config(root: Path, **overrides: Any) -> Path:
-    """A JSON (hence YAML) config watching ``root/exports`` with its state in ``root/state``."""
-    (root / "exports").mkdir(exist_ok=True)
-    cfg: dict[str, Any] = {
-        "instrument": {"name": "Kestrel-2 Q-TOF", "timezone": "UTC"},
-        "watch": {"folders": [str(root / "exports")], "settle_s": 0.2, "rescan_interval_s": 600},
-        "state_dir": str(root / "state"),
-        "calibrants": [{"name": "siloxane-445", "mz": 445.120025, "search_ppm": 30}],
-        "checks": [
-            {
-                "name": "calibration drift",
-                "metric": "calibrant.*.median_ppm",
-                "warning": {"outside": [-3, 3]},
-            }
-        ],
-    }
-    cfg.update(overrides)
-    path = root / "lab.yaml"
-    path.write_text(json.dumps(cfg, indent=1))
-    return path
-
-
-def run_lines(health_dir: Path) -> list[str]:
-    """The raw text of every run record in the health log, oldest file first."""
-    out: list[str] = []
-    for path in sorted(health_dir.glob("health-*.jsonl")):
-        out += [line for line in path.read_text().splitlines() if '"type": "run"' in line]
-    return out
 
 
 def test_health_line_replayed_after_a_restart_is_the_same_line(tmp_path: Path) -> None:
