@@ -10,6 +10,7 @@ parses, hashes or sends anything.
 from __future__ import annotations
 
 import sqlite3
+from collections.abc import Sequence
 from dataclasses import dataclass
 from enum import StrEnum
 from pathlib import Path
@@ -193,6 +194,37 @@ def recent_judged(conn: sqlite3.Connection, limit: int = 3) -> list[int]:
         (limit,),
     ).fetchall()
     return [int(r[0]) for r in rows]
+
+
+def finished_before(conn: sqlite3.Connection, before_s: float) -> list[Job]:
+    """Jobs ``done`` or ``failed`` whose last change is older than ``before_s``, oldest first
+    (the candidates for pruning; read by the index on ``updated_s`` of schema version 2)."""
+    rows = conn.execute(
+        f"SELECT {_COLUMNS} FROM jobs WHERE updated_s < ?"  # noqa: S608 - constant columns
+        " AND state IN ('done', 'failed') ORDER BY updated_s, id",
+        (before_s,),
+    ).fetchall()
+    return [_job(row) for row in rows]
+
+
+def delete(conn: sqlite3.Connection, job_ids: Sequence[int]) -> int:
+    """Delete these job rows, keeping any that a remaining row names as ``duplicate_of``.
+
+    A kept duplicate still points at its original (the foreign key), and deleting both at once
+    is fine. Returns how many rows went. The runs they judged stay in the history.
+    """
+    if not job_ids:
+        return 0
+    conn.execute("CREATE TEMP TABLE IF NOT EXISTS doomed (id INTEGER PRIMARY KEY)")
+    conn.execute("DELETE FROM doomed")
+    conn.executemany("INSERT OR IGNORE INTO doomed (id) VALUES (?)", [(i,) for i in job_ids])
+    cur = conn.execute(
+        "DELETE FROM jobs WHERE id IN (SELECT id FROM doomed) AND id NOT IN ("
+        " SELECT duplicate_of FROM jobs WHERE duplicate_of IS NOT NULL"
+        " AND id NOT IN (SELECT id FROM doomed))"
+    )
+    conn.execute("DELETE FROM doomed")
+    return cur.rowcount
 
 
 def get(conn: sqlite3.Connection, job_id: int) -> Job | None:
