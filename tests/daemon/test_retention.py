@@ -5,6 +5,7 @@ stay."""
 from __future__ import annotations
 
 import os
+import sqlite3
 import time
 from pathlib import Path
 
@@ -20,7 +21,7 @@ DAY_S = 86400.0
 
 
 def _finished(
-    conn: db.sqlite3.Connection,
+    conn: sqlite3.Connection,
     path: Path,
     *,
     at_s: float,
@@ -39,7 +40,7 @@ def _finished(
     return job_id
 
 
-def _ids(conn: db.sqlite3.Connection) -> set[int]:
+def _ids(conn: sqlite3.Connection) -> set[int]:
     return {r[0] for r in conn.execute("SELECT id FROM jobs")}
 
 

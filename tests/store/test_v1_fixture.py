@@ -4,6 +4,7 @@ by the current code: upgraded to the current version with every row intact."""
 from __future__ import annotations
 
 import shutil
+import sqlite3
 from pathlib import Path
 
 from watcher.records import Status
@@ -18,7 +19,7 @@ def copy_fixture(state_dir: Path) -> Path:
 
 
 def test_the_fixture_is_a_pre_versioning_store() -> None:
-    raw = db.sqlite3.connect(f"file:{FIXTURE}?mode=ro", uri=True)
+    raw = sqlite3.connect(f"file:{FIXTURE}?mode=ro", uri=True)
     assert raw.execute("PRAGMA user_version").fetchone()[0] == 0
     assert raw.execute("SELECT count(*) FROM jobs WHERE verdict IS NOT NULL").fetchone()[0] == 3
     raw.close()
