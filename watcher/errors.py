@@ -6,6 +6,8 @@ Tree::
     ├── ConfigError     a config file is wrong; carries every problem with file, line and key path
     ├── ReadError       a run file cannot be measured; carries the file and a one-line reason
     ├── StoreError      the state folder or database cannot be used (permissions, network mount)
+    ├── StoreTooNewError  the database was written by a newer ionwarden (exit 2: a restart of
+    │                   this version cannot fix it)
     └── DeliveryError   an alert channel cannot be set up (apprise refused the URL)
 """
 
@@ -68,6 +70,30 @@ class ReadError(IonwardenError):
 
 class StoreError(IonwardenError):
     """The state folder or its SQLite database cannot be used."""
+
+
+class StoreTooNewError(IonwardenError):
+    """The state database carries a schema version newer than this ionwarden knows.
+
+    Not a ``StoreError``: a store error may be cured by a restart (exit 3), this one only by
+    installing the newer version again, so the commands exit 2 and systemd does not restart.
+
+    Attributes:
+        path: the database file.
+        found_version: its ``PRAGMA user_version``.
+        supported_version: the newest schema version this ionwarden knows.
+    """
+
+    def __init__(self, path: Path, found_version: int, supported_version: int) -> None:
+        self.path = path
+        self.found_version = found_version
+        self.supported_version = supported_version
+        super().__init__(
+            f"state database {path} has schema version {found_version}, newer than version "
+            f"{supported_version} that this ionwarden knows: it was written by a newer ionwarden "
+            "(downgrades are not supported; install the newer version again, or point state_dir "
+            "at another folder)"
+        )
 
 
 class DeliveryError(IonwardenError):

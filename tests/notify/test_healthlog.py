@@ -8,6 +8,17 @@ from pathlib import Path
 
 from tests.notify.conftest import Clock, make_finding, make_verdict
 from watcher.notify.healthlog import HealthLog, read_day
+from watcher.records import (
+    CalibrantDrift,
+    Finding,
+    RunFile,
+    RunMetrics,
+    Severity,
+    SignalMetrics,
+    Status,
+    Verdict,
+)
+from watcher.store import db, history
 
 
 def test_run_record_is_written_once_per_run_id(tmp_path: Path, clock: Clock) -> None:
@@ -55,3 +66,68 @@ def test_prune_removes_files_older_than_keep_days(tmp_path: Path, clock: Clock) 
         "health-2026-03-10.jsonl",
         "notes.txt",
     ]
+
+
+def test_a_run_read_back_from_the_store_gives_the_same_line(tmp_path: Path, clock: Clock) -> None:
+    """The start-up replay rebuilds a run's line from the runs table: byte for byte the line the
+    fresh verdict gives, NaN and infinity included (both null, as the store keeps them)."""
+    at = datetime.fromtimestamp(clock(), UTC).replace(microsecond=123456)
+    signal = SignalMetrics(
+        ms1_count=120,
+        ms2_count=0,
+        rt_start_s=0.5,
+        rt_end_s=600.25,
+        tic_median=float("nan"),
+        bpi_median=float("inf"),
+        dropouts=2,
+        longest_dropout_s=None,
+    )
+    drift = CalibrantDrift(
+        name="siloxane-445",
+        mz=445.120025,
+        median_ppm=3.7000000000000006,
+        mad_ppm=0.1,
+        p05_ppm=None,
+        p95_ppm=4.2,
+        found_fraction=0.95,
+        median_intensity=1.5e6,
+        slope_ppm_per_h=-0.3333333333333333,
+    )
+    finding = Finding(
+        check="calibration drift",
+        severity=Severity.WARNING,
+        metric="calibrant.siloxane-445.median_ppm",
+        subject="calibrant.siloxane-445.median_ppm",
+        message="drift 3.7 ppm",
+        value=3.7000000000000006,
+        limit="outside [-3, 3]",
+        forecast_h=12.5,
+    )
+    metrics = RunMetrics(
+        file="QC_001.mzML", format="mzML", acquired_at=at, signal=signal, calibrants=(drift,)
+    )
+    run_file = RunFile(path=tmp_path / "exports" / "QC_001.mzML", size=10, mtime_ns=1, sha256="ab")
+    verdict = Verdict(
+        run_file=run_file,
+        status=Status.WARNING,
+        metrics=metrics,
+        findings=(finding,),
+        judged_at=at,
+    )
+    conn = db.connect(tmp_path / "state")
+    with db.write(conn):
+        run_id = history.record_verdict(conn, verdict)
+    row = history.get_run(conn, run_id)
+    conn.close()
+    assert row is not None
+    fresh, stored = tmp_path / "fresh", tmp_path / "stored"
+    assert HealthLog(fresh, clock=clock).write_run(verdict, run_id)
+    assert HealthLog(stored, clock=clock).write_stored_run(row)
+    day = "health-2026-03-10.jsonl"
+    line = (fresh / day).read_text()
+    assert (stored / day).read_text() == line
+    record = json.loads(line)
+    assert record["metrics"]["signal.tic_median"] is None
+    assert record["metrics"]["signal.bpi_median"] is None
+    assert record["metrics"]["signal.ms1_count"] == 120
+    assert record["time"] == "2026-03-10T02:00:00.123456+00:00"

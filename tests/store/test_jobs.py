@@ -54,8 +54,8 @@ def test_claim_oldest_first_and_requeue_after_crash(tmp_path):
     c2.close()
 
 
-def test_finish_keeps_verdict_and_hash(conn):
-    """A finished job stores run id, hash and verdict; the newest verdicts come first."""
+def test_finish_keeps_run_id_and_hash(conn):
+    """A finished job stores run id and hash; the newest judged runs come first."""
     with db.write(conn):
         for n, name in enumerate(["a.mzML", "b.mzML"]):
             job_id = jobs.enqueue(conn, Path("/x") / name, 1, 1, float(n))
@@ -68,10 +68,9 @@ def test_finish_keeps_verdict_and_hash(conn):
                 state=jobs.JobState.DONE,
                 outcome="ok",
                 run_id=7 + n,
-                verdict_blob=name.encode(),
                 sha256=f"h{n}",
             )
-    assert jobs.recent_verdicts(conn) == [(8, b"b.mzML"), (7, b"a.mzML")]
+    assert jobs.recent_judged(conn) == [8, 7]
     job = jobs.get(conn, 1)
     assert job is not None
     assert (job.sha256, job.state, job.run_id) == ("h0", jobs.JobState.DONE, 7)

@@ -16,7 +16,8 @@ class ExitCode(IntEnum):
     """``check``: a run is ``warning``, ``critical`` or ``unreadable``; ``status``: open alerts or
     undelivered messages."""
     USAGE = 2
-    """Usage or configuration error: a restart cannot fix it."""
+    """Usage or configuration error, or a state database written by a newer version: a restart
+    cannot fix it."""
     RUNTIME = 3
     """Runtime failure (state folder unusable, no state yet, alert channel refused, ...)."""
     INTERRUPTED = 130

@@ -4,7 +4,8 @@ Exit codes (every command):
     0    all good (for ``check``: every run ``ok`` or ``notice``)
     1    ``check``: at least one run is ``warning``, ``critical`` or ``unreadable``;
          ``status``: the daemon has open alerts or undelivered messages
-    2    usage or configuration error: a restart cannot fix it (systemd RestartPreventExitStatus=2)
+    2    usage or configuration error, or a state database written by a newer ionwarden: a
+         restart cannot fix it (systemd RestartPreventExitStatus=2)
     3    runtime failure (state folder unusable, alert channel refused, ...)
     130  interrupted (Ctrl-C)
 """
@@ -18,7 +19,7 @@ from collections.abc import Sequence
 
 from watcher import __version__
 from watcher.cli.exitcodes import ExitCode
-from watcher.errors import ConfigError, IonwardenError
+from watcher.errors import ConfigError, IonwardenError, StoreTooNewError
 
 # command -> module whose ``main(args) -> int`` runs it; imported lazily so that
 # ``ionwarden validate`` does not pay for numpy, pyteomics or matplotlib.
@@ -94,6 +95,10 @@ def main(argv: Sequence[str] | None = None) -> int:
         return code
     except ConfigError as exc:
         print(str(exc), file=sys.stderr)
+        return ExitCode.USAGE
+    except StoreTooNewError as exc:
+        # Like a bad config, a restart of this version cannot cure it: systemd must not loop.
+        print(f"ionwarden: {exc}", file=sys.stderr)
         return ExitCode.USAGE
     except IonwardenError as exc:
         print(f"ionwarden: {exc}", file=sys.stderr)

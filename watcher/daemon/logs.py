@@ -34,6 +34,8 @@ EVENTS: frozenset[str] = frozenset(
         "config.reloaded",
         "config.rejected",
         "scan.completed",
+        "store.pruned",
+        "store.prune_skipped",
         "heartbeat.missed",
         "heartbeat.resumed",
         # notify

@@ -26,9 +26,15 @@ import structlog
 
 from watcher import config as config_mod
 from watcher.config import Config, state_dir_of
-from watcher.daemon import logs, norun_alert, sdnotify
+from watcher.daemon import logs, norun_alert, retention, sdnotify
 from watcher.daemon.pipeline import Pipeline, time_limit_s
-from watcher.errors import ConfigError, ConfigProblem, IonwardenError, StoreError
+from watcher.errors import (
+    ConfigError,
+    ConfigProblem,
+    IonwardenError,
+    StoreError,
+    StoreTooNewError,
+)
 from watcher.intake import watch
 from watcher.intake.pending import Settled, Settler
 from watcher.intake.readiness import FileStat
@@ -42,6 +48,7 @@ TICK_S = 0.1
 STATUS_EVERY_S = 2.0
 NOTIFY_TICK_EVERY_S = 1.0
 CHECKPOINT_EVERY_S = 3600.0
+PRUNE_EVERY_S = 86400.0  # store retention is in days: once at start-up, then daily
 
 
 class Daemon:
@@ -67,6 +74,7 @@ class Daemon:
         self._last_status = 0.0
         self._last_notify_tick = 0.0
         self._last_checkpoint = 0.0
+        self._last_prune_s: float | None = None
         self._started_s = 0.0
         self._last_arrival_s = 0.0
         self.conn: sqlite3.Connection | None = None
@@ -114,6 +122,7 @@ class Daemon:
         self._last_arrival_s = max(now_s, jobs.last_arrival_s(self.conn) or 0.0)
         self.pipeline = Pipeline(self.config, worker_conn, notifier, self.stop_event, self.clock)
         self.pipeline.resume_health_lines()
+        self._prune_store(now_s)
         self._observer, self._overflow = watch.start_watching(
             self.config.watch, self.hints, self.rescan
         )
@@ -199,6 +208,8 @@ class Daemon:
         if now_s - self._last_status >= STATUS_EVERY_S:
             self._last_status = now_s
             self._status()
+        if self._last_prune_s is None or now_s - self._last_prune_s >= PRUNE_EVERY_S:
+            self._prune_store(now_s)
         if now_s - self._last_checkpoint >= CHECKPOINT_EVERY_S and self._busy_since is None:
             self._last_checkpoint = now_s
             db.checkpoint(self._conn())
@@ -228,6 +239,16 @@ class Daemon:
                 return True
             time.sleep(TICK_S)
         return False
+
+    def _prune_store(self, now_s: float) -> None:
+        """Job rows past the health log's retention whose file is gone (``retention``)."""
+        self._last_prune_s = now_s
+        keep_days = self.config.health_log.keep_days
+        pruned = retention.prune_jobs(self._conn(), self.config.watch.folders, keep_days, now_s)
+        if pruned is None:
+            log.warning("store.prune_skipped", reason="a watched folder is missing or empty")
+        elif pruned:
+            log.info("store.pruned", jobs=pruned, keep_days=keep_days)
 
     def _full_scan(self, reason: str) -> None:
         now_s = self.clock()
@@ -359,7 +380,8 @@ class Daemon:
 
 
 def main(args: argparse.Namespace) -> int:
-    """``ionwarden run -c CONFIG``: 0 after SIGTERM/SIGINT, 2 bad config, 3 unusable store."""
+    """``ionwarden run -c CONFIG``: 0 after SIGTERM/SIGINT, 2 bad config or a store written by a
+    newer version, 3 unusable store."""
     config = config_mod.load(Path(args.config))  # ConfigError -> exit 2 in cli.main
     if not config.watch.folders:
         # A daemon that watches nothing would look healthy to systemd while missing every run.
@@ -393,7 +415,7 @@ def main(args: argparse.Namespace) -> int:
     signal.signal(signal.SIGHUP, on_hup)
     try:
         daemon.start()
-    except (StoreError, ConfigError) as exc:
+    except (StoreError, StoreTooNewError, ConfigError) as exc:
         log.error("daemon.failed", error=str(exc))
         raise
     return daemon.run()

@@ -30,7 +30,7 @@ import structlog
 from watcher.config import Config, Limits
 from watcher.daemon.child import HEADER, READY, frame
 from watcher.records import RunFile, RunMetrics, Status, Verdict
-from watcher.store import db, jobs
+from watcher.store import db, history, jobs
 
 log = structlog.get_logger("watcher.daemon.pipeline")
 
@@ -303,7 +303,6 @@ class Pipeline:
         run_file = RunFile(path=path, size=job.size, mtime_ns=job.mtime_ns, sha256=sha256)
         verdict, acquired_at = self._judge(config, run_file, result)
         now_s = self.clock()
-        blob = pickle.dumps(verdict)
         with db.write(self.conn):
             run_id = _record_verdict(self.conn, verdict, acquired_at)
             if self.notifier is not None:
@@ -315,11 +314,10 @@ class Pipeline:
                 state=jobs.JobState.DONE,
                 outcome=str(verdict.status),
                 run_id=run_id,
-                verdict_blob=blob,
                 sha256=sha256,
             )
         structlog.contextvars.bind_contextvars(run_id=run_id)
-        self.write_health(verdict, run_id)
+        self.write_health(run_id)
         self.last_file = path.name
         log.info(
             "run.judged",
@@ -329,10 +327,17 @@ class Pipeline:
         )
         return str(verdict.status)
 
-    def write_health(self, verdict: Verdict, run_id: int) -> None:
-        """The health-log line, after the commit; idempotent by run_id."""
-        if self.notifier is not None:
-            self.notifier.write_health(verdict, run_id)
+    def write_health(self, run_id: int) -> None:
+        """The health-log line, after the commit; idempotent by run_id.
+
+        Built from the run as stored, not from the verdict in memory, so that the line written
+        now and the one re-offered after a restart (``resume_health_lines``) are the same.
+        """
+        if self.notifier is None:
+            return
+        row = history.get_run(self.conn, run_id)
+        if row is not None:
+            self.notifier.write_stored_health(row)
 
     def _judge(
         self, config: Config, run_file: RunFile, result: ChildResult
@@ -350,7 +355,6 @@ class Pipeline:
             )
             return verdict, mtime_at
         from watcher.rules.judge import judge
-        from watcher.store.history import StoreHistory
 
         acquired_at = metrics.acquired_at or mtime_at
         judgement = judge(
@@ -358,7 +362,7 @@ class Pipeline:
             file_name=run_file.path.name,
             acquired_at=acquired_at,
             checks=config.checks,
-            history=StoreHistory(self.conn),
+            history=history.StoreHistory(self.conn),
         )
         verdict = Verdict(
             run_file=run_file,
@@ -384,15 +388,12 @@ class Pipeline:
 
     def resume_health_lines(self) -> int:
         """Start-up: re-offer the newest health lines (a kill may have cut one off)."""
-        rows = jobs.recent_verdicts(self.conn)
-        for run_id, blob in reversed(rows):
-            verdict: Verdict = pickle.loads(blob)  # noqa: S301 - written by this daemon
-            self.write_health(verdict, run_id)
-        return len(rows)
+        run_ids = jobs.recent_judged(self.conn)
+        for run_id in reversed(run_ids):
+            self.write_health(run_id)
+        return len(run_ids)
 
 
 def _record_verdict(conn: sqlite3.Connection, verdict: Verdict, acquired_at: datetime) -> int:
-    from watcher.store.history import record_verdict
-
-    run_id: int = record_verdict(conn, verdict, acquired_at=acquired_at)
+    run_id: int = history.record_verdict(conn, verdict, acquired_at=acquired_at)
     return run_id

@@ -2,12 +2,15 @@
 
 Each record is one whole line appended with a single ``os.write`` on an ``O_APPEND`` descriptor
 and fsynced, so a crash leaves whole lines only. Run records are idempotent by ``run_id``: the
-day's file is read once for the ids it holds, then a small in-memory set answers.
+day's file is read once for the ids it holds, then a small in-memory set answers. A run record
+is built by ``run_record`` from a stored run (``history.RunRow``) or from a fresh ``Verdict``
+with the same result, so a line re-offered after a restart equals the one it stands for.
 """
 
 from __future__ import annotations
 
 import json
+import math
 import os
 import re
 import threading
@@ -18,13 +21,61 @@ from pathlib import Path
 from typing import Any
 from zoneinfo import ZoneInfo
 
-from watcher.records import Verdict
+from watcher.records import Finding, Status, Verdict
+from watcher.store.history import RunRow
 
 _FILE_RE = re.compile(r"^health-(\d{4}-\d{2}-\d{2})\.jsonl$")
 
 
 def file_name(day: date) -> str:
     return f"health-{day.isoformat()}.jsonl"
+
+
+def run_record(
+    *,
+    run_id: int,
+    path: str,
+    judged_at: datetime,
+    status: Status,
+    error: str | None,
+    metrics: dict[str, float | bool | None],
+    findings: tuple[Finding, ...],
+) -> dict[str, Any]:
+    """The health-log record of one judged run.
+
+    Non-finite metric values are written as null, as the store keeps them ("not measured";
+    ``Infinity`` is not JSON either), so a record rebuilt from the store is the same record.
+    """
+    return {
+        "type": "run",
+        "run_id": run_id,
+        "file": Path(path).name,
+        "path": path,
+        "time": judged_at.isoformat(),
+        "status": str(status),
+        "error": error,
+        "metrics": {k: _finite_or_none(v) for k, v in metrics.items()},
+        "findings": [f.to_dict() for f in findings],
+    }
+
+
+def stored_run_record(row: RunRow) -> dict[str, Any]:
+    """The record of a run as the store holds it (the start-up replay after a kill)."""
+    return run_record(
+        run_id=row.run_id,
+        path=row.path,
+        judged_at=row.judged_at,
+        status=row.status,
+        error=row.error,
+        metrics=row.metrics,
+        findings=row.findings,
+    )
+
+
+def _finite_or_none(value: float | bool | None) -> float | bool | None:
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
 
 
 class HealthLog:
@@ -65,19 +116,22 @@ class HealthLog:
             True when a line was written.
         """
         judged = verdict.judged_at or datetime.fromtimestamp(self._clock()).astimezone()
-        day = self._day(judged)
-        metrics = verdict.metrics.flat() if verdict.metrics is not None else {}
-        record: dict[str, Any] = {
-            "type": "run",
-            "run_id": run_id,
-            "file": verdict.run_file.path.name,
-            "path": str(verdict.run_file.path),
-            "time": judged.isoformat(),
-            "status": str(verdict.status),
-            "error": verdict.error,
-            "metrics": {k: (None if v != v else v) for k, v in metrics.items()},
-            "findings": [f.to_dict() for f in verdict.findings],
-        }
+        record = run_record(
+            run_id=run_id,
+            path=str(verdict.run_file.path),
+            judged_at=judged,
+            status=verdict.status,
+            error=verdict.error,
+            metrics=verdict.metrics.flat() if verdict.metrics is not None else {},
+            findings=verdict.findings,
+        )
+        return self._write_run_record(self._day(judged), run_id, record)
+
+    def write_stored_run(self, row: RunRow) -> bool:
+        """``write_run`` for a run read back from the store; True when a line was written."""
+        return self._write_run_record(self._day(row.judged_at), row.run_id, stored_run_record(row))
+
+    def _write_run_record(self, day: date, run_id: int, record: dict[str, Any]) -> bool:
         with self._lock:
             seen = self._ids_of(day)
             if run_id in seen:

@@ -23,6 +23,7 @@ from watcher.notify.alert_text import Item, Text, compose
 from watcher.notify.healthlog import HealthLog
 from watcher.records import AlertAction, DaemonEvent, Finding, Severity, Status, Verdict
 from watcher.store import db, outbox
+from watcher.store.history import RunRow
 
 log = structlog.get_logger("watcher.notify.notifier")
 
@@ -228,6 +229,11 @@ class Notifier:
     def write_health(self, verdict: Verdict, run_id: int) -> None:
         """The run's health-log record (after the commit); idempotent by run_id."""
         self.health.write_run(verdict, run_id)
+        self.wake()
+
+    def write_stored_health(self, row: RunRow) -> None:
+        """The health-log record of a run as stored (after the commit, or replayed at start-up)."""
+        self.health.write_stored_run(row)
         self.wake()
 
     def write_event(self, kind: DaemonEvent, **fields: object) -> None:

@@ -12,18 +12,22 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
 
-from watcher.errors import StoreError
+from watcher.errors import StoreError, StoreTooNewError
+from watcher.store import migrations
 
 DB_NAME = "ionwarden.sqlite3"
 BUSY_TIMEOUT_MS = 10000
 NETWORK_FS = ("nfs", "nfs4", "cifs", "smb3", "smbfs", "9p", "afs", "ceph", "glusterfs")
 
-# Each table-owning module appends its CREATE statements here at import time (IF NOT EXISTS).
+SCHEMA_VERSION = migrations.SCHEMA_VERSION
+
+# Each table-owning module appends its version-1 CREATE statements here at import time
+# (IF NOT EXISTS); later changes are migrations (``watcher.store.migrations``), never edits here.
 SCHEMAS: dict[str, str] = {}
 
 
 def register_schema(owner: str, sql: str) -> None:
-    """Declare the tables a store module owns; they are created when a database is opened."""
+    """Declare the version-1 tables a store module owns; a new database is created with them."""
     SCHEMAS[owner] = sql
 
 
@@ -65,7 +69,10 @@ def is_network_fs(fs_type: str | None) -> bool:
 
 
 def connect(state_dir: Path, *, daemon: bool = False, readonly: bool = False) -> sqlite3.Connection:
-    """Open (creating if needed) the state database and every registered table.
+    """Open (creating if needed) the state database, upgraded to ``SCHEMA_VERSION``.
+
+    A writer creates a new database at the current version and migrates an older one forward in
+    one transaction (``upgrade``); a reader only checks that the version is the current one.
 
     Args:
         state_dir: folder of the database; must be on a local filesystem (WAL needs shared memory).
@@ -73,7 +80,10 @@ def connect(state_dir: Path, *, daemon: bool = False, readonly: bool = False) ->
         readonly: CLI readers; opens ``mode=ro`` and never creates anything.
 
     Raises:
-        StoreError: on a network filesystem, or without permission, with the folder named.
+        StoreError: on a network filesystem, or without permission, with the folder named; for
+            a reader, also a database not yet upgraded by the daemon.
+        StoreTooNewError: the database was written by a newer ionwarden (its schema version is
+            above ``SCHEMA_VERSION``).
     """
     fs_type = filesystem_type(state_dir if state_dir.exists() else state_dir.parent)
     if is_network_fs(fs_type):
@@ -82,6 +92,7 @@ def connect(state_dir: Path, *, daemon: bool = False, readonly: bool = False) ->
             "local disk: put state_dir on local storage"
         )
     path = state_dir / DB_NAME
+    conn: sqlite3.Connection | None = None
     try:
         if readonly:
             if not path.exists():
@@ -107,15 +118,16 @@ def connect(state_dir: Path, *, daemon: bool = False, readonly: bool = False) ->
         if not readonly:
             conn.execute("PRAGMA journal_mode = WAL")
             conn.execute(f"PRAGMA synchronous = {'FULL' if daemon else 'NORMAL'}")
-            _import_table_owners()
-            with write(conn):
-                for sql in SCHEMAS.values():
-                    for statement in sql.split(";"):
-                        if statement.strip():
-                            conn.execute(statement)
+            upgrade(conn, path)
         else:
-            conn.execute("SELECT count(*) FROM sqlite_master").fetchone()
+            _check_readable(conn, path)
+    except (StoreError, StoreTooNewError):
+        if conn is not None:
+            conn.close()
+        raise
     except sqlite3.OperationalError as exc:
+        if conn is not None:
+            conn.close()
         if "readonly" in str(exc) or "unable to open" in str(exc) or "permission" in str(exc):
             raise StoreError(
                 f"no permission on state dir {state_dir}: {exc} (run as the service user, or "
@@ -150,6 +162,59 @@ def read(conn: sqlite3.Connection) -> Iterator[sqlite3.Connection]:
 def checkpoint(conn: sqlite3.Connection) -> None:
     """Fold the WAL back into the database file (idle times and shutdown)."""
     conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+
+
+def user_version(conn: sqlite3.Connection) -> int:
+    """The schema version stored in the database header (0: never set)."""
+    return int(conn.execute("PRAGMA user_version").fetchone()[0])
+
+
+def upgrade(
+    conn: sqlite3.Connection,
+    path: Path,
+    steps: tuple[migrations.Migration, ...] = migrations.MIGRATIONS,
+) -> int:
+    """Bring the database to the version ``steps`` lead to (``SCHEMA_VERSION``) in one write
+    transaction; returns the version found.
+
+    Version 0 is a new file or a store written before versioning (it has the version-1 tables):
+    the registered tables are created where missing and it is taken as version 1. The version is
+    read after ``BEGIN IMMEDIATE``, so two connections opening at once upgrade only once.
+
+    Raises:
+        StoreTooNewError: the version found is above the target (nothing is changed).
+    """
+    target = migrations.target_version(steps)
+    _import_table_owners()
+    with write(conn):
+        found = user_version(conn)
+        if found > target:
+            raise StoreTooNewError(path, found, target)
+        if found == target:
+            return found
+        at = found
+        if at == 0:
+            for sql in SCHEMAS.values():
+                for statement in sql.split(";"):
+                    if statement.strip():
+                        conn.execute(statement)
+            at = migrations.BASE_VERSION
+        for migration in migrations.pending(at, steps):
+            migration.apply(conn)
+        # Inside the transaction: PRAGMA user_version is part of the file header it commits.
+        conn.execute(f"PRAGMA user_version = {target}")
+    return found
+
+
+def _check_readable(conn: sqlite3.Connection, path: Path) -> None:
+    found = user_version(conn)
+    if found > SCHEMA_VERSION:
+        raise StoreTooNewError(path, found, SCHEMA_VERSION)
+    if found < SCHEMA_VERSION:
+        raise StoreError(
+            f"state database {path} has schema version {found}, older than version "
+            f"{SCHEMA_VERSION} that this ionwarden reads: start the daemon once to upgrade it"
+        )
 
 
 def _import_table_owners() -> None:

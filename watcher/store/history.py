@@ -191,6 +191,15 @@ def _run_row(r: sqlite3.Row | tuple[Any, ...]) -> RunRow:
     )
 
 
+def get_run(conn: sqlite3.Connection, run_id: int) -> RunRow | None:
+    """One recorded run by id (the health-log line is rebuilt from it), or None."""
+    row = conn.execute(
+        f"SELECT {_RUN_COLUMNS} FROM runs WHERE run_id = ?",  # noqa: S608 - constant columns
+        (run_id,),
+    ).fetchone()
+    return None if row is None else _run_row(row)
+
+
 def recent_runs(conn: sqlite3.Connection, *, limit: int = 20) -> list[RunRow]:
     """The last ``limit`` runs judged, newest judgement first."""
     rows = conn.execute(

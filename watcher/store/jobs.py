@@ -10,6 +10,7 @@ parses, hashes or sends anything.
 from __future__ import annotations
 
 import sqlite3
+from collections.abc import Sequence
 from dataclasses import dataclass
 from enum import StrEnum
 from pathlib import Path
@@ -39,7 +40,7 @@ CREATE TABLE IF NOT EXISTS jobs (
     run_id INTEGER,
     duplicate_of INTEGER REFERENCES jobs(id),
     outcome TEXT,
-    verdict BLOB,
+    verdict BLOB, -- unused since schema version 2 (always NULL): the runs table holds verdicts
     incomplete TEXT,
     UNIQUE (path, size, mtime_ns)
 );
@@ -171,29 +172,59 @@ def finish(
     outcome: str,
     run_id: int | None = None,
     duplicate_of: int | None = None,
-    verdict_blob: bytes | None = None,
     sha256: str | None = None,
 ) -> None:
     """Mark a job ``done`` or ``failed`` (in the same transaction as its verdict)."""
     conn.execute(
-        "UPDATE jobs SET state = ?, outcome = ?, run_id = ?, duplicate_of = ?, verdict = ?,"
+        "UPDATE jobs SET state = ?, outcome = ?, run_id = ?, duplicate_of = ?,"
         " sha256 = coalesce(?, sha256), updated_s = ? WHERE id = ?",
-        (str(state), outcome, run_id, duplicate_of, verdict_blob, sha256, now_s, job_id),
+        (str(state), outcome, run_id, duplicate_of, sha256, now_s, job_id),
     )
 
 
-def recent_verdicts(conn: sqlite3.Connection, limit: int = 3) -> list[tuple[int, bytes]]:
-    """(run_id, verdict blob) of the last judged jobs, newest first.
+def recent_judged(conn: sqlite3.Connection, limit: int = 3) -> list[int]:
+    """The run ids of the last jobs judged (not duplicates), newest first.
 
     One worker finishes one job at a time, so a kill between a commit and its health-log line
     can only affect the newest; re-writing a few is idempotent (the log skips known run ids).
     """
     rows = conn.execute(
-        "SELECT run_id, verdict FROM jobs WHERE state = 'done' AND verdict IS NOT NULL"
+        "SELECT run_id FROM jobs WHERE state = 'done' AND duplicate_of IS NULL"
         " AND run_id IS NOT NULL ORDER BY updated_s DESC, id DESC LIMIT ?",
         (limit,),
     ).fetchall()
-    return [(r[0], r[1]) for r in rows]
+    return [int(r[0]) for r in rows]
+
+
+def finished_before(conn: sqlite3.Connection, before_s: float) -> list[Job]:
+    """Jobs ``done`` or ``failed`` whose last change is older than ``before_s``, oldest first
+    (the candidates for pruning; read by the index on ``updated_s`` of schema version 2)."""
+    rows = conn.execute(
+        f"SELECT {_COLUMNS} FROM jobs WHERE updated_s < ?"  # noqa: S608 - constant columns
+        " AND state IN ('done', 'failed') ORDER BY updated_s, id",
+        (before_s,),
+    ).fetchall()
+    return [_job(row) for row in rows]
+
+
+def delete(conn: sqlite3.Connection, job_ids: Sequence[int]) -> int:
+    """Delete these job rows, keeping any that a remaining row names as ``duplicate_of``.
+
+    A kept duplicate still points at its original (the foreign key), and deleting both at once
+    is fine. Returns how many rows went. The runs they judged stay in the history.
+    """
+    if not job_ids:
+        return 0
+    conn.execute("CREATE TEMP TABLE IF NOT EXISTS doomed (id INTEGER PRIMARY KEY)")
+    conn.execute("DELETE FROM doomed")
+    conn.executemany("INSERT OR IGNORE INTO doomed (id) VALUES (?)", [(i,) for i in job_ids])
+    cur = conn.execute(
+        "DELETE FROM jobs WHERE id IN (SELECT id FROM doomed) AND id NOT IN ("
+        " SELECT duplicate_of FROM jobs WHERE duplicate_of IS NOT NULL"
+        " AND id NOT IN (SELECT id FROM doomed))"
+    )
+    conn.execute("DELETE FROM doomed")
+    return cur.rowcount
 
 
 def get(conn: sqlite3.Connection, job_id: int) -> Job | None:

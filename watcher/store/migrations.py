@@ -1,0 +1,77 @@
+"""The schema's versions: version 1 is the tables the owners register, then ordered migrations.
+
+``PRAGMA user_version`` holds the version a database is at. Version 1 is what each table owner
+(history, jobs, outbox) registers through ``db.register_schema``; that text is frozen, because a
+store written before versioning (``user_version`` 0 with those tables) is taken as version 1.
+Every later change is one ``Migration`` appended to ``MIGRATIONS``: it takes a database at
+``version - 1`` to ``version``. ``db.connect`` runs the missing ones, oldest first, in one
+transaction with the new ``user_version``, so a store is either wholly upgraded or untouched.
+"""
+
+from __future__ import annotations
+
+import sqlite3
+from collections.abc import Callable
+from dataclasses import dataclass
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Migration:
+    """One step of the schema, from ``version - 1`` to ``version``.
+
+    Attributes:
+        version: the version the database is at once this step ran.
+        summary: what changes and why, for DEVELOPERS.md and the daemon log.
+        sql: statements separated by ``;`` (no ``;`` inside a statement), or a function for a
+            change SQL alone cannot express; it runs inside the upgrade transaction and must not
+            commit.
+    """
+
+    version: int
+    summary: str
+    sql: str | Callable[[sqlite3.Connection], None]
+
+    def apply(self, conn: sqlite3.Connection) -> None:
+        if callable(self.sql):
+            self.sql(conn)
+            return
+        for statement in self.sql.split(";"):
+            if statement.strip():
+                conn.execute(statement)
+
+
+BASE_VERSION = 1  # the registered tables, as they were when versioning began
+
+MIGRATIONS: tuple[Migration, ...] = (
+    Migration(
+        version=2,
+        summary="drop the pickled verdicts from jobs; index jobs by update time for pruning",
+        # The verdict column stays (always NULL from now on): DROP COLUMN needs SQLite 3.35,
+        # newer than some distributions' libsqlite3 the daemon links against.
+        sql="""
+        UPDATE jobs SET verdict = NULL WHERE verdict IS NOT NULL;
+        CREATE INDEX IF NOT EXISTS jobs_by_updated ON jobs (updated_s)
+        """,
+    ),
+)
+
+
+def target_version(migrations: tuple[Migration, ...]) -> int:
+    """The version the migrations lead to; each must take the previous version one step on."""
+    expected = BASE_VERSION + 1
+    for migration in migrations:
+        if migration.version != expected:
+            raise RuntimeError(
+                f"schema migrations out of order: expected version {expected}, "
+                f"got {migration.version} ({migration.summary})"
+            )
+        expected += 1
+    return expected - 1
+
+
+SCHEMA_VERSION = target_version(MIGRATIONS)  # checked at import: a gap fails every start
+
+
+def pending(found_version: int, steps: tuple[Migration, ...] = MIGRATIONS) -> tuple[Migration, ...]:
+    """The steps a database at ``found_version`` (>= 1) still needs, oldest first."""
+    return tuple(m for m in steps if m.version > found_version)
