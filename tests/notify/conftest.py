@@ -5,15 +5,14 @@ from __future__ import annotations
 import json
 import threading
 import time
-from collections.abc import Callable, Iterator
+from collections.abc import Iterator
 from datetime import UTC, datetime
 from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
-from pathlib import Path
 from typing import Any
 
 import pytest
 
-from watcher.records import Finding, RunFile, Severity, Status, Verdict
+from tests.helpers.clock import Clock
 
 
 class Receiver:
@@ -119,67 +118,6 @@ def _no_leaked_threads() -> Iterator[None]:
     raise AssertionError(f"delivery worker threads leaked: {alive}")
 
 
-class Clock:
-    """A controllable epoch clock."""
-
-    def __init__(self, start_s: float) -> None:
-        self.now_s = start_s
-
-    def __call__(self) -> float:
-        return self.now_s
-
-    def advance(self, seconds: float) -> float:
-        self.now_s += seconds
-        return self.now_s
-
-
 @pytest.fixture
 def clock() -> Clock:
     return Clock(datetime(2026, 3, 10, 2, 0, tzinfo=UTC).timestamp())
-
-
-def make_finding(
-    severity: Severity = Severity.WARNING,
-    *,
-    check: str = "calibration drift",
-    metric: str = "calibrant.siloxane-445.median_ppm",
-    value: float = 3.6,
-    limit: str = "outside [-3, 3]",
-    rule: str = "limit",
-    forecast_h: float | None = None,
-) -> Finding:
-    return Finding(
-        check=check,
-        severity=severity,
-        metric=metric,
-        subject=metric,
-        message=f"{metric} is {value}",
-        value=value,
-        limit=limit,
-        rule=rule,
-        forecast_h=forecast_h,
-    )
-
-
-def make_verdict(
-    name: str,
-    findings: tuple[Finding, ...] = (),
-    *,
-    at_s: float,
-    status: Status | None = None,
-    error: str | None = None,
-    folder: Path = Path("/exports"),
-) -> Verdict:
-    if status is None:
-        worst = max(findings, key=lambda f: f.severity.rank, default=None)
-        status = Status.OK if worst is None else Status(str(worst.severity))
-    return Verdict(
-        run_file=RunFile(path=folder / name, size=1000, mtime_ns=int(at_s * 1e9)),
-        status=status,
-        error=error,
-        findings=findings,
-        judged_at=datetime.fromtimestamp(at_s, UTC),
-    )
-
-
-Factory = Callable[..., Verdict]

@@ -6,8 +6,7 @@ from dataclasses import replace
 
 import pytest
 
-from tests.notify.conftest import make_finding
-from tests.rules.test_judge import make_metrics
+from tests.helpers.records import make_finding, make_metrics
 from watcher.config import Channel, Check
 from watcher.notify.alert_state import (
     clearable_checks,

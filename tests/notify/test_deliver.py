@@ -12,7 +12,9 @@ from pathlib import Path
 import pytest
 import structlog
 
-from tests.notify.conftest import Clock, Receiver, make_finding
+from tests.helpers.clock import Clock
+from tests.helpers.records import make_finding
+from tests.notify.conftest import Receiver
 from tests.notify.test_notifier import Harness, lab_config
 from watcher.cli import status as cmd_status
 from watcher.config import Channel, Config

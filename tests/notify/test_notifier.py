@@ -8,7 +8,9 @@ from pathlib import Path
 
 import pytest
 
-from tests.notify.conftest import Clock, Receiver, make_finding, make_verdict
+from tests.helpers.clock import Clock
+from tests.helpers.records import make_finding, make_verdict
+from tests.notify.conftest import Receiver
 from watcher.config import Alerts, Channel, Check, Condition, Config, Instrument
 from watcher.errors import DeliveryError
 from watcher.notify.notifier import Notifier
