@@ -10,7 +10,7 @@ from pathlib import Path
 
 import pytest
 
-from tests.config.test_load_errors import CASES, marker_line
+from tests.helpers.configs import BAD_CONFIG_CASES, marker_line
 
 ROOT = Path(__file__).resolve().parents[2]
 
@@ -48,7 +48,7 @@ def test_path_is_printed_as_given(tmp_path: Path) -> None:
     assert result.stdout == "lab.yaml: ok (0 checks, 0 calibrants, 0 expected ions, 0 channels)\n"
 
 
-@pytest.mark.parametrize(("text", "key_path", "fragment"), CASES)
+@pytest.mark.parametrize(("text", "key_path", "fragment"), BAD_CONFIG_CASES)
 def test_error_case_through_cli(tmp_path: Path, text: str, key_path: str, fragment: str) -> None:
     """Each mistake comes out as 'lab.yaml:LINE: KEY: message' on stderr with exit code 2."""
     (tmp_path / "lab.yaml").write_text(text)
