@@ -13,11 +13,9 @@ import socket
 import sqlite3
 import subprocess
 import sys
-import threading
 import time
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
-from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
 from pathlib import Path
 from typing import Any
 
@@ -254,46 +252,3 @@ def lab(tmp_path: Path, tiny_template: bytes) -> Iterator[Lab]:
     yield the_lab
     for d in the_lab.procs:
         d.close()
-
-
-class Receiver:
-    """A real HTTP server on 127.0.0.1 that records every POST body (apprise json:// target)."""
-
-    def __init__(self) -> None:
-        self.bodies: list[dict[str, Any]] = []
-        received = self.bodies
-
-        class Handler(BaseHTTPRequestHandler):
-            def do_POST(self) -> None:
-                length = int(self.headers.get("Content-Length", "0"))
-                raw = self.rfile.read(length)
-                try:
-                    received.append(json.loads(raw))
-                except json.JSONDecodeError:
-                    received.append({"raw": raw.decode(errors="replace")})
-                self.send_response(200)
-                self.end_headers()
-
-            def log_message(self, format: str, *args: Any) -> None:
-                return
-
-        self.server = ThreadingHTTPServer(("127.0.0.1", 0), Handler)
-        self.port = self.server.server_address[1]
-        self.thread = threading.Thread(target=self.server.serve_forever, daemon=True)
-        self.thread.start()
-
-    @property
-    def url(self) -> str:
-        return f"json://127.0.0.1:{self.port}/alerts"
-
-    def close(self) -> None:
-        self.server.shutdown()
-        self.server.server_close()
-        self.thread.join(5)
-
-
-@pytest.fixture
-def receiver() -> Iterator[Receiver]:
-    r = Receiver()
-    yield r
-    r.close()

@@ -15,8 +15,8 @@ import structlog
 from tests.helpers.clock import Clock
 from tests.helpers.configs import lab_config
 from tests.helpers.notifier import Harness
+from tests.helpers.receiver import Receiver
 from tests.helpers.records import make_finding
-from tests.notify.conftest import Receiver
 from watcher.cli import status as cmd_status
 from watcher.config import Channel, Config
 from watcher.notify import deliver

@@ -11,8 +11,8 @@ import pytest
 from tests.helpers.clock import Clock
 from tests.helpers.configs import lab_config
 from tests.helpers.notifier import Harness
+from tests.helpers.receiver import Receiver
 from tests.helpers.records import make_finding, make_verdict
-from tests.notify.conftest import Receiver
 from watcher.config import Channel
 from watcher.errors import DeliveryError
 from watcher.notify.notifier import Notifier
