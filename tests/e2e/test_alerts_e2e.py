@@ -13,8 +13,6 @@ from __future__ import annotations
 import json
 import re
 import sqlite3
-import subprocess
-import sys
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Any
@@ -22,9 +20,11 @@ from typing import Any
 import pytest
 
 import synth
-from tests.e2e.conftest import REPO, Lab, wait_for
 from tests.helpers import browser
+from tests.helpers.cli import Result, run_cli
+from tests.helpers.daemon import Lab
 from tests.helpers.receiver import Receiver
+from tests.helpers.wait import wait_for
 
 SILOXANE_MZ = 445.120025  # polysiloxane background ion [C2H6SiO]6+H+ (common practice, lock mass)
 DAY = datetime(2026, 11, 27, 18, 0, tzinfo=UTC)
@@ -84,16 +84,9 @@ def deliveries(lab: Lab) -> list[tuple[str, str, int]]:
     return [(r[0], r[1], r[2]) for r in rows]
 
 
-def cli(lab: Lab, *args: str) -> subprocess.CompletedProcess[str]:
-    """``python -m watcher ARGS -c CONFIG`` as the lab manager runs it."""
-    return subprocess.run(
-        [sys.executable, "-m", "watcher", *args, "-c", str(lab.config)],
-        cwd=lab.root,
-        env={"PATH": "/usr/bin:/bin", "PYTHONPATH": str(REPO)},
-        capture_output=True,
-        text=True,
-        timeout=60,
-    )
+def cli(lab: Lab, *args: str) -> Result:
+    """``python -m watcher ARGS -c CONFIG`` as the lab manager runs it (PATH and nothing else)."""
+    return run_cli(*args, "-c", lab.config, cwd=lab.root, env={"PATH": "/usr/bin:/bin"})
 
 
 def test_raise_once_then_clear(lab: Lab, receiver: Receiver, tmp_path: Path) -> None:

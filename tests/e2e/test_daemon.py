@@ -17,8 +17,9 @@ from pathlib import Path
 
 import pytest
 
-from tests.e2e.conftest import SETTLE_S, Lab, wait_for
+from tests.helpers.daemon import SETTLE_S, Lab
 from tests.helpers.receiver import Receiver
+from tests.helpers.wait import wait_for
 
 
 def _assert_once(lab: Lab, names: set[str]) -> None:
