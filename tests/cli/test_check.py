@@ -4,10 +4,7 @@ from __future__ import annotations
 
 import io
 import json
-import os
 import sqlite3
-import subprocess
-import sys
 from pathlib import Path
 from typing import Any
 
@@ -15,6 +12,7 @@ import jsonschema
 import pytest
 
 from synth import CalibrantTruth, RunSpec, TargetTruth, write_mzml
+from tests.helpers.cli import Result, run_cli
 from tests.helpers.refdata import REFERENCE as SHARED_REFERENCE
 from watcher.cli.progress import ProgressBar
 
@@ -64,20 +62,11 @@ def _config(tmp_path: Path, extra: str = "") -> Path:
     return path
 
 
-def _check(*args: str | Path, cwd: Path = ROOT) -> subprocess.CompletedProcess[str]:
-    env = dict(os.environ, PYTHONPATH=str(ROOT), NO_COLOR="")
-    return subprocess.run(
-        [sys.executable, "-m", "watcher", "check", *map(str, args)],
-        capture_output=True,
-        text=True,
-        timeout=120,
-        cwd=cwd,
-        env=env,
-        check=False,
-    )
+def _check(*args: str | Path, cwd: Path = ROOT) -> Result:
+    return run_cli("check", *args, cwd=cwd, set_env={"NO_COLOR": ""}, timeout=120)
 
 
-def _json(proc: subprocess.CompletedProcess[str]) -> dict[str, Any]:
+def _json(proc: Result) -> dict[str, Any]:
     data: dict[str, Any] = json.loads(proc.stdout)
     return data
 

@@ -12,7 +12,6 @@ import gzip
 import json
 import os
 import subprocess
-import sys
 from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import Any
@@ -24,6 +23,7 @@ from molmass import Formula
 import synth.mzml as synth_mzml
 from synth import CalibrantTruth, RunSpec, RunTruth, TargetTruth, write_mgf, write_mzml
 from synth.model import SynthScan
+from tests.helpers.cli import Result, run_cli
 
 ROOT = Path(__file__).resolve().parents[2]
 SILOXANE_MZ = 445.120025  # reference/check-ions.tsv, [C12H37O6Si6]+ (molmass 445.1200245)
@@ -86,20 +86,11 @@ def _write_edited(
         return write_mzml(path, spec, indexed=False)
 
 
-def _cli(*args: str | Path, timeout: float = 60) -> subprocess.CompletedProcess[str]:
-    env = dict(os.environ, PYTHONPATH=str(ROOT), NO_COLOR="1")
-    return subprocess.run(
-        [sys.executable, "-m", "watcher", *map(str, args)],
-        capture_output=True,
-        text=True,
-        timeout=timeout,
-        cwd=ROOT,
-        env=env,
-        check=False,
-    )
+def _cli(*args: str | Path, timeout: float = 60) -> Result:
+    return run_cli(*args, cwd=ROOT, set_env={"NO_COLOR": "1"}, timeout=timeout)
 
 
-def _no_traceback(proc: subprocess.CompletedProcess[str]) -> None:
+def _no_traceback(proc: Result) -> None:
     assert "Traceback" not in proc.stderr + proc.stdout, proc.stderr
 
 

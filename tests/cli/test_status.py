@@ -3,10 +3,9 @@
 from __future__ import annotations
 
 import json
-import subprocess
-import sys
 from pathlib import Path
 
+from tests.helpers.cli import Result, run_cli
 from watcher.notify.alert_state import AlertState
 from watcher.records import Finding, Severity
 from watcher.store import db, outbox
@@ -22,14 +21,8 @@ def _config(tmp_path: Path, state: Path) -> Path:
     return cfg
 
 
-def _status(cfg: Path, *extra: str) -> subprocess.CompletedProcess[str]:
-    return subprocess.run(
-        [sys.executable, "-m", "watcher", "status", "-c", str(cfg), *extra],
-        capture_output=True,
-        text=True,
-        timeout=60,
-        check=False,
-    )
+def _status(cfg: Path, *extra: str) -> Result:
+    return run_cli("status", "-c", cfg, *extra)
 
 
 def test_status_exit_0_when_quiet_and_1_with_open_alert(tmp_path: Path) -> None:

@@ -2,31 +2,19 @@
 
 from __future__ import annotations
 
-import os
-import subprocess
-import sys
 import time
 from pathlib import Path
 
 import pytest
 
-from tests.config.test_load_errors import CASES, marker_line
+from tests.helpers.cli import Result, run_cli
+from tests.helpers.configs import BAD_CONFIG_CASES, marker_line
 
 ROOT = Path(__file__).resolve().parents[2]
 
 
-def run_validate(path: Path | str, *, cwd: Path) -> subprocess.CompletedProcess[str]:
-    env = {k: v for k, v in os.environ.items() if not k.startswith("IONWARDEN_TEST_")}
-    env["PYTHONPATH"] = str(ROOT)
-    return subprocess.run(
-        [sys.executable, "-m", "watcher", "validate", "-c", str(path)],
-        capture_output=True,
-        text=True,
-        cwd=cwd,
-        env=env,
-        timeout=60,
-        check=False,
-    )
+def run_validate(path: Path | str, *, cwd: Path) -> Result:
+    return run_cli("validate", "-c", path, cwd=cwd, unset=["IONWARDEN_TEST_*"])
 
 
 def test_valid_config_prints_summary(tmp_path: Path) -> None:
@@ -48,7 +36,7 @@ def test_path_is_printed_as_given(tmp_path: Path) -> None:
     assert result.stdout == "lab.yaml: ok (0 checks, 0 calibrants, 0 expected ions, 0 channels)\n"
 
 
-@pytest.mark.parametrize(("text", "key_path", "fragment"), CASES)
+@pytest.mark.parametrize(("text", "key_path", "fragment"), BAD_CONFIG_CASES)
 def test_error_case_through_cli(tmp_path: Path, text: str, key_path: str, fragment: str) -> None:
     """Each mistake comes out as 'lab.yaml:LINE: KEY: message' on stderr with exit code 2."""
     (tmp_path / "lab.yaml").write_text(text)

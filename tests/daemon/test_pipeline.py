@@ -103,7 +103,7 @@ def test_memory_limit_stops_the_child_and_the_next_run_is_measured(
     The first spectrum declares 100 million m/z values and carries them (zeros, deflated to
     ~800 kB), so the length check lets the inflate run into the child's RLIMIT_AS.
     """
-    from tests.measure import badfiles as bf
+    from tests.helpers import badfiles as bf
 
     tiny, _ = runs
     n_values = 100_000_000

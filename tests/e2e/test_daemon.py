@@ -17,7 +17,9 @@ from pathlib import Path
 
 import pytest
 
-from tests.e2e.conftest import SETTLE_S, Lab, Receiver, wait_for
+from tests.helpers.daemon import SETTLE_S, Lab
+from tests.helpers.receiver import Receiver
+from tests.helpers.wait import wait_for
 
 
 def _assert_once(lab: Lab, names: set[str]) -> None:
@@ -203,7 +205,7 @@ def test_never_completing_file_is_unreadable_with_alert(lab: Lab, receiver: Rece
     """A file that stays incomplete past max_wait_s: unreadable 'incomplete: ...' and an alert."""
     lab.write_config(
         watch={"max_wait_s": 1.0},
-        alerts={"channels": [{"name": "lab-chat", "url": receiver.url}]},
+        alerts={"channels": [{"name": "lab-chat", "url": receiver.url()}]},
     )
     d = lab.start()
     data = lab.run_bytes(1)
@@ -257,7 +259,7 @@ def test_bad_config_at_start_exits_2(lab: Lab) -> None:
 def test_heartbeat_missed_once_then_resumed(lab: Lab, receiver: Receiver) -> None:
     """No run for expect_run_every: one 'heartbeat.missed' alert; a new run clears it."""
     lab.write_config(
-        alerts={"channels": [{"name": "lab-chat", "url": receiver.url}], "expect_run_every": "1s"}
+        alerts={"channels": [{"name": "lab-chat", "url": receiver.url()}], "expect_run_every": "1s"}
     )
     d = lab.start()
 

@@ -3,34 +3,26 @@
 from __future__ import annotations
 
 import json
-import os
 import re
-import subprocess
-import sys
 from pathlib import Path
 
 import pytest
 
-REPO = Path(__file__).resolve().parents[2]
+from tests.helpers.cli import REPO, Result, run_cli
+
 TRUTH = json.loads((REPO / "demo_drop" / "TRUTH.json").read_text())["queue"]
 
 
 @pytest.fixture(scope="module")
-def demo(tmp_path_factory: pytest.TempPathFactory) -> tuple[subprocess.CompletedProcess[str], Path]:
+def demo(tmp_path_factory: pytest.TempPathFactory) -> tuple[Result, Path]:
     workdir = tmp_path_factory.mktemp("demo")
-    env = {k: v for k, v in os.environ.items() if k != "IONWARDEN_DEMO_URL"}
-    proc = subprocess.run(
-        [sys.executable, "-m", "watcher", "demo", "--workdir", str(workdir), "--fast"],
-        capture_output=True,
-        text=True,
-        timeout=240,
-        env=env,
-        check=False,
+    proc = run_cli(
+        "demo", "--workdir", workdir, "--fast", unset=["IONWARDEN_DEMO_URL"], timeout=240
     )
     return proc, workdir
 
 
-def test_demo_exits_cleanly(demo: tuple[subprocess.CompletedProcess[str], Path]) -> None:
+def test_demo_exits_cleanly(demo: tuple[Result, Path]) -> None:
     """The demo finishes with exit 0 and says where its outputs are."""
     proc, workdir = demo
     assert proc.returncode == 0, proc.stdout[-3000:] + proc.stderr[-3000:]
@@ -39,7 +31,7 @@ def test_demo_exits_cleanly(demo: tuple[subprocess.CompletedProcess[str], Path])
 
 
 def test_demo_alerts_arrive_in_the_scenario_order(
-    demo: tuple[subprocess.CompletedProcess[str], Path],
+    demo: tuple[Result, Path],
 ) -> None:
     """The receiver gets exactly the scenario's alerts, in order: raise, escalate, clear, ..."""
     proc, _ = demo
@@ -68,7 +60,7 @@ def test_demo_alerts_arrive_in_the_scenario_order(
 
 
 def test_demo_verdicts_match_the_ground_truth(
-    demo: tuple[subprocess.CompletedProcess[str], Path],
+    demo: tuple[Result, Path],
 ) -> None:
     """Every run's recorded status is the one the scenario's ground truth expects."""
     _, workdir = demo
@@ -82,7 +74,7 @@ def test_demo_verdicts_match_the_ground_truth(
 
 
 def test_demo_reports_the_truncated_export_by_name(
-    demo: tuple[subprocess.CompletedProcess[str], Path],
+    demo: tuple[Result, Path],
 ) -> None:
     """The cut-off export is reported unreadable, by name and reason, in the alert and the log."""
     proc, workdir = demo
@@ -100,7 +92,7 @@ def test_demo_reports_the_truncated_export_by_name(
     assert "</indexedmzML>" in rec["error"]
 
 
-def test_demo_writes_the_digest(demo: tuple[subprocess.CompletedProcess[str], Path]) -> None:
+def test_demo_writes_the_digest(demo: tuple[Result, Path]) -> None:
     """The digest page exists, is self-contained and covers the evening's runs and findings."""
     _, workdir = demo
     html = (workdir / "state" / "digest-2026-11-27.html").read_text()

@@ -7,7 +7,7 @@ from pathlib import Path
 
 import pytest
 
-from tests.measure import badfiles as bf
+from tests.helpers import badfiles as bf
 from watcher.errors import ReadError
 from watcher.intake.formats import check_complete, completeness, sniff, sniff_format
 

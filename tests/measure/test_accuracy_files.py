@@ -10,10 +10,7 @@ from __future__ import annotations
 import csv
 import gzip
 import json
-import os
 import re
-import subprocess
-import sys
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any
@@ -22,6 +19,7 @@ import pytest
 from molmass import Formula
 
 from synth import CalibrantTruth, RunSpec, RunTruth, TargetTruth, write_mgf, write_mzml, write_mzxml
+from tests.helpers.cli import Result, run_cli
 from tests.helpers.refdata import REFERENCE as SHARED_REFERENCE
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -131,17 +129,8 @@ CASES: list[tuple[str, Writer, float, float, bool]] = [
 ]
 
 
-def _cli(*args: str | Path, cwd: Path) -> subprocess.CompletedProcess[str]:
-    env = dict(os.environ, PYTHONPATH=str(ROOT))
-    return subprocess.run(
-        [sys.executable, "-m", "watcher", "check", *map(str, args)],
-        capture_output=True,
-        text=True,
-        timeout=300,
-        cwd=cwd,
-        env=env,
-        check=False,
-    )
+def _cli(*args: str | Path, cwd: Path) -> Result:
+    return run_cli("check", *args, cwd=cwd, timeout=300)
 
 
 @pytest.fixture(scope="module")

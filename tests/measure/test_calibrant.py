@@ -7,7 +7,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from tests.measure.scanfactory import Calibrant, centroid_arrays, header, make_run, shifted
+from tests.helpers.spectra import Calibrant, centroid_arrays, header, make_run, shifted
 from watcher.config import Config, IonSpec
 from watcher.measure import robust
 from watcher.measure.calibrant import CalibrantTrace, mass_correction

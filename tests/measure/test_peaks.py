@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from tests.measure.scanfactory import centroid_arrays, profile_arrays, shifted
+from tests.helpers.spectra import centroid_arrays, profile_arrays, shifted
 from watcher.measure.ions import ppm_error
 from watcher.measure.peaks import find_peak, looks_profile, refine_apex
 

@@ -11,7 +11,7 @@ import pytest
 
 from synth import CalibrantTruth, RunSpec, TargetTruth, write_mgf, write_mzml
 from tests.helpers.refdata import REFERENCE as SHARED_REFERENCE
-from tests.measure.scanfactory import Analyte, Calibrant, header, make_run
+from tests.helpers.spectra import Analyte, Calibrant, header, make_run
 from watcher.config import Config, ExpectedIon, IonSpec
 from watcher.errors import ConfigError, ReadError
 from watcher.measure.ions import resolve

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from tests.measure.scanfactory import make_run, tic_scans
+from tests.helpers.spectra import make_run, tic_scans
 from watcher.config import SignalSettings
 from watcher.measure.scan import Scan
 from watcher.measure.signal import SignalTrace, find_dropouts
@@ -78,7 +78,7 @@ def test_counts_rt_range_cycle_and_injection_times() -> None:
     """A DDA run of 30 cycles reports its counts, RT range, cycle and injection-time medians."""
     scans = make_run(duration_s=60, cycle_s=2.0, ms2_per_cycle=3, noise_peaks=20)
     metrics = _signal(scans)
-    # scanfactory ground truth: MS1 every 2 s from 1 s, 3 MS2 per cycle (charges 2, 3, 2)
+    # helpers/spectra.py ground truth: MS1 every 2 s from 1 s, 3 MS2 per cycle (charges 2, 3, 2)
     assert metrics.ms1_count == 30
     assert metrics.ms2_count == 90
     assert metrics.rt_start_s == 1.0

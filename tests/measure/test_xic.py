@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import pytest
 
-from tests.measure.scanfactory import Analyte, header, make_run
+from tests.helpers.spectra import Analyte, header, make_run
 from watcher.config import Config, ExpectedIon, IonSpec
 from watcher.measure.ions import resolve
 from watcher.measure.run import measure_scans
@@ -56,7 +56,7 @@ def test_expected_ion_apex_width_and_isotope(
         duration_s=660, analytes=[truth], profile=profile, intensity_jitter=0.02, seed=11
     )
     result = _xic(scans, spec, window_min, 1e4)
-    # scanfactory ground truth (Gaussian in RT with 2 % point noise; isotope peak at
+    # helpers/spectra.py ground truth (Gaussian in RT with 2 % point noise; isotope peak at
     # +1.003355/z with the composition's ratio); tolerances from the test list
     assert result.found
     assert result.apex_rt_s == pytest.approx(apex_rt_s, abs=CYCLE_S)

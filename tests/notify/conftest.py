@@ -1,109 +1,15 @@
-"""A real HTTP receiver on 127.0.0.1 for apprise json:// URLs, and helpers to script verdicts."""
+"""Notify fixtures: a controllable clock, and no delivery worker left running after a test."""
 
 from __future__ import annotations
 
-import json
 import threading
 import time
-from collections.abc import Callable, Iterator
+from collections.abc import Iterator
 from datetime import UTC, datetime
-from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
-from pathlib import Path
-from typing import Any
 
 import pytest
 
-from watcher.records import Finding, RunFile, Severity, Status, Verdict
-
-
-class Receiver:
-    """Records the JSON bodies POSTed to it; can answer 500, hang, or be stopped and restarted."""
-
-    def __init__(self) -> None:
-        self.bodies: list[dict[str, Any]] = []
-        self.hits = 0
-        self.mode = "ok"  # ok | fail | hang
-        self._release = threading.Event()
-        self._lock = threading.Lock()
-        self._server: ThreadingHTTPServer | None = None
-        self._thread: threading.Thread | None = None
-        self.port = 0
-        self.start()
-
-    def start(self) -> None:
-        receiver = self
-
-        class Handler(BaseHTTPRequestHandler):
-            def do_POST(self) -> None:
-                length = int(self.headers.get("Content-Length", "0"))
-                raw = self.rfile.read(length)
-                with receiver._lock:
-                    receiver.hits += 1
-                    mode = receiver.mode
-                if mode == "hang":
-                    receiver._release.wait(10)
-                    return
-                if mode == "fail":
-                    self.send_response(500)
-                    self.end_headers()
-                    return
-                with receiver._lock:
-                    receiver.bodies.append(json.loads(raw))
-                self.send_response(200)
-                self.end_headers()
-
-            def log_message(self, format: str, *args: object) -> None:
-                pass
-
-        server = ThreadingHTTPServer(("127.0.0.1", self.port), Handler)
-        server.daemon_threads = True
-        self.port = server.server_address[1]
-        self._server = server
-        self._thread = threading.Thread(target=server.serve_forever, daemon=True)
-        self._thread.start()
-
-    def stop(self) -> None:
-        """Close the socket: later connections are refused."""
-        if self._server is not None:
-            self._release.set()
-            self._server.shutdown()
-            self._server.server_close()
-            assert self._thread is not None
-            self._thread.join(5)
-            self._server = None
-            self._release = threading.Event()
-
-    def url(self, path: str = "alerts") -> str:
-        return f"json://127.0.0.1:{self.port}/{path}"
-
-    def titles(self) -> list[str]:
-        with self._lock:
-            return [str(b.get("title")) for b in self.bodies]
-
-    def wait_for(self, n: int, timeout_s: float = 10.0) -> list[dict[str, Any]]:
-        """Wait until ``n`` bodies arrived (deadline, not a fixed sleep); return them."""
-        deadline = time.monotonic() + timeout_s
-        while time.monotonic() < deadline:
-            with self._lock:
-                if len(self.bodies) >= n:
-                    return list(self.bodies)
-            time.sleep(0.02)
-        raise AssertionError(f"expected {n} messages, got {len(self.bodies)}: {self.titles()}")
-
-    def wait_hits(self, n: int, timeout_s: float = 10.0) -> None:
-        deadline = time.monotonic() + timeout_s
-        while time.monotonic() < deadline:
-            if self.hits >= n:
-                return
-            time.sleep(0.02)
-        raise AssertionError(f"expected {n} requests, got {self.hits}")
-
-
-@pytest.fixture
-def receiver() -> Iterator[Receiver]:
-    r = Receiver()
-    yield r
-    r.stop()
+from tests.helpers.clock import Clock
 
 
 @pytest.fixture(autouse=True)
@@ -119,72 +25,6 @@ def _no_leaked_threads() -> Iterator[None]:
     raise AssertionError(f"delivery worker threads leaked: {alive}")
 
 
-class Clock:
-    """A controllable epoch clock."""
-
-    def __init__(self, start_s: float) -> None:
-        self.now_s = start_s
-
-    def __call__(self) -> float:
-        return self.now_s
-
-    def advance(self, seconds: float) -> float:
-        self.now_s += seconds
-        return self.now_s
-
-
 @pytest.fixture
 def clock() -> Clock:
     return Clock(datetime(2026, 3, 10, 2, 0, tzinfo=UTC).timestamp())
-
-
-def make_finding(
-    severity: Severity = Severity.WARNING,
-    *,
-    check: str = "calibration drift",
-    metric: str = "calibrant.siloxane-445.median_ppm",
-    value: float = 3.6,
-    limit: str = "outside [-3, 3]",
-    rule: str = "limit",
-    forecast_h: float | None = None,
-) -> Finding:
-    return Finding(
-        check=check,
-        severity=severity,
-        metric=metric,
-        subject=metric,
-        message=f"{metric} is {value}",
-        value=value,
-        limit=limit,
-        rule=rule,
-        forecast_h=forecast_h,
-    )
-
-
-def make_verdict(
-    name: str,
-    findings: tuple[Finding, ...] = (),
-    *,
-    at_s: float,
-    status: Status | None = None,
-    error: str | None = None,
-    folder: Path = Path("/exports"),
-    evaluated: frozenset[tuple[str, str]] | None = None,
-) -> Verdict:
-    """A verdict as the rules would hand it on; ``evaluated`` defaults to the findings' keys."""
-    if status is None:
-        worst = max(findings, key=lambda f: f.severity.rank, default=None)
-        status = Status.OK if worst is None else Status(str(worst.severity))
-    return Verdict(
-        run_file=RunFile(path=folder / name, size=1000, mtime_ns=int(at_s * 1e9)),
-        status=status,
-        error=error,
-        findings=findings,
-        evaluated=(
-            frozenset((f.check, f.subject) for f in findings) if evaluated is None else evaluated
-        ),
-        judged_at=datetime.fromtimestamp(at_s, UTC),
-    )
-
-
-Factory = Callable[..., Verdict]

@@ -3,11 +3,11 @@
 from __future__ import annotations
 
 from dataclasses import replace
+from datetime import UTC, datetime
 
 import pytest
 
-from tests.notify.conftest import make_finding
-from tests.rules.test_judge import T0, make_metrics
+from tests.helpers.records import make_finding, make_metrics
 from watcher.config import Channel, Check
 from watcher.notify.alert_state import may_clear, passes, remind_due, step
 from watcher.records import AlertAction, AlertState, RunMetrics, Severity
@@ -15,6 +15,7 @@ from watcher.rules.judge import judge
 
 W, C, N = Severity.WARNING, Severity.CRITICAL, Severity.NOTICE
 H = 3600.0
+T0 = datetime(2026, 4, 12, 1, 0, tzinfo=UTC)
 
 
 def _state(sev: Severity, *, sent_s: float = 0.0) -> AlertState:

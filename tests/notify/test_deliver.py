@@ -12,8 +12,11 @@ from pathlib import Path
 import pytest
 import structlog
 
-from tests.notify.conftest import Clock, Receiver, make_finding
-from tests.notify.test_notifier import Harness, lab_config
+from tests.helpers.clock import Clock
+from tests.helpers.configs import lab_config
+from tests.helpers.notifier import Harness
+from tests.helpers.receiver import Receiver
+from tests.helpers.records import make_finding
 from watcher.cli import status as cmd_status
 from watcher.config import Channel, Config
 from watcher.notify import deliver

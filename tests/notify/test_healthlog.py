@@ -6,7 +6,8 @@ import json
 from datetime import UTC, date, datetime
 from pathlib import Path
 
-from tests.notify.conftest import Clock, make_finding, make_verdict
+from tests.helpers.clock import Clock
+from tests.helpers.records import make_finding, make_verdict
 from watcher.notify.healthlog import HealthLog, read_day
 from watcher.records import (
     CalibrantDrift,

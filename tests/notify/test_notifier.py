@@ -8,69 +8,16 @@ from pathlib import Path
 
 import pytest
 
-from tests.notify.conftest import Clock, Receiver, make_finding, make_verdict
-from watcher.config import Alerts, Channel, Check, Condition, Config, Instrument
+from tests.helpers.clock import Clock
+from tests.helpers.configs import lab_config
+from tests.helpers.notifier import Harness
+from tests.helpers.receiver import Receiver
+from tests.helpers.records import make_finding, make_verdict
+from watcher.config import Channel
 from watcher.errors import DeliveryError
 from watcher.notify.notifier import Notifier
 from watcher.records import DaemonEvent, Severity, Status
 from watcher.store import db, outbox
-
-FAST = {"backoff_base_s": 0.05, "backoff_max_s": 0.2, "poll_s": 0.02}
-
-
-def lab_config(url: str, **alerts: object) -> Config:
-    settings: dict[str, object] = {"connect_timeout_s": 1.0, "read_timeout_s": 1.0}
-    settings.update(alerts)
-    channels = settings.pop("channels", None) or (Channel(name="lab-chat", url=url),)
-    return Config(
-        instrument=Instrument(name="Kestrel-2 Q-TOF", timezone="Europe/Oslo"),
-        checks=(
-            Check(
-                name="calibration drift",
-                metric="calibrant.siloxane-445.median_ppm",
-                warning=Condition(outside=(-3.0, 3.0)),
-                critical=Condition(outside=(-5.0, 5.0)),
-            ),
-            Check(
-                name="caffeine present",
-                metric="expected_ion.caffeine.found",
-                applies_to=("QC_*.mzML",),
-                critical=Condition(is_=False),
-            ),
-        ),
-        alerts=Alerts(channels=channels, **settings),  # type: ignore[arg-type]
-    )
-
-
-class Harness:
-    """Records verdicts the way the daemon does: inside a write transaction, then health log."""
-
-    def __init__(self, config: Config, state_dir: Path, clock: Clock) -> None:
-        self.clock = clock
-        self.config = config
-        self.notifier = Notifier(config, state_dir, clock=clock, **FAST)  # type: ignore[arg-type]
-        self.conn = db.connect(state_dir, daemon=True)
-        self.run_id = 0
-
-    def run(self, name: str, *findings: object, **kw: object) -> None:
-        self.run_id += 1
-        # Judged on every configured check that applies to the file, each on its own metric.
-        judged = {(c.name, c.metric) for c in self.config.checks if c.applies_to_file(name)}
-        judged |= {(f.check, f.subject) for f in findings}  # type: ignore[attr-defined]
-        verdict = make_verdict(
-            name,
-            findings,  # type: ignore[arg-type]
-            at_s=self.clock(),
-            evaluated=frozenset(judged),
-            **kw,  # type: ignore[arg-type]
-        )
-        with db.write(self.conn):
-            self.notifier.record_verdict(self.conn, verdict, self.run_id, self.clock())
-        self.notifier.write_health(verdict, self.run_id)
-
-    def close(self) -> None:
-        self.notifier.stop_delivery()
-        self.conn.close()
 
 
 def _until(predicate: Callable[[], bool], timeout_s: float = 10.0) -> bool:

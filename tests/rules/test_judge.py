@@ -13,24 +13,19 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
+from tests.helpers.records import make_metrics
 from watcher.config import BaselineSpec, Check, Condition, CusumSpec, EwmaSpec, ForecastSpec
 from watcher.records import (
     STATUS_RANK,
-    CalibrantDrift,
-    ExpectedIonResult,
     Finding,
     HistoryPoint,
     RunMetrics,
     Severity,
-    SignalMetrics,
     Status,
 )
 from watcher.rules.judge import History, judge
 
 T0 = datetime(2026, 4, 12, 1, 0, tzinfo=UTC)
-SILOXANE_MZ = 445.120025  # (C2H6SiO)6 + H+, check-ions.tsv
-LEU_ENK_MZ = 556.276575  # YGGFL [M+H]+, check-ions.tsv
-CAFFEINE_MZ = 195.087652  # C8H10N4O2 [M+H]+, check-ions.tsv
 
 
 def judge_at_t0(
@@ -39,64 +34,6 @@ def judge_at_t0(
     """``judge`` for a run acquired at T0, the time every test here measures from."""
     judged = judge(metrics, file_name=file_name, acquired_at=T0, checks=checks, history=history)
     return judged.status, judged.findings
-
-
-def make_metrics(
-    *,
-    file: str = "QC_0001.mzML",
-    tic: float | None = 1.0e6,
-    siloxane_ppm: float | None = 0.5,
-    leu_enk_ppm: float | None = -0.3,
-    caffeine_found: bool = True,
-    acquired_at: datetime | None = None,
-) -> RunMetrics:
-    """Run metrics for tests: two calibrants, one expected ion, a TIC median."""
-
-    def drift(name: str, mz: float, ppm: float | None) -> CalibrantDrift:
-        return CalibrantDrift(
-            name=name,
-            mz=mz,
-            median_ppm=ppm,
-            mad_ppm=0.2,
-            p05_ppm=None,
-            p95_ppm=None,
-            found_fraction=1.0 if ppm is not None else 0.0,
-            median_intensity=5.0e4,
-            slope_ppm_per_h=None,
-        )
-
-    return RunMetrics(
-        file=file,
-        format="mzML",
-        acquired_at=acquired_at,
-        signal=SignalMetrics(
-            ms1_count=600,
-            ms2_count=2400,
-            rt_start_s=0.0,
-            rt_end_s=720.0,
-            tic_median=tic,
-            bpi_median=None,
-            dropouts=0,
-            longest_dropout_s=0.0,
-        ),
-        calibrants=(
-            drift("siloxane-445", SILOXANE_MZ, siloxane_ppm),
-            drift("leu-enk", LEU_ENK_MZ, leu_enk_ppm),
-        ),
-        expected_ions=(
-            ExpectedIonResult(
-                name="caffeine",
-                mz=CAFFEINE_MZ,
-                found=caffeine_found,
-                apex_rt_s=180.0,
-                apex_intensity=2.0e5,
-                ppm=0.4,
-                fwhm_s=4.0,
-                m1_ratio=None,
-                m1_ratio_expected=None,
-            ),
-        ),
-    )
 
 
 class ListHistory:

@@ -13,7 +13,7 @@ from pathlib import Path
 
 import pytest
 
-from tests.rules.test_judge import make_metrics
+from tests.helpers.records import make_metrics
 from watcher.config import BaselineSpec, Check, Condition
 from watcher.records import Finding, RunFile, Severity, Status, Verdict
 from watcher.rules.judge import judge

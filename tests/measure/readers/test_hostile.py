@@ -8,8 +8,8 @@ from pathlib import Path
 
 import pytest
 
+from tests.helpers.badfiles import SECRET_MARKER, attack_files
 from tests.helpers.refdata import REFERENCE as SHARED_REFERENCE
-from tests.measure.badfiles import SECRET_MARKER, attack_files
 from watcher.errors import ReadError
 from watcher.intake.formats import completeness, sniff_format
 from watcher.measure.readers.read import open_run

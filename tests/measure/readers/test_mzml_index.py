@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 
 from synth import CalibrantTruth, RunSpec, write_mzml
-from tests.measure import badfiles as bf
+from tests.helpers import badfiles as bf
 from watcher.errors import ReadError
 from watcher.measure.readers import mzml, safexml
 from watcher.measure.readers import mzml_index as mzmlindex

@@ -20,8 +20,8 @@ import pynumpress
 import pytest
 from lxml import etree
 
-from tests.measure import badfiles as bf
-from tests.measure.badfiles import EXAMPLE, REFERENCE, TINY, gz, tsv_rows, write
+from tests.helpers import badfiles as bf
+from tests.helpers.badfiles import EXAMPLE, REFERENCE, TINY, gz, tsv_rows, write
 from watcher.errors import ReadError
 from watcher.measure.readers import cv, mzml
 from watcher.measure.readers.arrays import decode_array

@@ -1,7 +1,7 @@
 """Broken run files: each is caught by completeness() or open_run with a one-line, named error.
 
 The cases are docs/reliability.md item 2's truncation table (docs/reliability.md), rebuilt here
-from the reference files by tests/measure/badfiles.py.
+from the reference files by tests/helpers/badfiles.py.
 """
 
 from __future__ import annotations
@@ -15,7 +15,7 @@ from pathlib import Path
 
 import pytest
 
-from tests.measure import badfiles as bf
+from tests.helpers import badfiles as bf
 from watcher.errors import ReadError
 from watcher.intake.formats import check_complete, completeness
 from watcher.measure.readers.read import open_run

@@ -1,0 +1,204 @@
+"""The daemon as a real subprocess on real folders: ``Lab`` (one test's folders, config and
+observations of the SQLite file and health log) and ``Daemon`` (``ionwarden run``, its output in
+a file and an sd_notify socket of the test's own).
+
+Everything waits on observable effects with a deadline (rows in the SQLite file, lines in the
+health log, datagrams on a notify socket); nothing sleeps for a fixed time longer than a poll.
+"""
+
+from __future__ import annotations
+
+import json
+import signal
+import socket
+import sqlite3
+import subprocess
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import pytest
+
+from tests.helpers.cli import cli_env, command
+from tests.helpers.wait import wait_for
+
+SETTLE_S = 0.3
+
+
+def variant(template: bytes, n: int) -> bytes:
+    """The template with a comment after the XML declaration: same run, different content."""
+    head, _, rest = template.partition(b"?>")
+    return head + b"?>\n<!-- copy %d -->" % n + rest
+
+
+@dataclass
+class Lab:
+    """One test's folders and config; ``start()`` runs the daemon on them."""
+
+    root: Path
+    exports: Path
+    state: Path
+    config: Path
+    template: bytes
+    procs: list[Daemon] = field(default_factory=list)
+
+    def write_config(self, **overrides: Any) -> None:
+        watch = {"folders": [str(self.exports)], "settle_s": SETTLE_S, "rescan_interval_s": 600}
+        watch.update(overrides.pop("watch", {}))
+        cfg: dict[str, Any] = {
+            "instrument": {"name": "Kestrel-2 Q-TOF", "timezone": "UTC"},
+            "watch": watch,
+            "state_dir": str(self.state),
+            "calibrants": [{"name": "siloxane-445", "mz": 445.120025, "search_ppm": 30}],
+            "checks": [
+                {
+                    "name": "calibration drift",
+                    "metric": "calibrant.*.median_ppm",
+                    "warning": {"outside": [-3, 3]},
+                }
+            ],
+        }
+        cfg.update(overrides)
+        # JSON is YAML: no dumper needed, and no ambiguity in how values are written.
+        self.config.write_text(json.dumps(cfg, indent=1))
+
+    def run_bytes(self, n: int) -> bytes:
+        return variant(self.template, n)
+
+    def drop(self, name: str, n: int) -> Path:
+        path = self.exports / name
+        path.write_bytes(self.run_bytes(n))
+        return path
+
+    def start(self, *, env: dict[str, str] | None = None, ready: bool = True) -> Daemon:
+        d = Daemon(self, env or {})
+        self.procs.append(d)
+        if ready:
+            d.wait_ready()
+        return d
+
+    # -- observations --------------------------------------------------------------------------
+
+    def _query(self, sql: str, args: tuple[Any, ...] = ()) -> list[tuple[Any, ...]]:
+        db = self.state / "ionwarden.sqlite3"
+        if not db.exists():
+            return []
+        conn = sqlite3.connect(f"file:{db}?mode=ro", uri=True, timeout=10)
+        try:
+            return conn.execute(sql, args).fetchall()
+        except sqlite3.OperationalError:
+            return []  # tables not created yet
+        finally:
+            conn.close()
+
+    def runs(self) -> list[tuple[str, str, str | None]]:
+        """(file name, status, error) of every row in the run history."""
+        return [
+            (r[0], r[1], r[2]) for r in self._query("SELECT file_name, status, error FROM runs")
+        ]
+
+    def runs_by_name(self) -> dict[str, int]:
+        out: dict[str, int] = {}
+        for name, _, _ in self.runs():
+            out[name] = out.get(name, 0) + 1
+        return out
+
+    def jobs(self) -> list[tuple[str, str, str | None]]:
+        rows = self._query("SELECT path, state, outcome FROM jobs ORDER BY id")
+        return [(Path(r[0]).name, r[1], r[2]) for r in rows]
+
+    def health(self) -> list[dict[str, Any]]:
+        out = []
+        for path in sorted((self.state / "health").glob("health-*.jsonl")):
+            out += [json.loads(line) for line in path.read_text().splitlines() if line.strip()]
+        return out
+
+    def health_runs(self) -> list[dict[str, Any]]:
+        return [r for r in self.health() if r.get("type") == "run"]
+
+    def wait_runs(self, n: int, timeout_s: float = 20.0) -> list[tuple[str, str, str | None]]:
+        wait_for(lambda: len(self.runs()) >= n, timeout_s, f"{n} judged runs")
+        return self.runs()
+
+
+class Daemon:
+    """``python -m watcher run -c CONFIG`` with stderr in a file and a notify socket of our own."""
+
+    def __init__(self, lab: Lab, extra_env: dict[str, str]) -> None:
+        self.lab = lab
+        index = len(lab.procs)
+        self.log_path = lab.root / f"daemon{index}.stderr"
+        self.sock_path = lab.root / f"notify{index}.sock"
+        self.sock = socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM)
+        self.sock.bind(str(self.sock_path))
+        self.sock.setblocking(False)
+        self.messages: list[str] = []
+        # PYTHONFAULTHANDLER: a hung daemon dumps its threads on SIGABRT (see ``stop``).
+        env = cli_env(
+            set_env={"NOTIFY_SOCKET": str(self.sock_path), "PYTHONFAULTHANDLER": "1", **extra_env}
+        )
+        self._log = self.log_path.open("wb")
+        self.proc = subprocess.Popen(
+            command("run", "-c", lab.config),
+            cwd=lab.root,
+            env=env,
+            stdout=self._log,
+            stderr=subprocess.STDOUT,
+        )
+
+    def notes(self) -> list[str]:
+        """Every sd_notify datagram received so far."""
+        while True:
+            try:
+                self.messages.append(self.sock.recv(4096).decode())
+            except BlockingIOError:
+                return self.messages
+
+    def stderr(self) -> str:
+        return self.log_path.read_text(errors="replace")
+
+    def events(self) -> list[dict[str, Any]]:
+        out = []
+        for line in self.stderr().splitlines():
+            if line.startswith("{"):
+                try:
+                    out.append(json.loads(line))
+                except json.JSONDecodeError:
+                    continue  # a line cut by kill -9
+        return out
+
+    def wait_ready(self, timeout_s: float = 20.0) -> None:
+        def ready() -> bool:
+            if self.proc.poll() is not None:
+                pytest.fail(f"daemon exited {self.proc.returncode}:\n{self.stderr()[-3000:]}")
+            return "READY=1" in self.notes()
+
+        wait_for(ready, timeout_s, "READY=1 from the daemon")
+
+    def signal(self, sig: int) -> None:
+        self.proc.send_signal(sig)
+
+    def stop(self, timeout_s: float = 10.0) -> int:
+        """SIGTERM and wait; returns the exit code."""
+        if self.proc.poll() is None:
+            self.proc.send_signal(signal.SIGTERM)
+        try:
+            return self.proc.wait(timeout=timeout_s)
+        except subprocess.TimeoutExpired:
+            self.proc.send_signal(signal.SIGABRT)  # thread dump into the log, then gone
+            try:
+                self.proc.wait(timeout=5)
+            except subprocess.TimeoutExpired:
+                self.proc.kill()
+            pytest.fail(f"daemon did not stop within {timeout_s} s:\n{self.stderr()[-3000:]}")
+
+    def kill9(self) -> None:
+        self.proc.kill()
+        self.proc.wait(timeout=10)
+
+    def close(self) -> None:
+        if self.proc.poll() is None:
+            self.proc.kill()
+            self.proc.wait(timeout=10)
+        self._log.close()
+        self.sock.close()
