@@ -6,7 +6,7 @@ import json
 from pathlib import Path
 
 import synth
-from tests.helpers.daemon_lab import run_lines, write_config
+from tests.helpers.daemon import run_lines, write_lab_config
 from watcher import config as config_mod
 from watcher.daemon.main import Daemon
 
@@ -14,7 +14,7 @@ from watcher.daemon.main import Daemon
 def test_health_line_replayed_after_a_restart_is_the_same_line(tmp_path: Path) -> None:
     """A kill after the commit but before the health line: the next start writes it, and it is
     the line the first daemon wrote (rebuilt from the runs table, no pickled verdict)."""
-    config = config_mod.load(write_config(tmp_path))
+    config = config_mod.load(write_lab_config(tmp_path))
     spec = synth.RunSpec(duration_s=10, ms2_per_cycle=0, background_peaks=20, seed=7)
     synth.write_mzml(tmp_path / "exports" / "QC_001.mzML", spec, indexed=False)
     first = Daemon(config)

@@ -9,7 +9,7 @@ import sqlite3
 import time
 from pathlib import Path
 
-from tests.helpers.daemon_lab import write_config
+from tests.helpers.daemon import write_lab_config
 from watcher import config as config_mod
 from watcher.daemon import retention
 from watcher.daemon.main import Daemon
@@ -98,7 +98,7 @@ def test_nothing_is_pruned_while_a_watched_folder_is_empty_or_missing(tmp_path: 
 
 def test_the_daemon_prunes_at_start_up_with_health_log_keep_days(tmp_path: Path) -> None:
     """keep_days from the config: a 10-day-old row of a gone file goes with keep_days 7."""
-    cfg = write_config(tmp_path, health_log={"keep_days": 7})
+    cfg = write_lab_config(tmp_path, health_log={"keep_days": 7})
     exports = tmp_path / "exports"
     present = exports / "QC_present.mzML"
     present.write_bytes(b"12345")

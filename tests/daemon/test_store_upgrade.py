@@ -4,27 +4,23 @@ a store from a newer version is refused with exit 2 naming the file."""
 from __future__ import annotations
 
 import json
-import os
 import sqlite3
-import subprocess
-import sys
 from pathlib import Path
 
-from tests.helpers.daemon_lab import run_lines, write_config
-from tests.store.test_v1_fixture import copy_fixture
+from tests.helpers.cli import run_cli
+from tests.helpers.daemon import run_lines, write_lab_config
+from tests.helpers.store import copy_fixture
 from watcher import config as config_mod
 from watcher.cli.main import main as cli_main
 from watcher.daemon.main import Daemon
 from watcher.store import db
-
-REPO = Path(__file__).resolve().parents[2]
 
 
 def test_the_daemon_starts_on_the_version_1_store(tmp_path: Path) -> None:
     """Start, replay the newest health lines from the migrated runs table, stop; status reads it."""
     copy_fixture(tmp_path / "state")
     # A long retention: the fixture's rows are months old and stay (pruning is tested apart).
-    cfg = write_config(tmp_path, health_log={"keep_days": 36500})
+    cfg = write_lab_config(tmp_path, health_log={"keep_days": 36500})
     daemon = Daemon(config_mod.load(cfg))
     daemon.start()
     daemon.close()
@@ -39,7 +35,7 @@ def test_the_daemon_starts_on_the_version_1_store(tmp_path: Path) -> None:
 
 
 def _newer_store(tmp_path: Path) -> tuple[Path, Path]:
-    cfg = write_config(tmp_path)
+    cfg = write_lab_config(tmp_path)
     db.connect(tmp_path / "state").close()
     path = tmp_path / "state" / db.DB_NAME
     raw = sqlite3.connect(path)
@@ -49,23 +45,10 @@ def _newer_store(tmp_path: Path) -> tuple[Path, Path]:
     return cfg, path
 
 
-def _ionwarden(*args: str, cwd: Path) -> subprocess.CompletedProcess[str]:
-    env = dict(os.environ, PYTHONPATH=str(REPO))
-    return subprocess.run(
-        [sys.executable, "-m", "watcher", *args],
-        cwd=cwd,
-        env=env,
-        capture_output=True,
-        text=True,
-        timeout=60,
-        check=False,
-    )
-
-
 def test_the_daemon_refuses_a_store_from_a_newer_version_with_exit_2(tmp_path: Path) -> None:
     """The real ``ionwarden run`` process: exit 2 (systemd does not restart), the file named."""
     cfg, path = _newer_store(tmp_path)
-    done = _ionwarden("run", "-c", str(cfg), cwd=tmp_path)
+    done = run_cli("run", "-c", str(cfg), cwd=tmp_path)
     assert done.returncode == 2, done.stderr
     assert str(path) in done.stderr
     assert f"schema version {db.SCHEMA_VERSION + 1}" in done.stderr
@@ -77,6 +60,6 @@ def test_the_daemon_refuses_a_store_from_a_newer_version_with_exit_2(tmp_path: P
 
 def test_the_cli_refuses_a_store_from_a_newer_version_with_exit_2(tmp_path: Path) -> None:
     cfg, path = _newer_store(tmp_path)
-    done = _ionwarden("status", "-c", str(cfg), cwd=tmp_path)
+    done = run_cli("status", "-c", str(cfg), cwd=tmp_path)
     assert done.returncode == 2, done.stderr
     assert str(path) in done.stderr

@@ -3,19 +3,12 @@ by the current code: upgraded to the current version with every row intact."""
 
 from __future__ import annotations
 
-import shutil
 import sqlite3
 from pathlib import Path
 
+from tests.helpers.store import FIXTURE, copy_fixture
 from watcher.records import Status
 from watcher.store import db, history, jobs, outbox
-
-FIXTURE = Path(__file__).resolve().parents[1] / "data" / "store" / "ionwarden-v1.sqlite3"
-
-
-def copy_fixture(state_dir: Path) -> Path:
-    state_dir.mkdir(parents=True)
-    return Path(shutil.copyfile(FIXTURE, state_dir / db.DB_NAME))
 
 
 def test_the_fixture_is_a_pre_versioning_store() -> None:
