@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import dataclasses
 from dataclasses import dataclass
-from datetime import datetime
+from datetime import UTC, datetime
 from enum import StrEnum
 from pathlib import Path
 from typing import Any
@@ -229,6 +229,9 @@ class Verdict:
 
     run_file: RunFile
     status: Status
+    # When the run was made: the acquisition time the file states, else the file's modification
+    # time (an unreadable file, an mzXML or MGF export without a start time). ``run_time``.
+    acquired_at: datetime
     error: str | None = None  # one line; set when status is unreadable
     error_kind: str | None = None
     metrics: RunMetrics | None = None
@@ -242,6 +245,18 @@ class Verdict:
         out: dict[str, Any] = _jsonable(dataclasses.asdict(self))
         out["evaluated"] = sorted([list(pair) for pair in self.evaluated])
         return out
+
+
+def run_time(metrics: RunMetrics | None, run_file: RunFile, judged_at: datetime) -> datetime:
+    """A run's place in time: the acquisition time its file states, else the file's modification
+    time (when the instrument's export wrote it, which a person matches against the queue), else
+    the judgement time for a file that could not even be looked at. The one definition the
+    daemon, ``check``, the store, the alerts and the digest share."""
+    if metrics is not None and metrics.acquired_at is not None:
+        return metrics.acquired_at
+    if run_file.mtime_ns > 0:
+        return datetime.fromtimestamp(run_file.mtime_ns / 1e9, UTC)
+    return judged_at
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

@@ -7,6 +7,7 @@ from __future__ import annotations
 import os
 import sqlite3
 import time
+from datetime import UTC, datetime
 from pathlib import Path
 
 from tests.helpers.daemon import write_lab_config
@@ -70,6 +71,7 @@ def test_old_rows_of_gone_files_are_pruned_and_the_rest_kept(tmp_path: Path) -> 
             Verdict(
                 run_file=RunFile(path=exports / "QC_gone.mzML", size=5, mtime_ns=1),
                 status=Status.UNREADABLE,
+                acquired_at=datetime.fromtimestamp(1e-9, UTC),
                 error="truncated",
             ),
         )

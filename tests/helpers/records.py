@@ -125,6 +125,7 @@ def make_verdict(
     return Verdict(
         run_file=RunFile(path=folder / name, size=1000, mtime_ns=int(at_s * 1e9)),
         status=status,
+        acquired_at=datetime.fromtimestamp(at_s, UTC),
         error=error,
         findings=findings,
         evaluated=(

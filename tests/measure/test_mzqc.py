@@ -81,6 +81,7 @@ def _verdict(
             path=Path("/data/exports") / name, size=1000, mtime_ns=1, sha256="ab" * 32
         ),
         status=Status.OK if with_metrics else Status.UNREADABLE,
+        acquired_at=datetime(2026, 3, 2, 8, 0, tzinfo=UTC),
         metrics=metrics if with_metrics else None,
         error=None if with_metrics else f"{name}: unreadable: truncated",
     )

@@ -111,6 +111,7 @@ def _verdict(i: int, at: datetime, ppm: float, *, findings: tuple[Finding, ...] 
     return Verdict(
         run_file=RunFile(path=Path(f"/exports/QC_{i:03d}.mzML"), size=10, mtime_ns=i),
         status=status,
+        acquired_at=at,
         metrics=metrics,
         findings=findings,
         judged_at=at + timedelta(minutes=13),

@@ -111,6 +111,7 @@ def test_a_run_read_back_from_the_store_gives_the_same_line(tmp_path: Path, cloc
     verdict = Verdict(
         run_file=run_file,
         status=Status.WARNING,
+        acquired_at=at,
         metrics=metrics,
         findings=(finding,),
         judged_at=at,

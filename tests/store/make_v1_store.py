@@ -40,6 +40,7 @@ def _verdict(name: str, at_s: float, ppm: float | None) -> Verdict:
         return Verdict(
             run_file=run_file,
             status=Status.UNREADABLE,
+            acquired_at=at,
             error="truncated: the file ends inside a spectrum",
             error_kind="truncated",
             judged_at=at,
@@ -84,7 +85,12 @@ def _verdict(name: str, at_s: float, ppm: float | None) -> Verdict:
         )
     status = Status.WARNING if findings else Status.OK
     return Verdict(
-        run_file=run_file, status=status, metrics=metrics, findings=findings, judged_at=at
+        run_file=run_file,
+        status=status,
+        acquired_at=at,
+        metrics=metrics,
+        findings=findings,
+        judged_at=at,
     )
 
 

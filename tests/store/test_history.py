@@ -6,6 +6,7 @@ registered schema) and writes inside ``db.write``, as the daemon does.
 
 from __future__ import annotations
 
+import dataclasses
 import sqlite3
 from collections.abc import Iterator
 from datetime import UTC, datetime, timedelta
@@ -15,7 +16,7 @@ import pytest
 
 from tests.helpers.records import make_metrics
 from watcher.config import BaselineSpec, Check, Condition
-from watcher.records import Finding, RunFile, Severity, Status, Verdict
+from watcher.records import Finding, RunFile, Severity, Status, Verdict, run_time
 from watcher.rules.judge import judge
 from watcher.store import db
 from watcher.store.history import (
@@ -48,20 +49,24 @@ def verdict(
     judged_at: datetime | None = None,
     caffeine_found: bool = True,
 ) -> Verdict:
+    run_file = RunFile(
+        path=Path("/data/exports") / name, size=1234, mtime_ns=mtime_ns, sha256="ab" * 32
+    )
+    metrics = make_metrics(file=name, tic=tic, acquired_at=at, caffeine_found=caffeine_found)
+    judged = judged_at or (at or T0) + timedelta(minutes=2)
     return Verdict(
-        run_file=RunFile(
-            path=Path("/data/exports") / name, size=1234, mtime_ns=mtime_ns, sha256="ab" * 32
-        ),
+        run_file=run_file,
         status=status,
-        metrics=make_metrics(file=name, tic=tic, acquired_at=at, caffeine_found=caffeine_found),
+        acquired_at=run_time(metrics, run_file, judged),
+        metrics=metrics,
         findings=findings,
-        judged_at=judged_at or (at or T0) + timedelta(minutes=2),
+        judged_at=judged,
     )
 
 
-def record(conn: sqlite3.Connection, v: Verdict, **kwargs: datetime) -> int:
+def record(conn: sqlite3.Connection, v: Verdict) -> int:
     with db.write(conn):
-        return record_verdict(conn, v, **kwargs)
+        return record_verdict(conn, v)
 
 
 def test_schema_is_created_with_wal(conn: sqlite3.Connection) -> None:
@@ -101,9 +106,9 @@ def test_rolled_back_write_leaves_nothing(conn: sqlite3.Connection) -> None:
 
 
 def test_acquired_at_precedence(conn: sqlite3.Connection) -> None:
-    """acquired_at: the argument, else the file's own time stamp, else the file mtime."""
+    """acquired_at: the verdict's, which is the file's own time stamp, else the file mtime."""
     explicit = T0 - timedelta(days=1)
-    record(conn, verdict("a.mzML", at=T0), acquired_at=explicit)
+    record(conn, dataclasses.replace(verdict("a.mzML", at=T0), acquired_at=explicit))
     record(conn, verdict("b.mzML", at=T0))
     mtime_ns = 1_776_000_000_000_000_000  # 2026-04-12T13:20:00Z (date -d @1776000000 -u)
     record(conn, verdict("c.mzML", at=None, mtime_ns=mtime_ns))
@@ -121,9 +126,12 @@ def test_naive_times_are_taken_as_utc(conn: sqlite3.Connection) -> None:
 
 def test_unreadable_run_is_recorded_without_metrics(conn: sqlite3.Connection) -> None:
     """An unreadable verdict keeps its error, no metrics rows, acquired at the file mtime."""
+    mtime_ns = 1_776_000_000_000_000_000  # 2026-04-12T13:20:00Z (date -d @1776000000 -u)
+    run_file = RunFile(path=Path("/data/exports/QC_0413.mzML"), size=10, mtime_ns=mtime_ns)
     v = Verdict(
-        run_file=RunFile(path=Path("/data/exports/QC_0413.mzML"), size=10, mtime_ns=0),
+        run_file=run_file,
         status=Status.UNREADABLE,
+        acquired_at=run_time(None, run_file, T0),
         error="QC_0413.mzML: unreadable: XML ends inside spectrum 812",
         error_kind="truncated",
     )
@@ -131,7 +139,7 @@ def test_unreadable_run_is_recorded_without_metrics(conn: sqlite3.Connection) ->
     (row,) = recent_runs(conn)
     assert (row.run_id, row.status, row.metrics) == (run_id, Status.UNREADABLE, {})
     assert row.error == v.error
-    assert row.acquired_at == datetime(1970, 1, 1, tzinfo=UTC)
+    assert row.acquired_at == datetime(2026, 4, 12, 13, 20, tzinfo=UTC)
     assert conn.execute("SELECT count(*) FROM metrics").fetchone()[0] == 0
 
 
@@ -240,6 +248,7 @@ def test_thirty_runs_judged_against_the_real_store(tmp_path: Path) -> None:
         v = Verdict(
             run_file=RunFile(path=tmp_path / name, size=100 + i, mtime_ns=i, sha256=f"{i:064x}"),
             status=status,
+            acquired_at=at,
             metrics=metrics,
             findings=findings,
             judged_at=at,
@@ -268,3 +277,17 @@ def test_thirty_runs_judged_against_the_real_store(tmp_path: Path) -> None:
     reopened = db.connect(tmp_path / "state", readonly=True)
     assert len(recent_runs(reopened, limit=100)) == 30
     reopened.close()
+
+
+def test_run_time_is_acquisition_else_mtime_else_judgement() -> None:
+    """One definition of a run's time for the store, the alerts and the digest."""
+    judged = T0 + timedelta(hours=3)
+    mtime_ns = 1_776_000_000_000_000_000  # 2026-04-12T13:20:00Z (date -d @1776000000 -u)
+    with_mtime = RunFile(path=Path("/data/exports/x.mzXML"), size=1, mtime_ns=mtime_ns)
+    no_stat = RunFile(path=Path("/data/exports/gone.mzML"), size=0, mtime_ns=0)
+    stamped = make_metrics(file="x.mzML", acquired_at=T0)
+    unstamped = make_metrics(file="x.mzXML", acquired_at=None)
+    assert run_time(stamped, with_mtime, judged) == T0
+    assert run_time(unstamped, with_mtime, judged) == datetime(2026, 4, 12, 13, 20, tzinfo=UTC)
+    assert run_time(None, with_mtime, judged) == datetime(2026, 4, 12, 13, 20, tzinfo=UTC)
+    assert run_time(None, no_stat, judged) == judged

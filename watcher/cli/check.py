@@ -24,7 +24,7 @@ from typing import Any, TextIO
 
 from watcher.cli.exitcodes import ExitCode
 from watcher.config import Config
-from watcher.records import ReadFailure, RunFile, RunMetrics, Status, Verdict
+from watcher.records import ReadFailure, RunFile, RunMetrics, Status, Verdict, run_time
 
 Progress = Callable[[int, int], None]
 
@@ -108,7 +108,7 @@ def check_file(
     if isinstance(outcome, ReadFailure):
         return _unreadable(run_file, outcome.reason, outcome.kind, judged_at)
     metrics = outcome
-    acquired_at = metrics.acquired_at or datetime.fromtimestamp(st.st_mtime, tz=UTC)
+    acquired_at = run_time(metrics, run_file, judged_at)
     judgement = judge(
         metrics,
         file_name=path.name,
@@ -119,6 +119,7 @@ def check_file(
     return Verdict(
         run_file=run_file,
         status=judgement.status,
+        acquired_at=acquired_at,
         metrics=metrics,
         findings=judgement.findings,
         evaluated=judgement.evaluated,
@@ -191,6 +192,7 @@ def _unreadable(run_file: RunFile, reason: str, kind: str, judged_at: datetime) 
     return Verdict(
         run_file=run_file,
         status=Status.UNREADABLE,
+        acquired_at=run_time(None, run_file, judged_at),
         error=f"{run_file.path.name}: unreadable: {reason}",
         error_kind=kind,
         judged_at=judged_at,

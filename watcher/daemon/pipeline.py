@@ -29,7 +29,7 @@ import structlog
 
 from watcher.config import Config, Limits
 from watcher.daemon.child import HEADER, READY, frame
-from watcher.records import RunFile, RunMetrics, Status, Verdict
+from watcher.records import RunFile, RunMetrics, Status, Verdict, run_time
 from watcher.store import db, history, jobs
 
 log = structlog.get_logger("watcher.daemon.pipeline")
@@ -301,10 +301,10 @@ class Pipeline:
             else:
                 log.warning("run.unreadable", kind=result.error_kind, reason=result.error)
         run_file = RunFile(path=path, size=job.size, mtime_ns=job.mtime_ns, sha256=sha256)
-        verdict, acquired_at = self._judge(config, run_file, result)
+        verdict = self._judge(config, run_file, result)
         now_s = self.clock()
         with db.write(self.conn):
-            run_id = _record_verdict(self.conn, verdict, acquired_at)
+            run_id = history.record_verdict(self.conn, verdict)
             if self.notifier is not None:
                 self.notifier.record_verdict(self.conn, verdict, run_id, now_s)
             jobs.finish(
@@ -339,24 +339,21 @@ class Pipeline:
         if row is not None:
             self.notifier.write_stored_health(row)
 
-    def _judge(
-        self, config: Config, run_file: RunFile, result: ChildResult
-    ) -> tuple[Verdict, datetime]:
+    def _judge(self, config: Config, run_file: RunFile, result: ChildResult) -> Verdict:
         judged_at = datetime.fromtimestamp(self.clock(), UTC)
-        mtime_at = datetime.fromtimestamp(run_file.mtime_ns / 1e9, UTC)
         metrics = result.metrics
+        acquired_at = run_time(metrics, run_file, judged_at)
         if metrics is None:
-            verdict = Verdict(
+            return Verdict(
                 run_file=run_file,
                 status=Status.UNREADABLE,
+                acquired_at=acquired_at,
                 error=result.error,
                 error_kind=result.error_kind,
                 judged_at=judged_at,
             )
-            return verdict, mtime_at
         from watcher.rules.judge import judge
 
-        acquired_at = metrics.acquired_at or mtime_at
         judgement = judge(
             metrics,
             file_name=run_file.path.name,
@@ -364,15 +361,15 @@ class Pipeline:
             checks=config.checks,
             history=history.StoreHistory(self.conn),
         )
-        verdict = Verdict(
+        return Verdict(
             run_file=run_file,
             status=judgement.status,
+            acquired_at=acquired_at,
             metrics=metrics,
             findings=judgement.findings,
             evaluated=judgement.evaluated,
             judged_at=judged_at,
         )
-        return verdict, acquired_at
 
     def fail(self, job: jobs.Job, outcome: str) -> None:
         """Mark a claimed job ``failed`` with ``outcome``, in its own transaction."""
@@ -392,8 +389,3 @@ class Pipeline:
         for run_id in reversed(run_ids):
             self.write_health(run_id)
         return len(run_ids)
-
-
-def _record_verdict(conn: sqlite3.Connection, verdict: Verdict, acquired_at: datetime) -> int:
-    run_id: int = history.record_verdict(conn, verdict, acquired_at=acquired_at)
-    return run_id

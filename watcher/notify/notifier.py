@@ -130,16 +130,15 @@ class Notifier:
             findings.append(unreadable_finding(verdict))
         file_name = verdict.run_file.path.name
         configured = {c.name for c in self.config.checks}
-        acquired_at = verdict.metrics.acquired_at if verdict.metrics is not None else None
-        # Without an acquisition time (unreadable file, mzXML), the file's mtime says when the
-        # instrument wrote it, which is what a person matches against the queue.
-        written_at = datetime.fromtimestamp(verdict.run_file.mtime_ns / 1e9, UTC)
-        if acquired_at is not None:
-            at, at_what = acquired_at, "acquired"
+        # The verdict's time is the acquisition time, else the file's mtime, else the judgement
+        # (``watcher.records.run_time``); the message says which one it shows.
+        at = verdict.acquired_at
+        if verdict.metrics is not None and verdict.metrics.acquired_at is not None:
+            at_what = "acquired"
         elif verdict.run_file.mtime_ns > 0:
-            at, at_what = written_at, "file written"
+            at_what = "file written"
         else:
-            at, at_what = verdict.judged_at or datetime.fromtimestamp(now_s, UTC), "judged"
+            at_what = "judged"
         for channel in self.config.alerts.channels:
             wanted: dict[tuple[str, str], Finding] = {}
             for f in findings:

@@ -98,22 +98,16 @@ def _clean(value: float | bool | None) -> float | bool | None:
     return value
 
 
-def record_verdict(
-    conn: sqlite3.Connection, verdict: Verdict, *, acquired_at: datetime | None = None
-) -> int:
+def record_verdict(conn: sqlite3.Connection, verdict: Verdict) -> int:
     """Insert or update the run row of ``verdict`` and its metrics; returns its ``run_id``.
 
     Call inside the caller's ``db.write(conn)`` transaction. Idempotent: the same file identity
     (path, size, mtime_ns, sha256) keeps one row and the same ``run_id``; its metrics rows are
-    replaced. The acquisition time is ``acquired_at``, else ``metrics.acquired_at``, else the
-    file's mtime.
+    replaced. The run's time is ``verdict.acquired_at`` (``watcher.records.run_time``).
     """
     run_file = verdict.run_file
     metrics = verdict.metrics
-    if acquired_at is None and metrics is not None:
-        acquired_at = metrics.acquired_at
-    if acquired_at is None:
-        acquired_at = datetime.fromtimestamp(run_file.mtime_ns / 1e9, tz=UTC)
+    acquired_at = verdict.acquired_at
     judged_at = verdict.judged_at or datetime.now(tz=UTC)
     flat = {k: _clean(v) for k, v in metrics.flat().items()} if metrics is not None else {}
     acquired_text = to_text(acquired_at)
