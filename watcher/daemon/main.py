@@ -27,7 +27,7 @@ import structlog
 from watcher import config as config_mod
 from watcher.config import Config, state_dir_of
 from watcher.daemon import logs, norun_alert, retention, sdnotify
-from watcher.daemon.pipeline import Pipeline, time_limit_s
+from watcher.daemon.pipeline import JobOutcome, Pipeline, time_limit_s
 from watcher.errors import (
     ConfigError,
     ConfigProblem,
@@ -367,7 +367,7 @@ class Daemon:
             self._busy_limit_s = time_limit_s(self.config.limits, job.size)
             self._busy_since = time.monotonic()
             try:
-                if pipeline.process(job) == "requeued" and not self.stop_event.is_set():
+                if pipeline.process(job) is JobOutcome.REQUEUED and not self.stop_event.is_set():
                     self.stop_event.wait(5.0)  # the child could not start: do not spin
             except Exception:
                 log.exception("run.failed", file=str(job.path))

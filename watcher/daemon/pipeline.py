@@ -22,8 +22,9 @@ import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
+from enum import StrEnum
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import structlog
 
@@ -32,9 +33,21 @@ from watcher.daemon.child import HEADER, READY, frame
 from watcher.records import RunFile, RunMetrics, Status, Verdict, run_time
 from watcher.store import db, history, jobs
 
+if TYPE_CHECKING:
+    from watcher.notify.notifier import Notifier
+
 log = structlog.get_logger("watcher.daemon.pipeline")
 
 _HASH_CHUNK = 1 << 20
+
+
+class JobOutcome(StrEnum):
+    """How ``Pipeline.process`` ended a job (the job row's outcome says more: the status)."""
+
+    JUDGED = "judged"  # measured (or found unreadable), judged, stored and alerted on
+    DUPLICATE = "duplicate"  # the same content as a run already judged: linked to it
+    SKIPPED = "skipped"  # vanished, changed or unreadable before measuring: the job failed
+    REQUEUED = "requeued"  # the daemon is stopping or the child could not start: queued again
 
 
 class Stopped(Exception):
@@ -217,20 +230,20 @@ class Pipeline:
     Attributes:
         config: the config in force (replaced on reload; read once per job).
         conn: the worker's own SQLite connection.
-        notifier: the alerting service, or None when notify is not available.
+        notifier: the notify stage: alerts inside the run's transaction, the health log after.
         stop: set when the daemon stops; a job in flight goes back to the queue.
         clock: wall-clock seconds.
     """
 
     config: Config
     conn: sqlite3.Connection
-    notifier: Any
+    notifier: Notifier
     stop: threading.Event
     clock: Callable[[], float] = time.time
     last_file: str | None = None
     child: MeasuringChild = field(default_factory=MeasuringChild)
 
-    def reconfigure(self, config: Config, notifier: Any) -> None:
+    def reconfigure(self, config: Config, notifier: Notifier) -> None:
         """Use a reloaded config and its notifier from the next job on (the job in flight keeps
         the config it started with)."""
         self.config = config
@@ -240,7 +253,7 @@ class Pipeline:
         """Stop the measuring child; the pipeline starts a new one if it is used again."""
         self.child.close()
 
-    def process(self, job: jobs.Job) -> str:
+    def process(self, job: jobs.Job) -> JobOutcome:
         """Take a claimed job to ``done`` (back to ``queued`` when stopping); returns outcome."""
         config = self.config
         structlog.contextvars.bind_contextvars(job_id=job.id, file=str(job.path))
@@ -252,61 +265,79 @@ class Pipeline:
                 jobs.release(self.conn, job.id, self.clock())
             why = "daemon stopping" if isinstance(exc, Stopped) else str(exc)
             log.info("run.requeued", reason=why)
-            return "requeued"
+            return JobOutcome.REQUEUED
         finally:
             structlog.contextvars.unbind_contextvars("job_id", "file", "run_id")
 
-    def _process(self, config: Config, job: jobs.Job) -> str:
-        path = job.path
-        sha256: str | None = job.sha256
-        result: ChildResult
+    def _process(self, config: Config, job: jobs.Job) -> JobOutcome:
+        """Prepare (identity, duplicate), measure (in the child), commit (store, alerts, log)."""
         if job.incomplete is not None:
-            result = ChildResult(None, "incomplete", job.incomplete)
+            return self._commit(
+                config, job, job.sha256, ChildResult(None, "incomplete", job.incomplete)
+            )
+        prepared = self._prepare(job)
+        if isinstance(prepared, JobOutcome):
+            return prepared
+        return self._commit(config, job, prepared, self._measure(config, job))
+
+    def _prepare(self, job: jobs.Job) -> str | JobOutcome:
+        """The file's content hash, or the outcome when the job ends here: the file vanished or
+        changed since it settled, cannot be read, or holds what an earlier run already held."""
+        path = job.path
+        try:
+            st = path.stat()
+        except OSError:
+            return self._drop(job, "vanished before it was measured")
+        if (st.st_size, st.st_mtime_ns) != (job.size, job.mtime_ns):
+            # Changed since it settled: the new identity gets its own job from the next look.
+            return self._drop(job, "changed before it was measured")
+        try:
+            sha256 = sha256_file(path, self.stop)
+        except OSError as exc:
+            return self._drop(job, f"cannot be read: {exc.strerror}")
+        # One worker: no other job can finish between this read and the commit.
+        twin = jobs.same_content(self.conn, sha256, job.id)
+        if twin is None:
+            return sha256
+        with db.write(self.conn):
+            jobs.finish(
+                self.conn,
+                job.id,
+                self.clock(),
+                state=jobs.JobState.DONE,
+                outcome=JobOutcome.DUPLICATE,
+                run_id=twin.run_id,
+                duplicate_of=twin.id,
+                sha256=sha256,
+            )
+        log.info("run.duplicate", same_as=str(twin.path), run_id=twin.run_id)
+        return JobOutcome.DUPLICATE
+
+    def _measure(self, config: Config, job: jobs.Job) -> ChildResult:
+        """The run's metrics from the measuring child, or why there are none."""
+        started = time.monotonic()
+        result = self.child.measure(config, job.path, job.size, self.stop)
+        if result.metrics is not None:
+            log.info(
+                "run.measured",
+                duration_s=round(time.monotonic() - started, 3),
+                ms1_count=result.metrics.signal.ms1_count,
+            )
         else:
-            try:
-                st = path.stat()
-            except OSError:
-                return self._drop(job, "vanished before it was measured")
-            if (st.st_size, st.st_mtime_ns) != (job.size, job.mtime_ns):
-                # Changed since it settled: the new identity gets its own job from the next look.
-                return self._drop(job, "changed before it was measured")
-            try:
-                sha256 = sha256_file(path, self.stop)
-            except OSError as exc:
-                return self._drop(job, f"cannot be read: {exc.strerror}")
-            # One worker: no other job can finish between this read and the write below.
-            twin = jobs.same_content(self.conn, sha256, job.id)
-            if twin is not None:
-                with db.write(self.conn):
-                    jobs.finish(
-                        self.conn,
-                        job.id,
-                        self.clock(),
-                        state=jobs.JobState.DONE,
-                        outcome="duplicate",
-                        run_id=twin.run_id,
-                        duplicate_of=twin.id,
-                        sha256=sha256,
-                    )
-                log.info("run.duplicate", same_as=str(twin.path), run_id=twin.run_id)
-                return "duplicate"
-            started = time.monotonic()
-            result = self.child.measure(config, path, job.size, self.stop)
-            if result.metrics is not None:
-                log.info(
-                    "run.measured",
-                    duration_s=round(time.monotonic() - started, 3),
-                    ms1_count=result.metrics.signal.ms1_count,
-                )
-            else:
-                log.warning("run.unreadable", kind=result.error_kind, reason=result.error)
-        run_file = RunFile(path=path, size=job.size, mtime_ns=job.mtime_ns, sha256=sha256)
+            log.warning("run.unreadable", kind=result.error_kind, reason=result.error)
+        return result
+
+    def _commit(
+        self, config: Config, job: jobs.Job, sha256: str | None, result: ChildResult
+    ) -> JobOutcome:
+        """Judge, then store the run, its alerts and the job's end in one transaction; the
+        health-log line follows the commit."""
+        run_file = RunFile(path=job.path, size=job.size, mtime_ns=job.mtime_ns, sha256=sha256)
         verdict = self._judge(config, run_file, result)
         now_s = self.clock()
         with db.write(self.conn):
             run_id = history.record_verdict(self.conn, verdict)
-            if self.notifier is not None:
-                self.notifier.record_verdict(self.conn, verdict, run_id, now_s)
+            self.notifier.record_verdict(self.conn, verdict, run_id, now_s)
             jobs.finish(
                 self.conn,
                 job.id,
@@ -318,14 +349,14 @@ class Pipeline:
             )
         structlog.contextvars.bind_contextvars(run_id=run_id)
         self.write_health(run_id)
-        self.last_file = path.name
+        self.last_file = job.path.name
         log.info(
             "run.judged",
             status=str(verdict.status),
             findings=len(verdict.findings),
             error=verdict.error,
         )
-        return str(verdict.status)
+        return JobOutcome.JUDGED
 
     def write_health(self, run_id: int) -> None:
         """The health-log line, after the commit; idempotent by run_id.
@@ -333,8 +364,6 @@ class Pipeline:
         Built from the run as stored, not from the verdict in memory, so that the line written
         now and the one re-offered after a restart (``resume_health_lines``) are the same.
         """
-        if self.notifier is None:
-            return
         row = history.get_run(self.conn, run_id)
         if row is not None:
             self.notifier.write_stored_health(row)
@@ -378,10 +407,10 @@ class Pipeline:
                 self.conn, job.id, self.clock(), state=jobs.JobState.FAILED, outcome=outcome
             )
 
-    def _drop(self, job: jobs.Job, why: str) -> str:
+    def _drop(self, job: jobs.Job, why: str) -> JobOutcome:
         self.fail(job, why)
         log.info("run.skipped", reason=why)
-        return "skipped"
+        return JobOutcome.SKIPPED
 
     def resume_health_lines(self) -> int:
         """Start-up: re-offer the newest health lines (a kill may have cut one off)."""
