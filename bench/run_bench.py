@@ -34,11 +34,10 @@ import subprocess
 import sys
 import time
 import zlib
-from collections.abc import Callable
 from datetime import UTC, datetime
 from functools import partial
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 ROOT = Path(__file__).resolve().parents[1]
 OUT = ROOT / "bench" / "out"
@@ -47,6 +46,9 @@ SPEC_VERSION = "1"  # bump when the generated runs change, to invalidate the cac
 sys.path.insert(0, str(ROOT))
 
 from synth import CalibrantTruth, RunSpec, TargetTruth, write_mzml  # noqa: E402
+
+if TYPE_CHECKING:
+    from collections.abc import Callable
 
 _MZML_NS = "{http://psi.hupo.org/ms/mzml}"
 

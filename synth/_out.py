@@ -6,12 +6,14 @@ import base64
 import gzip
 import hashlib
 import zlib
-from pathlib import Path
-from types import TracebackType
-from typing import BinaryIO
+from typing import TYPE_CHECKING, BinaryIO
 
 import numpy as np
 import numpy.typing as npt
+
+if TYPE_CHECKING:
+    from pathlib import Path
+    from types import TracebackType
 
 _FLUSH_BYTES = 1 << 20
 

@@ -21,11 +21,13 @@ import math
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 from zoneinfo import ZoneInfo
 
 from synth import CalibrantTruth, RunSpec, TargetTruth, write_mzml, write_mzxml
-from synth.model import RunTruth
+
+if TYPE_CHECKING:
+    from synth.model import RunTruth
 
 TZ = ZoneInfo("Europe/Oslo")
 QUEUE_START = datetime(2026, 11, 27, 18, 0, tzinfo=TZ)  # a Friday evening

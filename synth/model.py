@@ -8,12 +8,15 @@ whatever file format they are written to. The writers (``synth.mzml``, ``synth.m
 from __future__ import annotations
 
 import math
-from collections.abc import Iterator
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
+from typing import TYPE_CHECKING
 
 import numpy as np
 import numpy.typing as npt
+
+if TYPE_CHECKING:
+    from collections.abc import Iterator
 
 FloatArray = npt.NDArray[np.float64]
 

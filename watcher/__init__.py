@@ -3,8 +3,10 @@
 from __future__ import annotations
 
 import importlib
-from collections.abc import Callable
-from typing import Any
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:
+    from collections.abc import Callable
 
 __version__ = "0.1.0"
 

@@ -2,9 +2,12 @@
 
 from __future__ import annotations
 
-from pathlib import Path
+from typing import TYPE_CHECKING
 
 from tests.helpers.cli import run_cli
+
+if TYPE_CHECKING:
+    from pathlib import Path
 
 
 def test_digest_without_state_database_is_one_clear_line(tmp_path: Path) -> None:

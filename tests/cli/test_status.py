@@ -3,12 +3,15 @@
 from __future__ import annotations
 
 import json
-from pathlib import Path
+from typing import TYPE_CHECKING
 
 from tests.helpers.cli import Result, run_cli
 from watcher.notify.alert_state import AlertState
 from watcher.records import Finding, Severity
 from watcher.store import db, outbox
+
+if TYPE_CHECKING:
+    from pathlib import Path
 
 
 def _config(tmp_path: Path, state: Path) -> Path:

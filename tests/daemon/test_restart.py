@@ -3,12 +3,15 @@
 from __future__ import annotations
 
 import json
-from pathlib import Path
+from typing import TYPE_CHECKING
 
 import synth
 from tests.helpers.daemon import run_lines, write_lab_config
 from watcher import config as config_mod
 from watcher.daemon.main import Daemon
+
+if TYPE_CHECKING:
+    from pathlib import Path
 
 
 def test_health_line_replayed_after_a_restart_is_the_same_line(tmp_path: Path) -> None:

@@ -5,10 +5,9 @@ stay."""
 from __future__ import annotations
 
 import os
-import sqlite3
 import time
 from datetime import UTC, datetime
-from pathlib import Path
+from typing import TYPE_CHECKING
 
 from tests.helpers.daemon import write_lab_config
 from watcher import config as config_mod
@@ -16,6 +15,10 @@ from watcher.daemon import retention
 from watcher.daemon.main import Daemon
 from watcher.records import RunFile, Status, Verdict
 from watcher.store import db, history, jobs
+
+if TYPE_CHECKING:
+    import sqlite3
+    from pathlib import Path
 
 NOW_S = 1_800_000_000.0  # 2027-01-15
 DAY_S = 86400.0

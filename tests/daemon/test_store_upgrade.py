@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import json
 import sqlite3
-from pathlib import Path
+from typing import TYPE_CHECKING
 
 from tests.helpers.cli import run_cli
 from tests.helpers.daemon import run_lines, write_lab_config
@@ -14,6 +14,9 @@ from watcher import config as config_mod
 from watcher.cli.main import main as cli_main
 from watcher.daemon.main import Daemon
 from watcher.store import db
+
+if TYPE_CHECKING:
+    from pathlib import Path
 
 
 def test_the_daemon_starts_on_the_version_1_store(tmp_path: Path) -> None:

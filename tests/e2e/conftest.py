@@ -4,13 +4,16 @@ daemons are killed after the test if still running; the receiver fixture is in t
 
 from __future__ import annotations
 
-from collections.abc import Iterator
-from pathlib import Path
+from typing import TYPE_CHECKING
 
 import pytest
 
 import synth
 from tests.helpers.daemon import Lab
+
+if TYPE_CHECKING:
+    from collections.abc import Iterator
+    from pathlib import Path
 
 
 @pytest.fixture(scope="session")

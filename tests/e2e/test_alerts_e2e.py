@@ -14,18 +14,21 @@ import json
 import re
 import sqlite3
 from datetime import UTC, datetime, timedelta
-from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import pytest
 
 import synth
 from tests.helpers import browser
 from tests.helpers.cli import Result, run_cli
-from tests.helpers.daemon import Lab
-from tests.helpers.receiver import Receiver
 from tests.helpers.refdata import REFERENCE
 from tests.helpers.wait import wait_for
+
+if TYPE_CHECKING:
+    from pathlib import Path
+
+    from tests.helpers.daemon import Lab
+    from tests.helpers.receiver import Receiver
 
 SILOXANE_MZ = 445.120025  # polysiloxane background ion [C2H6SiO]6+H+ (common practice, lock mass)
 DAY = datetime(2026, 11, 27, 18, 0, tzinfo=UTC)

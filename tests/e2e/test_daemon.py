@@ -13,13 +13,17 @@ import shutil
 import signal
 import time
 from collections import Counter
-from pathlib import Path
+from typing import TYPE_CHECKING
 
 import pytest
 
 from tests.helpers.daemon import SETTLE_S, Lab
-from tests.helpers.receiver import Receiver
 from tests.helpers.wait import wait_for
+
+if TYPE_CHECKING:
+    from pathlib import Path
+
+    from tests.helpers.receiver import Receiver
 
 
 def _assert_once(lab: Lab, names: set[str]) -> None:

@@ -4,11 +4,14 @@ from __future__ import annotations
 
 import json
 import re
-from pathlib import Path
+from typing import TYPE_CHECKING
 
 import pytest
 
 from tests.helpers.cli import REPO, Result, run_cli
+
+if TYPE_CHECKING:
+    from pathlib import Path
 
 TRUTH = json.loads((REPO / "demo_drop" / "TRUTH.json").read_text())["queue"]
 

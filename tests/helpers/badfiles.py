@@ -13,10 +13,13 @@ import gzip
 import hashlib
 import re
 import zlib
-from collections.abc import Iterator
-from pathlib import Path
+from typing import TYPE_CHECKING
 
 from tests.helpers.refdata import REFERENCE as SHARED_REFERENCE
+
+if TYPE_CHECKING:
+    from collections.abc import Iterator
+    from pathlib import Path
 
 REFERENCE = SHARED_REFERENCE
 TINY = REFERENCE / "mzml" / "tiny.pwiz.1.1.mzML"  # indexed, uncompressed, mixed RT units

@@ -10,8 +10,11 @@ from __future__ import annotations
 import os
 import subprocess
 import sys
-from collections.abc import Iterable, Mapping
 from pathlib import Path
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from collections.abc import Iterable, Mapping
 
 REPO = Path(__file__).resolve().parents[2]
 

@@ -2,13 +2,17 @@
 
 from __future__ import annotations
 
-from pathlib import Path
+from typing import TYPE_CHECKING
 
-from tests.helpers.clock import Clock
 from tests.helpers.records import make_verdict
-from watcher.config import Config
 from watcher.notify.notifier import Notifier
 from watcher.store import db
+
+if TYPE_CHECKING:
+    from pathlib import Path
+
+    from tests.helpers.clock import Clock
+    from watcher.config import Config
 
 FAST = {"backoff_base_s": 0.05, "backoff_max_s": 0.2, "poll_s": 0.02}
 

@@ -8,12 +8,15 @@ elution as a known Gaussian, M+1 at a known ratio); random background peaks are 
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from watcher.measure.scan import FloatArray, RunHeader, Scan
+
+if TYPE_CHECKING:
+    from collections.abc import Callable, Sequence
 
 C13_SPACING_DA = 1.0033548378  # 13C - 12C (NIST atomic masses, as tabulated in pyteomics)
 SIGMA_PER_FWHM = 1.0 / (2.0 * math.sqrt(2.0 * math.log(2.0)))  # Gaussian: FWHM = 2.3548 sigma

@@ -3,13 +3,16 @@
 from __future__ import annotations
 
 import os
-from pathlib import Path
+from typing import TYPE_CHECKING
 
 import pytest
 
 from watcher.config import Watch
 from watcher.intake.folderwalk import is_run_name, is_run_path, unknown, walk
 from watcher.intake.readiness import FileStat
+
+if TYPE_CHECKING:
+    from pathlib import Path
 
 PATTERNS = Watch().patterns
 IGNORE = Watch().ignore

@@ -3,13 +3,16 @@
 from __future__ import annotations
 
 import hashlib
-from pathlib import Path
+from typing import TYPE_CHECKING
 
 import pytest
 
 from tests.helpers import badfiles as bf
 from watcher.errors import ReadError
 from watcher.intake.formats import check_complete, completeness, sniff, sniff_format
+
+if TYPE_CHECKING:
+    from pathlib import Path
 
 # Expected formats: files.tsv `format` and `indexed` columns (tests/data).
 WHOLE = {

@@ -2,12 +2,16 @@
 
 from __future__ import annotations
 
-from pathlib import Path
+from typing import TYPE_CHECKING
 
 from watcher.config import Watch
 from watcher.intake import watch
 from watcher.intake.pending import Settled, Settler
-from watcher.intake.readiness import FileStat
+
+if TYPE_CHECKING:
+    from pathlib import Path
+
+    from watcher.intake.readiness import FileStat
 
 # MGF blocks open with BEGIN IONS and close with END IONS (common practice for the format).
 WHOLE_MGF = "BEGIN IONS\nPEPMASS=445.12\n445.12 1000\nEND IONS\n"

@@ -7,12 +7,15 @@ import os
 import queue
 import shutil
 import time
-from pathlib import Path
+from typing import TYPE_CHECKING
 
 import pytest
 
 from watcher.config import Watch
 from watcher.intake.watch import Hint, RescanFlag, start_watching, stop_watching
+
+if TYPE_CHECKING:
+    from pathlib import Path
 
 
 def _collect(hints: queue.Queue[Hint], want: set[Path], deadline_s: float = 5.0) -> set[Hint]:

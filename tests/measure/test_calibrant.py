@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import numpy as np
 import pytest
 from hypothesis import given, settings
@@ -13,8 +15,10 @@ from watcher.measure import robust
 from watcher.measure.calibrant import CalibrantTrace, mass_correction
 from watcher.measure.ions import resolve
 from watcher.measure.run import measure_scans
-from watcher.measure.scan import Scan
 from watcher.records import CalibrantDrift, RunMetrics
+
+if TYPE_CHECKING:
+    from watcher.measure.scan import Scan
 
 SILOXANE_MZ = 445.120025  # check-ions.tsv (tests/data), [(C2H6SiO)6+H]+
 LEU_ENK_MZ = 556.276575  # check-ions.tsv (tests/data), YGGFL [M+H]+

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import numpy as np
 import pytest
 
@@ -9,7 +11,9 @@ from tests.helpers.spectra import make_run, tic_scans
 from watcher.config import SignalSettings
 from watcher.measure.scan import Scan
 from watcher.measure.signal import SignalTrace, find_dropouts
-from watcher.records import SignalMetrics
+
+if TYPE_CHECKING:
+    from watcher.records import SignalMetrics
 
 # Constructed TIC trace, one MS1 scan per second from RT 0 (ground truth by construction):
 # median 100; runs below 10 (0.1 x median): scans 10-12 (3 scans, next normal scan at 13 s),

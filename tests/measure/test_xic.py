@@ -2,14 +2,18 @@
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import pytest
 
 from tests.helpers.spectra import Analyte, header, make_run
 from watcher.config import Config, ExpectedIon, IonSpec
 from watcher.measure.ions import resolve
 from watcher.measure.run import measure_scans
-from watcher.measure.scan import Scan
-from watcher.records import ExpectedIonResult
+
+if TYPE_CHECKING:
+    from watcher.measure.scan import Scan
+    from watcher.records import ExpectedIonResult
 
 CAFFEINE = IonSpec(name="caffeine", formula="C8H10N4O2", adduct="+H", charge=1, search_ppm=10)
 MRFA = IonSpec(name="mrfa", peptide="MRFA", charge=2, search_ppm=10)

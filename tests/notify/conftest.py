@@ -4,12 +4,15 @@ from __future__ import annotations
 
 import threading
 import time
-from collections.abc import Iterator
 from datetime import UTC, datetime
+from typing import TYPE_CHECKING
 
 import pytest
 
 from tests.helpers.clock import Clock
+
+if TYPE_CHECKING:
+    from collections.abc import Iterator
 
 
 @pytest.fixture(autouse=True)

@@ -7,21 +7,25 @@ import io
 import logging
 import time
 from contextlib import redirect_stdout
-from pathlib import Path
+from typing import TYPE_CHECKING
 
 import pytest
 import structlog
 
-from tests.helpers.clock import Clock
 from tests.helpers.configs import lab_config
 from tests.helpers.notifier import Harness
-from tests.helpers.receiver import Receiver
 from tests.helpers.records import make_finding
 from watcher.cli import status as cmd_status
 from watcher.config import Channel, Config
 from watcher.notify import deliver
 from watcher.records import Severity
 from watcher.store import db, outbox
+
+if TYPE_CHECKING:
+    from pathlib import Path
+
+    from tests.helpers.clock import Clock
+    from tests.helpers.receiver import Receiver
 
 
 def _wait(predicate: object, timeout_s: float = 10.0) -> None:

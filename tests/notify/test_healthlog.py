@@ -4,9 +4,8 @@ from __future__ import annotations
 
 import json
 from datetime import UTC, date, datetime
-from pathlib import Path
+from typing import TYPE_CHECKING
 
-from tests.helpers.clock import Clock
 from tests.helpers.records import make_finding, make_verdict
 from watcher.notify.healthlog import HealthLog, read_day
 from watcher.records import (
@@ -20,6 +19,11 @@ from watcher.records import (
     Verdict,
 )
 from watcher.store import db, history
+
+if TYPE_CHECKING:
+    from pathlib import Path
+
+    from tests.helpers.clock import Clock
 
 
 def test_run_record_is_written_once_per_run_id(tmp_path: Path, clock: Clock) -> None:

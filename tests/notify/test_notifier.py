@@ -3,21 +3,25 @@
 from __future__ import annotations
 
 import time
-from collections.abc import Callable
-from pathlib import Path
+from typing import TYPE_CHECKING
 
 import pytest
 
-from tests.helpers.clock import Clock
 from tests.helpers.configs import lab_config
 from tests.helpers.notifier import Harness
-from tests.helpers.receiver import Receiver
 from tests.helpers.records import make_finding, make_verdict
 from watcher.config import Channel
 from watcher.errors import DeliveryError
 from watcher.notify.notifier import Notifier
 from watcher.records import DaemonEvent, Severity, Status
 from watcher.store import db, outbox
+
+if TYPE_CHECKING:
+    from collections.abc import Callable
+    from pathlib import Path
+
+    from tests.helpers.clock import Clock
+    from tests.helpers.receiver import Receiver
 
 
 def _until(predicate: Callable[[], bool], timeout_s: float = 10.0) -> bool:

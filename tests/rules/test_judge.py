@@ -6,8 +6,8 @@ m/z values from tests/data/check-ions.tsv (molmass and pyteomics agree there).
 
 from __future__ import annotations
 
-from collections.abc import Sequence
 from datetime import UTC, datetime, timedelta
+from typing import TYPE_CHECKING
 
 import pytest
 from hypothesis import given
@@ -24,6 +24,9 @@ from watcher.records import (
     Status,
 )
 from watcher.rules.judge import History, judge
+
+if TYPE_CHECKING:
+    from collections.abc import Sequence
 
 T0 = datetime(2026, 4, 12, 1, 0, tzinfo=UTC)
 

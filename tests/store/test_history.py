@@ -7,10 +7,9 @@ registered schema) and writes inside ``db.write``, as the daemon does.
 from __future__ import annotations
 
 import dataclasses
-import sqlite3
-from collections.abc import Iterator
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import pytest
 
@@ -26,6 +25,10 @@ from watcher.store.history import (
     record_verdict,
     runs_between,
 )
+
+if TYPE_CHECKING:
+    import sqlite3
+    from collections.abc import Iterator
 
 T0 = datetime(2026, 4, 12, 1, 0, tzinfo=UTC)
 TIC = "signal.tic_median"

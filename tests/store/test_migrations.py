@@ -4,12 +4,15 @@ upgrades, and stores written by a newer version refused by name."""
 from __future__ import annotations
 
 import sqlite3
-from pathlib import Path
+from typing import TYPE_CHECKING
 
 import pytest
 
 from watcher.errors import StoreError, StoreTooNewError
 from watcher.store import db, migrations
+
+if TYPE_CHECKING:
+    from pathlib import Path
 
 
 def _indexes(conn: sqlite3.Connection) -> set[str]:

@@ -2,10 +2,13 @@
 
 from __future__ import annotations
 
-from pathlib import Path
+from typing import TYPE_CHECKING
 
 from watcher.records import AlertState, Finding, Severity
 from watcher.store import db, outbox
+
+if TYPE_CHECKING:
+    from pathlib import Path
 
 
 def _finding() -> Finding:

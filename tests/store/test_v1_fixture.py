@@ -4,11 +4,14 @@ by the current code: upgraded to the current version with every row intact."""
 from __future__ import annotations
 
 import sqlite3
-from pathlib import Path
+from typing import TYPE_CHECKING
 
 from tests.helpers.store import FIXTURE, copy_fixture
 from watcher.records import Status
 from watcher.store import db, history, jobs, outbox
+
+if TYPE_CHECKING:
+    from pathlib import Path
 
 
 def test_the_fixture_is_a_pre_versioning_store() -> None:

@@ -9,22 +9,25 @@ unreadable run, 2 a config error (raised as ConfigError to the dispatcher).
 
 from __future__ import annotations
 
-import argparse
 import contextlib
 import json
 import math
 import os
-import sqlite3
 import stat
 import sys
 from collections.abc import Callable, Sequence
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any, TextIO
+from typing import TYPE_CHECKING, Any, TextIO
 
 from watcher.cli.exitcodes import ExitCode
-from watcher.config import Config
 from watcher.records import ReadFailure, RunFile, RunMetrics, Status, Verdict, run_time
+
+if TYPE_CHECKING:
+    import argparse
+    import sqlite3
+
+    from watcher.config import Config
 
 Progress = Callable[[int, int], None]
 

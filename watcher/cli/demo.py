@@ -9,7 +9,6 @@ daemon with SIGTERM and writes the digest through the ``digest`` command.
 
 from __future__ import annotations
 
-import argparse
 import contextlib
 import json
 import os
@@ -24,11 +23,14 @@ from datetime import date, datetime, timedelta
 from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
 from importlib import resources
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import yaml
 
 from watcher.errors import IonwardenError
+
+if TYPE_CHECKING:
+    import argparse
 
 DEMO_URL_ENV = "IONWARDEN_DEMO_URL"  # an extra apprise URL to send the demo's alerts to
 RUN_DEADLINE_S = 60.0  # one run from arrival to verdict; generous for a slow laptop

@@ -6,11 +6,11 @@ The HTML goes to ``--out`` or ``<state_dir>/digests/digest-YYYY-MM-DD.html``.
 
 from __future__ import annotations
 
-import argparse
 import sys
 import time
 from datetime import date, datetime
 from pathlib import Path
+from typing import TYPE_CHECKING
 from zoneinfo import ZoneInfo
 
 import structlog
@@ -18,6 +18,9 @@ import structlog
 from watcher.cli.exitcodes import ExitCode
 from watcher.config import load, state_dir_of
 from watcher.errors import StoreError
+
+if TYPE_CHECKING:
+    import argparse
 
 log = structlog.get_logger("watcher.cli.digest")
 

@@ -15,11 +15,14 @@ from __future__ import annotations
 import argparse
 import importlib
 import sys
-from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 from watcher import __version__
 from watcher.cli.exitcodes import ExitCode
 from watcher.errors import ConfigError, IonwardenError, StoreTooNewError
+
+if TYPE_CHECKING:
+    from collections.abc import Sequence
 
 # command -> module whose ``main(args) -> int`` runs it; imported lazily so that
 # ``ionwarden validate`` does not pay for numpy, pyteomics or matplotlib.

@@ -4,8 +4,10 @@ from __future__ import annotations
 
 import sys
 import time
-from collections.abc import Callable
-from typing import TextIO
+from typing import TYPE_CHECKING, TextIO
+
+if TYPE_CHECKING:
+    from collections.abc import Callable
 
 _WIDTH = 30
 _REDRAW_S = 0.1  # at most ten redraws a second: a redraw costs a syscall, the reader is hot

@@ -7,18 +7,20 @@ abandoned within the last day), 0 otherwise, 3 when there is no state database y
 
 from __future__ import annotations
 
-import argparse
 import json
 import sys
 import time
 from datetime import datetime
-from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 from zoneinfo import ZoneInfo
 
 from watcher.cli.exitcodes import ExitCode
 from watcher.config import Config, load, state_dir_of
 from watcher.errors import StoreError
+
+if TYPE_CHECKING:
+    import argparse
+    from pathlib import Path
 
 RECENT_ABANDONED_S = 24 * 3600.0
 LAST_RUNS = 10

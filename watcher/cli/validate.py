@@ -6,13 +6,16 @@ Exit 0 when the config is valid; exit 2 when it is not, because no restart can f
 
 from __future__ import annotations
 
-import argparse
 import sys
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from watcher.cli.exitcodes import ExitCode
 from watcher.config.load import load_config
 from watcher.errors import ConfigError
+
+if TYPE_CHECKING:
+    import argparse
 
 
 def summary(path: str, *, checks: int, calibrants: int, expected_ions: int, channels: int) -> str:

@@ -7,7 +7,7 @@ forecast towards. Metric paths are checked against the calibrants and expected i
 
 from __future__ import annotations
 
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from watcher.config.keys import KEYS
 from watcher.config.model import (
@@ -22,7 +22,9 @@ from watcher.config.model import (
     is_yes_no_metric,
 )
 from watcher.config.values import SEVERITIES, Bad, Values
-from watcher.config.yamllines import KeyPath
+
+if TYPE_CHECKING:
+    from watcher.config.yamllines import KeyPath
 
 _CONDITION_FIELDS = {"is": "is_"}  # YAML key -> dataclass field where they differ
 _BASELINE_ONLY = frozenset(

@@ -15,15 +15,18 @@ import dataclasses
 import os
 import re
 import stat
-from collections.abc import Mapping
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-from watcher.config.model import Config
 from watcher.config.sections import build_config
 from watcher.config.values import Bad, Values
 from watcher.config.yamllines import KeyPath, read_yaml, resolve_plain
 from watcher.errors import ConfigError, ConfigProblem
+
+if TYPE_CHECKING:
+    from collections.abc import Mapping
+
+    from watcher.config.model import Config
 
 # A lab config is a few kB; refusing big files up front also stops alias bombs before parsing.
 MAX_CONFIG_BYTES = 1024 * 1024

@@ -11,14 +11,17 @@ import dataclasses
 import difflib
 import functools
 import re
-from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
-from datetime import time
 from fnmatch import fnmatchcase
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from watcher.errors import ConfigError, ConfigProblem
 from watcher.records import Severity
+
+if TYPE_CHECKING:
+    from collections.abc import Iterable, Sequence
+    from datetime import time
 
 REGEX_PREFIX = "re:"  # an applies_to entry starting so is a regular expression, not a glob
 YAML_KEY = "yaml_key"  # field metadata: the YAML key, where it is not the field's name

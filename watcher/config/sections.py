@@ -7,8 +7,7 @@ and falls back to the dataclass defaults for keys that are missing or bad.
 from __future__ import annotations
 
 from collections.abc import Callable
-from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from watcher.config.checks import build_checks
 from watcher.config.keys import KEYS
@@ -24,8 +23,12 @@ from watcher.config.model import (
     SignalSettings,
     Watch,
 )
-from watcher.config.values import Values
 from watcher.config.yamllines import KeyPath
+
+if TYPE_CHECKING:
+    from pathlib import Path
+
+    from watcher.config.values import Values
 
 
 def build_config(v: Values, data: Any, source: Path) -> Config:

@@ -13,15 +13,17 @@ import math
 import operator
 import re
 import zoneinfo
-from collections.abc import Callable, Mapping
 from datetime import time
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from watcher.config.model import WESTGARD_RULES, metric_path_problem
 from watcher.config.yamllines import KeyPath, format_path
 from watcher.errors import ConfigProblem
 from watcher.records import Severity
+
+if TYPE_CHECKING:
+    from collections.abc import Callable, Mapping
 
 SEVERITIES = ("notice", "warning", "critical")
 

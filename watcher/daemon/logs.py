@@ -57,10 +57,12 @@ EVENTS: frozenset[str] = frozenset(
 import logging  # noqa: E402
 import logging.handlers  # noqa: E402
 import sys  # noqa: E402
-from pathlib import Path  # noqa: E402
-from typing import Any, TextIO  # noqa: E402
+from typing import TYPE_CHECKING, Any, TextIO  # noqa: E402
 
 import structlog  # noqa: E402
+
+if TYPE_CHECKING:
+    from pathlib import Path
 
 LOG_FILE_NAME = "ionwarden.jsonl"
 

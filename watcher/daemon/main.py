@@ -10,17 +10,14 @@ watchdog, and only while the observer lives and the worker makes progress.
 
 from __future__ import annotations
 
-import argparse
 import contextlib
 import queue
 import signal
 import sqlite3
 import threading
 import time
-from collections.abc import Callable
 from pathlib import Path
-from types import FrameType
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import structlog
 
@@ -37,10 +34,16 @@ from watcher.errors import (
 )
 from watcher.intake import watch
 from watcher.intake.pending import Settled, Settler
-from watcher.intake.readiness import FileStat
 from watcher.notify.notifier import Notifier
 from watcher.records import DaemonEvent
 from watcher.store import db, jobs
+
+if TYPE_CHECKING:
+    import argparse
+    from collections.abc import Callable
+    from types import FrameType
+
+    from watcher.intake.readiness import FileStat
 
 log = structlog.get_logger("watcher.daemon")
 

@@ -7,18 +7,19 @@ tick and ``resume`` inside the transaction that queues new runs.
 
 from __future__ import annotations
 
-import sqlite3
 from datetime import datetime, time
 from typing import TYPE_CHECKING
 from zoneinfo import ZoneInfo
 
 import structlog
 
-from watcher.config import Config
 from watcher.records import DaemonEvent
 from watcher.store import db, jobs
 
 if TYPE_CHECKING:
+    import sqlite3
+
+    from watcher.config import Config
     from watcher.notify.notifier import Notifier
 
 log = structlog.get_logger("watcher.daemon")

@@ -14,26 +14,27 @@ import os
 import pickle
 import select
 import signal
-import sqlite3
 import subprocess
 import sys
-import threading
 import time
-from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from enum import StrEnum
-from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import structlog
 
-from watcher.config import Config, Limits
 from watcher.daemon.child import HEADER, READY, frame
 from watcher.records import RunFile, RunMetrics, Status, Verdict, run_time
 from watcher.store import db, history, jobs
 
 if TYPE_CHECKING:
+    import sqlite3
+    import threading
+    from collections.abc import Callable
+    from pathlib import Path
+
+    from watcher.config import Config, Limits
     from watcher.notify.notifier import Notifier
 
 log = structlog.get_logger("watcher.daemon.pipeline")

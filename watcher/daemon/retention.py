@@ -10,11 +10,14 @@ run history (``runs``, ``metrics``) is not pruned here: it is the baseline the r
 from __future__ import annotations
 
 import os
-import sqlite3
-from collections.abc import Sequence
-from pathlib import Path
+from typing import TYPE_CHECKING
 
 from watcher.store import db, jobs
+
+if TYPE_CHECKING:
+    import sqlite3
+    from collections.abc import Sequence
+    from pathlib import Path
 
 DAY_S = 86400.0
 

@@ -8,12 +8,15 @@ The scan only reads directory entries and stats; it never opens, moves or delete
 from __future__ import annotations
 
 import os
-from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass
 from fnmatch import fnmatchcase
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from watcher.intake.readiness import FileStat
+
+if TYPE_CHECKING:
+    from collections.abc import Iterable, Iterator, Sequence
 
 _WILDCARDS = "*?]"
 

@@ -16,12 +16,14 @@ import hashlib
 import os
 import re
 import zlib
-from collections.abc import Iterator
 from dataclasses import dataclass
-from pathlib import Path
-from typing import IO, Any, BinaryIO
+from typing import IO, TYPE_CHECKING, Any, BinaryIO
 
 from watcher.errors import ReadError
+
+if TYPE_CHECKING:
+    from collections.abc import Iterator
+    from pathlib import Path
 
 FORMATS = ("mzML", "mzML.gz", "mzXML", "MGF")
 

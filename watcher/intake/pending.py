@@ -13,12 +13,15 @@ import stat
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import structlog
 
-from watcher.config import Watch
 from watcher.intake import folderwalk, watch
 from watcher.intake import readiness as settle
+
+if TYPE_CHECKING:
+    from watcher.config import Watch
 
 log = structlog.get_logger("watcher.intake.pending")
 

@@ -12,7 +12,7 @@ import queue
 import threading
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from watchdog.events import (
     DirCreatedEvent,
@@ -25,11 +25,14 @@ from watchdog.events import (
     FileSystemEventHandler,
 )
 from watchdog.observers import Observer
-from watchdog.observers.api import BaseObserver
 from watchdog.observers.polling import PollingObserver
 
-from watcher.config import Watch
 from watcher.intake.folderwalk import is_ignored, is_run_path
+
+if TYPE_CHECKING:
+    from watchdog.observers.api import BaseObserver
+
+    from watcher.config import Watch
 
 
 @dataclass(frozen=True, slots=True)

@@ -8,15 +8,19 @@ from __future__ import annotations
 
 import math
 from array import array
-from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from watcher.measure import robust
 from watcher.measure.ions import ResolvedIon, ppm_error
 from watcher.measure.peaks import find_peak
-from watcher.measure.scan import FloatArray
 from watcher.records import CalibrantDrift, MassCorrection
+
+if TYPE_CHECKING:
+    from collections.abc import Sequence
+
+    from watcher.measure.scan import FloatArray
 
 
 def scan_error(

@@ -8,14 +8,17 @@ computed here as (sum of nuclide masses - charge x electron mass) / |charge|, be
 from __future__ import annotations
 
 import re
-from collections.abc import Mapping
 from dataclasses import dataclass
 from functools import lru_cache
+from typing import TYPE_CHECKING
 
 import numpy as np
 from pyteomics import mass as pyt_mass
 
-from watcher.config import IonSpec
+if TYPE_CHECKING:
+    from collections.abc import Mapping
+
+    from watcher.config import IonSpec
 
 ELECTRON_MASS_DA: float = float(pyt_mass.nist_mass["e-"][0][0])
 # 13C - 12C: the spacing of the M+1 peak of an organic ion at charge 1 (common practice).

@@ -25,13 +25,16 @@ from __future__ import annotations
 import json
 import math
 import os
-from collections.abc import Sequence
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from watcher import __version__
-from watcher.records import RunMetrics, Verdict
+
+if TYPE_CHECKING:
+    from collections.abc import Sequence
+
+    from watcher.records import RunMetrics, Verdict
 
 MZQC_VERSION = "1.0.0"
 PSI_MS_VERSION = "4.1.257"

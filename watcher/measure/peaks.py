@@ -9,10 +9,12 @@ ions or runs.
 from __future__ import annotations
 
 import math
+from typing import TYPE_CHECKING
 
 import numpy as np
 
-from watcher.measure.scan import FloatArray
+if TYPE_CHECKING:
+    from watcher.measure.scan import FloatArray
 
 # Profile spectra sample each peak every few ppm; centroid lists sit hundreds of ppm apart.
 _PROFILE_SPACING_PPM = 20.0

@@ -6,11 +6,14 @@ when there is too little data, so callers can pass the result straight into a re
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 
-from watcher.measure.scan import FloatArray
+if TYPE_CHECKING:
+    from collections.abc import Sequence
+
+    from watcher.measure.scan import FloatArray
 
 # Theil-Sen holds every pairwise slope in memory, and the median a copy: 1000 points -> 0.5 M
 # slopes (2 x 4 MB). Longer series are thinned to evenly spaced points, which keeps the fit

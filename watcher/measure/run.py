@@ -8,16 +8,13 @@ from __future__ import annotations
 
 import os
 from collections import Counter
-from collections.abc import Callable, Iterable
 from datetime import UTC, datetime
-from pathlib import Path
+from typing import TYPE_CHECKING
 
-from watcher.config import Config, IonSpec
 from watcher.errors import ConfigError, ConfigProblem, ReadError
 from watcher.measure.calibrant import CalibrantTrace, mass_correction
 from watcher.measure.ions import ResolvedIon, resolve
 from watcher.measure.peaks import looks_profile
-from watcher.measure.scan import RunHeader, Scan
 from watcher.measure.signal import SignalTrace
 from watcher.measure.xic import XicTrace, absent
 from watcher.records import (
@@ -27,6 +24,13 @@ from watcher.records import (
     RunMetrics,
     SignalMetrics,
 )
+
+if TYPE_CHECKING:
+    from collections.abc import Callable, Iterable
+    from pathlib import Path
+
+    from watcher.config import Config, IonSpec
+    from watcher.measure.scan import RunHeader, Scan
 
 NO_MS1_NOTE = "no MS1 spectra: calibrant and expected-ion metrics not available"
 NO_ARRAYS_NOTE = (

@@ -9,13 +9,16 @@ from __future__ import annotations
 import math
 from array import array
 from collections import Counter
+from typing import TYPE_CHECKING
 
 import numpy as np
 
-from watcher.config import SignalSettings
 from watcher.measure import robust
-from watcher.measure.scan import FloatArray, Scan
 from watcher.records import SignalMetrics
+
+if TYPE_CHECKING:
+    from watcher.config import SignalSettings
+    from watcher.measure.scan import FloatArray, Scan
 
 _NAN = float("nan")
 

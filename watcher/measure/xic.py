@@ -9,13 +9,16 @@ from __future__ import annotations
 
 import math
 from array import array
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from watcher.measure.ions import C13_SPACING_DA, ResolvedIon, ppm_error
 from watcher.measure.peaks import find_peak, refine_apex
-from watcher.measure.scan import FloatArray
 from watcher.records import ExpectedIonResult
+
+if TYPE_CHECKING:
+    from watcher.measure.scan import FloatArray
 
 
 class XicTrace:

@@ -9,9 +9,12 @@ tested as a truth table without a database or a clock.
 from __future__ import annotations
 
 from dataclasses import replace
+from typing import TYPE_CHECKING
 
-from watcher.config import Channel
 from watcher.records import AlertAction, AlertState, Finding
+
+if TYPE_CHECKING:
+    from watcher.config import Channel
 
 # Pseudo-checks that are not in the config: an unreadable run file, and runs that stopped coming.
 UNREADABLE_CHECK = "unreadable"

@@ -5,12 +5,15 @@ Pure: takes the run's facts and the list of (action, finding) pairs, returns tex
 
 from __future__ import annotations
 
-from collections.abc import Sequence
 from dataclasses import dataclass
-from datetime import datetime
+from typing import TYPE_CHECKING
 from zoneinfo import ZoneInfo
 
 from watcher.records import AlertAction, Finding, Severity
+
+if TYPE_CHECKING:
+    from collections.abc import Sequence
+    from datetime import datetime
 
 # apprise notify types (plain strings so that only deliver.py imports apprise).
 _NOTIFY_TYPE = {Severity.NOTICE: "info", Severity.WARNING: "warning", Severity.CRITICAL: "failure"}

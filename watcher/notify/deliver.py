@@ -11,15 +11,13 @@ TRACE output carry message bodies and passwords.
 from __future__ import annotations
 
 import logging
-import sqlite3
 import tempfile
 import threading
 import time
 import warnings
-from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 from urllib.parse import urlsplit
 
 import structlog
@@ -33,9 +31,14 @@ with warnings.catch_warnings():
 
     NotificationManager().load_modules()  # type: ignore[no-untyped-call]
 
-from watcher.config import Alerts, Channel
 from watcher.errors import DeliveryError
 from watcher.store import db, outbox
+
+if TYPE_CHECKING:
+    import sqlite3
+    from collections.abc import Callable
+
+    from watcher.config import Alerts, Channel
 
 log = structlog.get_logger("watcher.notify.deliver")
 

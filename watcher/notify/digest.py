@@ -10,12 +10,11 @@ from __future__ import annotations
 
 import base64
 import html
-import sqlite3
 import statistics
 from collections import Counter
-from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import UTC, date, datetime, time, timedelta
+from typing import TYPE_CHECKING
 from zoneinfo import ZoneInfo
 
 from watcher.config import BaselineSpec, Check, Config
@@ -25,7 +24,12 @@ from watcher.records import Status
 from watcher.rules.baseline import Baseline, from_spec
 from watcher.rules.checks import matches_metric
 from watcher.store import history
-from watcher.store.history import RunRow
+
+if TYPE_CHECKING:
+    import sqlite3
+    from collections.abc import Mapping, Sequence
+
+    from watcher.store.history import RunRow
 
 _BASELINE_LOOKBACK = timedelta(days=30)
 

@@ -15,14 +15,16 @@ import os
 import re
 import threading
 import time
-from collections.abc import Callable
 from datetime import date, datetime, timedelta
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 from zoneinfo import ZoneInfo
 
-from watcher.records import Finding, Status, Verdict
-from watcher.store.history import RunRow
+if TYPE_CHECKING:
+    from collections.abc import Callable
+
+    from watcher.records import Finding, Status, Verdict
+    from watcher.store.history import RunRow
 
 _FILE_RE = re.compile(r"^health-(\d{4}-\d{2}-\d{2})\.jsonl$")
 

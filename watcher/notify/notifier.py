@@ -7,23 +7,27 @@ receiver never holds up measuring.
 
 from __future__ import annotations
 
-import sqlite3
 import threading
 import time
-from collections.abc import Callable
 from datetime import UTC, date, datetime, timedelta
-from pathlib import Path
+from typing import TYPE_CHECKING
 from zoneinfo import ZoneInfo
 
 import structlog
 
-from watcher.config import Channel, Config
 from watcher.notify import alert_state as machine
 from watcher.notify.alert_text import Item, Text, compose
 from watcher.notify.healthlog import HealthLog
 from watcher.records import AlertAction, DaemonEvent, Finding, Severity, Status, Verdict
 from watcher.store import db, outbox
-from watcher.store.history import RunRow
+
+if TYPE_CHECKING:
+    import sqlite3
+    from collections.abc import Callable
+    from pathlib import Path
+
+    from watcher.config import Channel, Config
+    from watcher.store.history import RunRow
 
 log = structlog.get_logger("watcher.notify.notifier")
 

@@ -8,14 +8,18 @@ daemon's main thread can draw without sharing pyplot's global state.
 from __future__ import annotations
 
 import io
-from collections.abc import Mapping, Sequence
 from datetime import datetime
+from typing import TYPE_CHECKING
 
-from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.dates import AutoDateLocator, ConciseDateFormatter, date2num
 from matplotlib.figure import Figure
 from matplotlib.ticker import EngFormatter
+
+if TYPE_CHECKING:
+    from collections.abc import Mapping, Sequence
+
+    from matplotlib.axes import Axes
 
 Point = tuple[datetime, float]
 

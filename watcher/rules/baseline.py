@@ -8,10 +8,13 @@ from __future__ import annotations
 
 import math
 import statistics
-from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
-from watcher.config import BaselineSpec
+if TYPE_CHECKING:
+    from collections.abc import Sequence
+
+    from watcher.config import BaselineSpec
 
 # 1 / Phi^-1(3/4): for normally distributed data, MAD x 1.4826 estimates the SD (common practice).
 MAD_TO_SD = 1.4826

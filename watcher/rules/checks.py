@@ -17,11 +17,15 @@ import dataclasses
 import functools
 import math
 import re
-from collections.abc import Iterable
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 from watcher.config import Condition
-from watcher.rules.baseline import Baseline
+
+if TYPE_CHECKING:
+    from collections.abc import Iterable
+
+    from watcher.rules.baseline import Baseline
 
 Value = float | bool | None
 Bounds = tuple[float, float]

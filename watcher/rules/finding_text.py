@@ -8,11 +8,15 @@ reads "calibrant siloxane-445 median error").
 
 from __future__ import annotations
 
-from watcher.records import Severity
-from watcher.rules.baseline import Baseline
-from watcher.rules.checks import Hit
-from watcher.rules.trend import Forecast
+from typing import TYPE_CHECKING
+
 from watcher.rules.westgard import RULE_MEANING
+
+if TYPE_CHECKING:
+    from watcher.records import Severity
+    from watcher.rules.baseline import Baseline
+    from watcher.rules.checks import Hit
+    from watcher.rules.trend import Forecast
 
 _CALIBRANT_KEYS = {
     "median_ppm": "median error",

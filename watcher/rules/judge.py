@@ -27,10 +27,9 @@ History semantics (documented choices):
 
 from __future__ import annotations
 
-from collections.abc import Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
-from typing import Protocol
+from typing import TYPE_CHECKING, Protocol
 
 from watcher.config import Check, Condition, matches_applies_to
 from watcher.records import (
@@ -52,6 +51,9 @@ from watcher.rules.checks import (
     is_missing,
     needs_baseline,
 )
+
+if TYPE_CHECKING:
+    from collections.abc import Sequence
 
 TREND_RUNS = 50  # earlier runs fed to EWMA and CUSUM
 WESTGARD_RUNS = 9  # 10x needs the nine runs before this one

@@ -10,10 +10,13 @@ from __future__ import annotations
 import itertools
 import math
 import statistics
-from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 from watcher.rules.baseline import MAD_TO_SD
+
+if TYPE_CHECKING:
+    from collections.abc import Sequence
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

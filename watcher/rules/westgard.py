@@ -9,7 +9,10 @@ is part of the violating pattern, so an old violation does not fire again on eve
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Sequence
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from collections.abc import Iterable, Sequence
 
 # Reporting priority: the rejection rules for random error first, then systematic error, then the
 # 1-2s warning rule (which alone only calls for inspection).

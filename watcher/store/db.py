@@ -8,12 +8,15 @@ a read snapshot to a write fails at once with "database is locked", whatever the
 from __future__ import annotations
 
 import sqlite3
-from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from watcher.errors import StoreError, StoreTooNewError
 from watcher.store import migrations
+
+if TYPE_CHECKING:
+    from collections.abc import Iterator
 
 DB_NAME = "ionwarden.sqlite3"
 BUSY_TIMEOUT_MS = 10000

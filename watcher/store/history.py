@@ -19,16 +19,18 @@ from __future__ import annotations
 
 import json
 import math
-import sqlite3
-from collections.abc import Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from fnmatch import fnmatchcase
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from watcher.config import matches_applies_to
 from watcher.records import Finding, HistoryPoint, Severity, Status, Verdict
 from watcher.store.db import register_schema
+
+if TYPE_CHECKING:
+    import sqlite3
+    from collections.abc import Sequence
 
 SCHEMA = """
 CREATE TABLE IF NOT EXISTS runs (

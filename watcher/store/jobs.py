@@ -9,14 +9,17 @@ parses, hashes or sends anything.
 
 from __future__ import annotations
 
-import sqlite3
-from collections.abc import Sequence
 from dataclasses import dataclass
 from enum import StrEnum
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from watcher.store.db import register_schema
 from watcher.store.rows import columns, from_row
+
+if TYPE_CHECKING:
+    import sqlite3
+    from collections.abc import Sequence
 
 
 class JobState(StrEnum):

@@ -10,9 +10,12 @@ transaction with the new ``user_version``, so a store is either wholly upgraded 
 
 from __future__ import annotations
 
-import sqlite3
-from collections.abc import Callable
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    import sqlite3
+    from collections.abc import Callable
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

@@ -8,13 +8,16 @@ that write expect to run inside ``db.write(conn)``; none of them sends or render
 from __future__ import annotations
 
 import json
-import sqlite3
 from dataclasses import dataclass
 from enum import StrEnum
+from typing import TYPE_CHECKING
 
 from watcher.records import AlertState, Finding, Severity
 from watcher.store.db import register_schema
 from watcher.store.rows import from_row
+
+if TYPE_CHECKING:
+    import sqlite3
 
 SCHEMA = """
 CREATE TABLE IF NOT EXISTS alert_state (

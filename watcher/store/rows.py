@@ -3,10 +3,11 @@
 from __future__ import annotations
 
 import dataclasses
-import sqlite3
 from typing import TYPE_CHECKING, Any, TypeVar
 
 if TYPE_CHECKING:
+    import sqlite3
+
     from _typeshed import DataclassInstance
 
     R = TypeVar("R", bound=DataclassInstance)

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import io
 import time
-from pathlib import Path
+from typing import TYPE_CHECKING
 
 import pytest
 
@@ -14,6 +14,9 @@ from watcher.errors import ReadError
 from watcher.intake.formats import completeness, sniff_format
 from watcher.measure.readers.read import open_run
 from watcher.measure.readers.safexml import DOCTYPE_REASON, assert_no_doctype
+
+if TYPE_CHECKING:
+    from pathlib import Path
 
 # The four attack files and the 1 s bound are docs/reliability.md R1.1 (docs/reliability.md).
 ATTACKS = [

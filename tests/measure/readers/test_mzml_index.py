@@ -4,8 +4,7 @@ from __future__ import annotations
 
 import os
 import re
-from collections.abc import Callable
-from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pytest
@@ -17,6 +16,10 @@ from watcher.measure.readers import mzml, safexml
 from watcher.measure.readers import mzml_index as mzmlindex
 from watcher.measure.readers.read import open_run
 from watcher.measure.scan import NON_MS1_FIELDS, Scan
+
+if TYPE_CHECKING:
+    from collections.abc import Callable
+    from pathlib import Path
 
 _SPEC = RunSpec(
     duration_s=60.0,

@@ -12,8 +12,7 @@ import math
 import time
 import urllib.request
 from collections import Counter
-from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pynumpress
@@ -26,7 +25,11 @@ from watcher.errors import ReadError
 from watcher.measure.readers import cv, mzml
 from watcher.measure.readers.arrays import decode_array
 from watcher.measure.readers.read import open_run
-from watcher.measure.scan import Scan
+
+if TYPE_CHECKING:
+    from pathlib import Path
+
+    from watcher.measure.scan import Scan
 
 FILES = [r for r in tsv_rows("files.tsv") if r["format"].split()[0] in ("mzML", "mzXML", "MGF")]
 SPECTRA = tsv_rows("spectra.tsv")

@@ -17,15 +17,17 @@ from __future__ import annotations
 import base64
 import binascii
 import zlib
-from collections.abc import Callable
-from typing import cast
+from typing import TYPE_CHECKING, cast
 
 import numpy as np
 import pybase64
 import pynumpress
 from isal import isal_zlib
 
-from watcher.measure.scan import FloatArray
+if TYPE_CHECKING:
+    from collections.abc import Callable
+
+    from watcher.measure.scan import FloatArray
 
 NO_COMPRESSION = "MS:1000576"
 ZLIB = "MS:1000574"
@@ -52,7 +54,10 @@ DTYPES: dict[str, str] = {
     "MS:1000520": "<f2",  # 16-bit float
 }
 # isal's stub types ``error`` as an instance; at run time it is the exception class.
-_INFLATE_ERRORS: tuple[type[Exception], ...] = (zlib.error, cast(type[Exception], isal_zlib.error))
+_INFLATE_ERRORS: tuple[type[Exception], ...] = (
+    zlib.error,
+    cast("type[Exception]", isal_zlib.error),
+)
 KNOWN_COMPRESSIONS = frozenset({NO_COMPRESSION, ZLIB, *_NUMPRESS})
 
 

@@ -7,13 +7,15 @@ own; when a spectrum is left with several possible charges its charge is unknown
 
 from __future__ import annotations
 
-from collections.abc import Iterator
-from typing import IO, Any
+from typing import IO, TYPE_CHECKING, Any
 
 import numpy as np
 from pyteomics import mgf
 
 from watcher.measure.scan import Scan
+
+if TYPE_CHECKING:
+    from collections.abc import Iterator
 
 
 def read_scans(source: IO[str]) -> Iterator[Scan]:

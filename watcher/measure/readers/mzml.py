@@ -13,9 +13,8 @@ Never pyteomics' byte indexer, which is quadratic on crafted input (docs/reliabi
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Iterator
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -27,6 +26,9 @@ from watcher.measure.readers.arrays import (
     decode_array,
 )
 from watcher.measure.scan import Scan
+
+if TYPE_CHECKING:
+    from collections.abc import Iterable, Iterator
 
 # Accessions (tests/data/mzml-cv-terms.tsv).
 MS_LEVEL = "MS:1000511"

@@ -15,13 +15,16 @@ from __future__ import annotations
 import os
 import re
 from array import array
-from collections.abc import Iterator
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from watcher.measure.readers import mzml
 from watcher.measure.readers.mzml_header import fast_header, light_header
-from watcher.measure.scan import Scan
+
+if TYPE_CHECKING:
+    from collections.abc import Iterator
+
+    from watcher.measure.scan import Scan
 
 _MS_LEVEL_RE = re.compile(rb'accession="MS:1000511"[^>]*?value="(\d+)"')
 _INDEX_OFFSET_RE = re.compile(rb"<indexListOffset>\s*(\d+)\s*</indexListOffset>")

@@ -7,13 +7,15 @@ file order. pyteomics gives retention time in minutes; it is turned into seconds
 
 from __future__ import annotations
 
-from collections.abc import Iterator
-from typing import IO, Any
+from typing import IO, TYPE_CHECKING, Any
 
 import numpy as np
 from pyteomics import mzxml
 
 from watcher.measure.scan import Scan
+
+if TYPE_CHECKING:
+    from collections.abc import Iterator
 
 
 def read_scans(source: IO[bytes], *, want_arrays: bool) -> Iterator[Scan]:

@@ -21,8 +21,7 @@ import time
 import zlib
 from collections.abc import Callable, Iterator
 from contextlib import ExitStack, contextmanager
-from pathlib import Path
-from typing import IO, Any
+from typing import IO, TYPE_CHECKING, Any
 
 from lxml import etree  # type: ignore[import-untyped, unused-ignore]
 
@@ -32,6 +31,9 @@ from watcher.measure.readers import mgf, mzml, mzxml, safexml
 from watcher.measure.readers import mzml_index as mzmlindex
 from watcher.measure.readers.cv import disable_remote
 from watcher.measure.scan import RunHeader, Scan
+
+if TYPE_CHECKING:
+    from pathlib import Path
 
 Progress = Callable[[int, int], None]
 

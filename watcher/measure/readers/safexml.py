@@ -9,13 +9,15 @@ prolog is checked here first, with lxml set to resolve nothing, load nothing and
 from __future__ import annotations
 
 import threading
-from collections.abc import Iterator
 from pathlib import Path
-from typing import Any, Protocol
+from typing import TYPE_CHECKING, Any, Protocol
 
 from lxml import etree  # type: ignore[import-untyped, unused-ignore]
 
 from watcher.errors import ReadError
+
+if TYPE_CHECKING:
+    from collections.abc import Iterator
 
 DOCTYPE_REASON = "XML DOCTYPE/entity declarations are not allowed in run files"
 
