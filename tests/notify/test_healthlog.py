@@ -6,8 +6,9 @@ import json
 from datetime import UTC, date, datetime
 from typing import TYPE_CHECKING
 
+from tests.helpers.healthlog import read_day
 from tests.helpers.records import make_finding, make_verdict
-from watcher.notify.healthlog import HealthLog, read_day
+from watcher.notify.healthlog import HealthLog
 from watcher.records import (
     CalibrantDrift,
     Finding,

@@ -20,7 +20,6 @@ from watcher.rules.judge import judge
 from watcher.store import db
 from watcher.store.history import (
     StoreHistory,
-    metric_series,
     recent_runs,
     record_verdict,
     runs_between,
@@ -182,19 +181,6 @@ def test_runs_between_is_half_open(conn: sqlite3.Connection) -> None:
         record(conn, verdict(f"QC_{i}.mzML", at=T0 + timedelta(hours=6 * i)))
     day = runs_between(conn, T0 + timedelta(hours=6), T0 + timedelta(hours=18))
     assert [r.file_name for r in day] == ["QC_1.mzML", "QC_2.mzML"]
-
-
-def test_metric_series_for_plots(conn: sqlite3.Connection) -> None:
-    """metric_series filters by time and file glob, keeps gaps as None, and restores booleans."""
-    for i in range(4):
-        name = f"QC_{i}.mzML" if i % 2 == 0 else f"S{i}_liver.mzML"
-        record(conn, verdict(name, at=T0 + timedelta(hours=i), tic=None if i == 2 else 1.0e6 * i))
-    points = metric_series(conn, TIC)
-    assert [p.value for p in points] == [0.0, 1.0e6, None, 3.0e6]
-    qc = metric_series(conn, TIC, file_glob="QC_*", start=T0 + timedelta(minutes=1))
-    assert [(p.file_name, p.value) for p in qc] == [("QC_2.mzML", None)]
-    found = metric_series(conn, "expected_ion.caffeine.found", end=T0 + timedelta(hours=1))
-    assert [p.value for p in found] == [True]
 
 
 def test_store_history_series_contract(conn: sqlite3.Connection) -> None:

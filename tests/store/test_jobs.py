@@ -84,10 +84,8 @@ def test_same_content_finds_earlier_done_job(conn):
         b = jobs.enqueue(conn, Path("/x/copy_of_a.mzML"), 5, 2, 1.0)
         assert a is not None
         assert b is not None
-        jobs.set_hash(conn, a, "h1")
-        jobs.set_hash(conn, b, "h1")
         assert jobs.same_content(conn, "h1", b) is None  # a is not done yet
-        jobs.finish(conn, a, 2.0, state=jobs.JobState.DONE, outcome="ok", run_id=1)
+        jobs.finish(conn, a, 2.0, state=jobs.JobState.DONE, outcome="ok", run_id=1, sha256="h1")
         twin = jobs.same_content(conn, "h1", b)
     assert twin is not None
     assert twin.id == a

@@ -4,6 +4,7 @@ by the current code: upgraded to the current version with every row intact."""
 from __future__ import annotations
 
 import sqlite3
+from datetime import UTC, datetime
 from typing import TYPE_CHECKING
 
 from tests.helpers.store import FIXTURE, copy_fixture
@@ -34,7 +35,9 @@ def test_version_1_store_is_upgraded_with_its_rows_intact(tmp_path: Path) -> Non
     assert runs[1].findings[0].value == 3.9
     assert runs[2].metrics["calibrant.siloxane-445.median_ppm"] == 0.4
     assert runs[0].error == "truncated: the file ends inside a spectrum"
-    series = history.metric_series(conn, "calibrant.siloxane-445.median_ppm")
+    series = history.StoreHistory(conn).series(
+        "calibrant.siloxane-445.median_ppm", before=datetime(2100, 1, 1, tzinfo=UTC), limit=10
+    )
     assert [p.value for p in series] == [0.4, 3.9]
     assert jobs.counts(conn) == {"queued": 0, "measuring": 0, "done": 4, "failed": 1}
     copy = jobs.get(conn, 4)

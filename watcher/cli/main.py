@@ -92,6 +92,12 @@ def main(argv: Sequence[str] | None = None) -> int:
         args = parser.parse_args(argv)
     except SystemExit as exc:  # argparse exits 2 on usage errors, 0 on --help
         return int(exc.code or 0)
+    if args.command != "run":
+        # Library warnings of a one-shot command go to stderr, never into its stdout (JSON
+        # output stays parseable) nor the daemon's log file; ``run`` sets up its own logging.
+        from watcher.daemon import logs
+
+        logs.configure_cli()
     try:
         module = importlib.import_module(_COMMANDS[args.command])
         code: int = module.main(args)

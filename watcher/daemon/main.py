@@ -78,7 +78,6 @@ class Daemon:
         self._last_notify_tick = 0.0
         self._last_checkpoint = 0.0
         self._last_prune_s: float | None = None
-        self._started_s = 0.0
         self._last_arrival_s = 0.0
         self.conn: sqlite3.Connection | None = None
         self.notifier: Notifier | None = None
@@ -104,7 +103,6 @@ class Daemon:
             DeliveryError: an alert channel was refused.
         """
         now_s = self.clock()
-        self._started_s = now_s
         self.conn = db.connect(self.state_dir, daemon=True)
         worker_conn = db.connect(self.state_dir, daemon=True)
         for folder in self.config.watch.folders:

@@ -207,17 +207,3 @@ def _plain(value: object) -> object:
     if isinstance(value, dict):
         return {str(k): _plain(v) for k, v in value.items()}
     return str(value)
-
-
-def read_day(directory: Path, day: date) -> list[dict[str, Any]]:
-    """Every whole record of one day's file (CLI readers and tests)."""
-    path = directory / file_name(day)
-    if not path.exists():
-        return []
-    out: list[dict[str, Any]] = []
-    for line in path.read_text(encoding="utf-8").splitlines():
-        try:
-            out.append(json.loads(line))
-        except json.JSONDecodeError:
-            continue
-    return out

@@ -21,7 +21,6 @@ import json
 import math
 from dataclasses import dataclass
 from datetime import UTC, datetime
-from fnmatch import fnmatchcase
 from typing import TYPE_CHECKING, Any
 
 from watcher.config import matches_applies_to
@@ -229,34 +228,6 @@ _SERIES_SELECT = """
     FROM metrics AS m JOIN runs AS r ON r.run_id = m.run_id
     WHERE m.path = ?
 """
-
-
-def metric_series(
-    conn: sqlite3.Connection,
-    metric: str,
-    *,
-    start: datetime | None = None,
-    end: datetime | None = None,
-    file_glob: str | None = None,
-) -> list[HistoryPoint]:
-    """Every recorded value of ``metric`` acquired in ``[start, end)``, oldest first.
-
-    ``file_glob`` keeps only runs whose file name matches it (``fnmatchcase``), e.g. ``QC_*``.
-    Runs where the metric was not measured appear with value None (gaps in a plot).
-    """
-    sql = _SERIES_SELECT
-    params: list[Any] = [metric]
-    if start is not None:
-        sql += " AND m.acquired_at >= ?"
-        params.append(to_text(start))
-    if end is not None:
-        sql += " AND m.acquired_at < ?"
-        params.append(to_text(end))
-    sql += " ORDER BY m.acquired_at, m.run_id"
-    points = [_point(r) for r in conn.execute(sql, params)]
-    if file_glob is not None:
-        points = [p for p in points if fnmatchcase(p.file_name, file_glob)]
-    return points
 
 
 class StoreHistory:

@@ -152,10 +152,6 @@ def release(conn: sqlite3.Connection, job_id: int, now_s: float) -> None:
     )
 
 
-def set_hash(conn: sqlite3.Connection, job_id: int, sha256: str) -> None:
-    conn.execute("UPDATE jobs SET sha256 = ? WHERE id = ?", (sha256, job_id))
-
-
 def same_content(conn: sqlite3.Connection, sha256: str, job_id: int) -> Job | None:
     """An earlier finished job with this content hash (under any name), or None."""
     row = conn.execute(
