@@ -158,3 +158,50 @@ def test_run_without_ms1_reports_counts_and_nulls() -> None:
     assert metrics.longest_dropout_s is None
     assert metrics.cycle_time_s_median is None
     assert metrics.precursor_charges == ((0, 1), (2, 2))
+
+
+@pytest.mark.parametrize("failed_fraction", [0.10, 0.49, 0.60, 0.90])
+def test_a_spray_failure_of_most_of_the_run_is_a_dropout(failed_fraction: float) -> None:
+    """100 MS1 scans, 1 s apart; from scan 100 x (1 - f) on the TIC falls to 1 % of normal.
+
+    Ground truth by construction: one dropout lasting f x 100 s. Measured against the run's own
+    median TIC, a failure of half the run or more hid itself (the median fell with it)."""
+    n_failed = round(100 * failed_fraction)
+    rng = np.random.default_rng(7)
+    normal = 1.0e6 * (1.0 + 0.05 * rng.standard_normal(100 - n_failed))
+    tics = [*normal, *([1.0e4] * n_failed)]
+    metrics = _signal(tic_scans(tics), SignalSettings(dropout_fraction=0.1))
+    assert metrics.dropouts == 1
+    assert metrics.longest_dropout_s == pytest.approx(float(n_failed), abs=1e-9)
+
+
+def test_a_run_without_failure_keeps_the_median_reference() -> None:
+    """An intense elution (5x the rest, 10 % of the scans) in a steady run does not raise the
+    threshold: no dropout in the quiet part, as with the run's median."""
+    tics = [1.0e6] * 80 + [5.0e6] * 10 + [1.0e6] * 10
+    metrics = _signal(tic_scans(tics), SignalSettings(dropout_fraction=0.1))
+    assert metrics.dropouts == 0
+
+
+def _dda_run(fail_start_s: float, fail_s: float, run_s: float = 600.0) -> list[Scan]:
+    """DDA: an MS1 scan every 1.0 s (MS2 scans fill the cycle) while the spray works; while it is
+    out there are no precursors, so MS1 scans follow every 0.15 s."""
+    rts: list[float] = []
+    tics: list[float] = []
+    t = 0.0
+    while t < run_s:
+        failed = fail_start_s <= t < fail_start_s + fail_s
+        rts.append(t)
+        tics.append(1.0e4 if failed else 1.0e6)
+        t += 0.15 if failed else 1.0
+    return tic_scans(tics, rt=rts)
+
+
+@pytest.mark.parametrize("where", ["start", "middle", "end"])
+def test_a_dropout_is_sized_by_its_own_scans_wherever_it_is(where: str) -> None:
+    """A 30 s spray failure lasts 30 s (within one fast cycle) at the start, in the middle and at
+    the end of the run; the run's median cycle (1 s) x the fast low scans gave ~200 s at the end."""
+    start_s = {"start": 0.0, "middle": 300.0, "end": 570.0}[where]
+    metrics = _signal(_dda_run(start_s, 30.0), SignalSettings(dropout_fraction=0.1))
+    assert metrics.dropouts == 1
+    assert metrics.longest_dropout_s == pytest.approx(30.0, abs=0.3)

@@ -81,7 +81,8 @@ class ExpectedIon:
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class SignalSettings:
-    dropout_fraction: float = 0.1  # an MS1 scan is a dropout when TIC < this x run median TIC
+    # an MS1 scan is a dropout when TIC < this x the working TIC (measure.signal.working_tic)
+    dropout_fraction: float = 0.1
     dropout_min_scans: int = 1  # shortest run of low scans that counts as a dropout
 
 

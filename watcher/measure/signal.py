@@ -76,13 +76,14 @@ class SignalTrace:
             rt, tic = rt[order], tic[order]
         cycle_s = median_cycle_s(rt)
         tic_median = robust.median(tic)
+        reference = working_tic(tic, settings.dropout_fraction)
         dropouts: int | None = None
         longest_s: float | None = None
-        if tic.size and tic_median is not None:
+        if tic.size and reference is not None:
             dropouts, longest_s = find_dropouts(
                 tic,
                 rt,
-                threshold=settings.dropout_fraction * tic_median,
+                threshold=settings.dropout_fraction * reference,
                 min_scans=settings.dropout_min_scans,
                 cycle_s=cycle_s,
             )
@@ -115,6 +116,32 @@ def median_cycle_s(rt_s: FloatArray) -> float | None:
     return float(np.median(np.diff(np.sort(known))))
 
 
+# The TIC quantile that stands for "the spray works": a failure shorter than 95 % of the run
+# cannot pull it down, and it only gates which scans form the reference, so one intense
+# elution peak does not raise the dropout threshold.
+WORKING_QUANTILE = 0.95
+
+
+def working_tic(tic: FloatArray, fraction: float) -> float | None:
+    """The TIC a dropout is measured against: the median TIC of the scans that worked.
+
+    The run's own median includes the failed scans, so a spray failure of half the run or more
+    drags it down until no scan is below ``fraction`` of it. Instead: the scans whose TIC reaches
+    ``fraction`` x the run's 95th TIC percentile are the ones where the spray worked, and their
+    median is the reference. In a run without a failure that is (nearly) every scan, so the
+    reference is the run median as before; in a run that failed for 90 % of its scans it is the
+    median of the 10 % that worked. A failure of more than 95 % of the run is not seen as one,
+    and when more than 5 % of the scans are over 1 / ``fraction`` times the rest, the rest reads
+    as a dropout (by the definition: below ``fraction`` of the working signal).
+    """
+    known = tic[np.isfinite(tic)]
+    if not known.size:
+        return None
+    top = float(np.quantile(known, WORKING_QUANTILE))
+    working = known[known >= fraction * top]
+    return float(np.median(working)) if working.size else None
+
+
 def find_dropouts(
     tic: FloatArray,
     rt_s: FloatArray,
@@ -130,12 +157,16 @@ def find_dropouts(
         rt_s: MS1 RT in seconds, same order (NaN = unknown).
         threshold: TIC below this is a dropout scan (e.g. 0.1 x run median).
         min_scans: a run of low scans counts only when at least this long.
-        cycle_s: median MS1 cycle, to size a dropout whose end or start has no RT.
+        cycle_s: median MS1 cycle of the run, for a dropout whose own scans give no step.
 
     Returns:
-        (count, longest duration in seconds). A dropout lasts from its first low scan to the
-        next normal scan; at the end of the run, or without RTs, it is scans x median cycle.
-        The duration is None when neither is known; 0.0 when there is no dropout.
+        (count, longest duration in seconds). A dropout lasts from its first low scan to its
+        last low scan plus one step of its own cadence (the median RT step between its low
+        scans), wherever it sits in the run. In DDA the MS1 scans come faster while the spray is
+        out (no precursors, no MS2), so the run's median cycle would oversize a dropout at the
+        end of the run several times. A single low scan takes the step to the next scan, else
+        the run's median cycle. Without RTs it is scans x median cycle; None when neither is
+        known; 0.0 when there is no dropout.
     """
     low = tic < threshold  # NaN compares False: unknown TIC is not a dropout
     count = 0
@@ -153,16 +184,28 @@ def find_dropouts(
         if length < max(min_scans, 1):
             continue
         count += 1
-        duration: float | None = None
-        if i < n and math.isfinite(rt_s[start]) and math.isfinite(rt_s[i]):
-            duration = float(rt_s[i] - rt_s[start])
-        elif cycle_s is not None:
-            duration = length * cycle_s
+        duration = _dropout_s(rt_s, start, i, cycle_s)
         if duration is None:
             longest = None
         elif longest is not None:
             longest = max(longest, duration)
     return count, longest
+
+
+def _dropout_s(rt_s: FloatArray, start: int, end: int, cycle_s: float | None) -> float | None:
+    """Duration of the low scans ``rt_s[start:end]``: their span plus one step of their own."""
+    segment = rt_s[start:end]
+    if np.isfinite(segment).all():
+        if segment.size >= 2:
+            step = float(np.median(np.diff(segment)))
+        elif end < rt_s.size and math.isfinite(rt_s[end]):
+            step = float(rt_s[end] - segment[0])
+        elif cycle_s is not None:
+            step = cycle_s
+        else:
+            return None
+        return float(segment[-1] - segment[0]) + step
+    return segment.size * cycle_s if cycle_s is not None else None
 
 
 def tic_quantile_rts(
