@@ -7,6 +7,7 @@ expected numbers below were worked out by hand from those formulas and are writt
 
 from __future__ import annotations
 
+import numpy as np
 import pytest
 
 from watcher.rules.trend import cusum, ewma, forecast, theil_sen
@@ -115,3 +116,25 @@ def test_forecast_gives_nothing_for_scatter_around_zero() -> None:
     times_h = [i * 0.5 for i in range(8)]
     values = [0.3, -0.2, 0.1, -0.4, 0.2, -0.1, 0.25, -0.3]
     assert forecast(times_h, values, upper=5.0, lower=-5.0) is None
+
+
+def test_kendall_tau_b_matches_scipy_with_and_without_ties() -> None:
+    """Tau-b against scipy.stats.kendalltau (variant 'b', the default); the tied example of a
+    flat stretch reads 0.775, not 1.0 (Goodman-Kruskal gamma would give 1.0)."""
+    from scipy.stats import kendalltau
+
+    from watcher.rules.trend import kendall_tau_b
+
+    flat_then_rising = [1.0, 1.0, 1.0, 1.0, 1.2, 1.4]
+    times = [0.0, 1.0, 2.0, 3.0, 4.0, 5.0]
+    assert kendall_tau_b(times, flat_then_rising) == pytest.approx(0.7745966692414834)
+    rng = np.random.default_rng(11)
+    for _ in range(50):
+        n = int(rng.integers(3, 30))
+        xs = list(rng.integers(0, 6, n).astype(float))  # many ties on both sides
+        ys = list(rng.integers(0, 4, n).astype(float))
+        expected = kendalltau(xs, ys).statistic
+        if np.isnan(expected):
+            assert kendall_tau_b(xs, ys) == 0.0
+        else:
+            assert kendall_tau_b(xs, ys) == pytest.approx(float(expected), abs=1e-12)

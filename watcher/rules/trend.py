@@ -185,15 +185,32 @@ def _trend_holds(
         return False
     # Kendall's tau: most pairs of runs must agree with the direction of the fitted line. A few
     # high runs followed by a recalibration can tilt a Theil-Sen line without being a trend.
-    concordant = discordant = 0
-    for i in range(len(values)):
-        for j in range(i + 1, len(values)):
-            product = (times_h[j] - times_h[i]) * (values[j] - values[i])
+    return kendall_tau_b(times_h, values) * math.copysign(1.0, slope) >= MIN_TREND_TAU
+
+
+def kendall_tau_b(xs: Sequence[float], ys: Sequence[float]) -> float:
+    """Kendall's tau-b: (concordant - discordant) / sqrt((n0 - ties_x) (n0 - ties_y)).
+
+    Tau-b counts tied pairs in the denominator (Kendall 1945, "The treatment of ties in ranking
+    problems"), so a flat stretch of equal values weakens the trend. Dividing by the untied pairs
+    only (concordant + discordant) would be Goodman and Kruskal's gamma, which reads
+    [1, 1, 1, 1, 1.2, 1.4] as a perfect trend (1.0 against tau-b 0.775). O(n^2) pairs: the
+    forecast window is a few dozen runs. 0.0 when either side is constant.
+    """
+    n = len(xs)
+    concordant = discordant = tied_x = tied_y = 0
+    for i in range(n):
+        for j in range(i + 1, n):
+            dx = xs[j] - xs[i]
+            dy = ys[j] - ys[i]
+            tied_x += dx == 0
+            tied_y += dy == 0
+            product = dx * dy
             concordant += product > 0
             discordant += product < 0
-    pairs = concordant + discordant
-    tau = (concordant - discordant) / pairs if pairs else 0.0
-    return tau * math.copysign(1.0, slope) >= MIN_TREND_TAU
+    pairs = n * (n - 1) // 2
+    denominator = math.sqrt((pairs - tied_x) * (pairs - tied_y))
+    return (concordant - discordant) / denominator if denominator > 0 else 0.0
 
 
 def _last_step(values: Sequence[float]) -> int:
