@@ -133,3 +133,21 @@ def test_looks_profile_tells_sampled_from_centroided() -> None:
     # common practice: profile peaks are sampled many times across a ~30 ppm width
     assert looks_profile(prof_mz)
     assert not looks_profile(cent_mz)
+
+
+def test_calibrant_beside_a_stronger_ion_is_found() -> None:
+    """Leu-enkephalin [M+H]+ 556.276575 (check-ions.tsv) at +1.0 ppm, resolving power 60,000
+    (FWHM = m/z / R), with a 50x stronger ion 35 ppm above it: the window's highest point is
+    that ion's flank, but the calibrant's own local maximum lies inside and is the answer."""
+    leu_enk_mz = 556.276575
+    fwhm_ppm = 1e6 / 60_000
+    true_mz = shifted(leu_enk_mz, 1.0)
+    mz, intensity = profile_arrays(
+        [(true_mz, 1e5), (shifted(leu_enk_mz, 35.0), 5e6)], fwhm_ppm=fwhm_ppm, spacing_ppm=2.0
+    )
+    window = np.abs(mz - leu_enk_mz) <= leu_enk_mz * 20e-6
+    assert intensity[window].max() > 1e5  # the flank outshines the calibrant inside the window
+    peak = find_peak(mz, intensity, leu_enk_mz, 20.0, profile=True)
+    assert peak is not None
+    assert ppm_error(peak[0], true_mz) == pytest.approx(0.0, abs=0.05)
+    assert peak[1] == pytest.approx(1e5, rel=0.01)

@@ -65,17 +65,34 @@ def find_peak(
         return None
     if not profile:
         return float(mz[top]), float(intensity[top])
-    # The highest point in the window may sit on the flank of a peak whose top sample lies just
-    # outside it: climb to the local maximum, then accept it if the refined apex is inside.
-    last = mz.size - 1
-    while top < last and intensity[top + 1] > intensity[top]:
-        top += 1
-    while top > 0 and intensity[top - 1] > intensity[top]:
-        top -= 1
-    apex_mz, apex_intensity = refine_apex(mz, intensity, top, wide=True)
-    if abs(apex_mz - mz_target) > half_width:
-        return None
-    return apex_mz, apex_intensity
+    return _profile_peak(mz, intensity, mz_target, half_width, lo, hi)
+
+
+def _profile_peak(
+    mz: FloatArray, intensity: FloatArray, mz_target: float, half_width: float, lo: int, hi: int
+) -> tuple[float, float] | None:
+    """The highest local maximum whose refined apex lies inside the window.
+
+    The highest point in the window may be the flank of a stronger peak just outside it (a
+    calibrant beside a 50x stronger ion 35 ppm away): climbing from there would leave the window
+    and lose the calibrant, though its own local maximum sits inside. So every local maximum from
+    one sample before the window to one after it (a top sample just past the edge can still
+    refine to an apex inside) is a candidate, highest first.
+    """
+    start, stop = max(lo - 1, 0), min(hi + 1, mz.size)
+    y = np.where(np.isfinite(intensity[start:stop]), intensity[start:stop], -np.inf)
+    # Neighbours outside the slice: the samples beyond it (or nothing at the array's ends).
+    before = intensity[start - 1] if start > 0 else -np.inf
+    after = intensity[stop] if stop < mz.size else -np.inf
+    padded = np.concatenate(([before], y, [after]))
+    padded = np.where(np.isfinite(padded), padded, -np.inf)
+    middle = padded[1:-1]
+    is_max = (middle > 0) & (middle >= padded[:-2]) & (middle >= padded[2:])
+    for k in np.flatnonzero(is_max)[np.argsort(-middle[is_max], kind="stable")]:
+        apex_mz, apex_intensity = refine_apex(mz, intensity, start + int(k), wide=True)
+        if abs(apex_mz - mz_target) <= half_width:
+            return apex_mz, apex_intensity
+    return None
 
 
 def refine_apex(x: FloatArray, y: FloatArray, i: int, *, wide: bool = False) -> tuple[float, float]:
@@ -84,9 +101,10 @@ def refine_apex(x: FloatArray, y: FloatArray, i: int, *, wide: bool = False) -> 
     A parabola through the log intensities of three points is exact for a Gaussian peak, which
     ToF and Orbitrap profile peaks and chromatographic peaks approximate; the top sample alone
     can be off by half the spacing (1-3 ppm in m/z). With ``wide`` the side points are the
-    outermost contiguous samples still at or above half the top height (the direct neighbours
-    when sampling is coarse): still exact for a Gaussian, but on a densely sampled peak the
-    three top samples differ by a percent or two, so point noise of that size would swing the
+    outermost contiguous samples still at or above half the top height, short of a valley (the
+    direct neighbours when sampling is coarse, or when a neighbouring peak's flank reaches the
+    half-height points): still exact for a Gaussian, but on a densely sampled peak the three top
+    samples differ by a percent or two, so point noise of that size would swing the
     apex by a ppm; points near half height pin the curvature down. Falls back to a parabola
     through the raw intensities when a side point is not positive, and to the sample itself at
     an array edge or when the three points are not concave.
@@ -97,10 +115,23 @@ def refine_apex(x: FloatArray, y: FloatArray, i: int, *, wide: bool = False) -> 
     left, right = i - 1, i + 1
     if wide:
         half = 0.5 * float(y[i])
-        while left > 0 and y[left - 1] >= half:
+        # Stop at a valley too: past it the points belong to a neighbouring peak (a calibrant
+        # beside a stronger ion), whose flank would bend the fit. A rise of less than 10 % of
+        # the top over the lowest point so far is point noise, not a valley.
+        rise = 0.1 * float(y[i])
+        low = float(y[left])
+        while left > 0 and half <= y[left - 1] <= low + rise:
             left -= 1
-        while right < last and y[right + 1] >= half:
+            low = min(low, float(y[left]))
+        valley = left > 0 and y[left - 1] > low + rise
+        low = float(y[right])
+        while right < last and half <= y[right + 1] <= low + rise:
             right += 1
+            low = min(low, float(y[right]))
+        if valley or (right < last and y[right + 1] > low + rise):
+            # A neighbour's flank already lifts the points towards half height: the direct
+            # neighbours are the least touched by it.
+            left, right = i - 1, i + 1
     return _vertex(
         float(x[left]), float(y[left]), float(x[i]), float(y[i]), float(x[right]), float(y[right])
     )
