@@ -133,3 +133,31 @@ def test_profile_xic_with_narrow_window_is_not_noisy() -> None:
     # docs/performance.md: a raw +-10 ppm sum on profile data put 2 of 10 apexes 5-7 s off
     assert result.apex_rt_s == pytest.approx(181.3, abs=CYCLE_S)
     assert result.apex_intensity == pytest.approx(truth.height, rel=0.05)
+
+
+def test_noisy_densely_sampled_elution_is_not_biased() -> None:
+    """0.2 s cycle, 30 s FWHM, 5 % multiplicative noise, 300 trials: the median apex height and
+    FWHM stay within 2 % of the Gaussian's (ground truth by construction); a curve forced
+    through the top sample read the height about +11 % and the FWHM about -14 %."""
+    import math
+
+    import numpy as np
+
+    from watcher.measure.xic import elution_peak
+
+    rng = np.random.default_rng(5)
+    rt = np.arange(0.0, 120.0, 0.2)
+    true_rt, true_height, true_fwhm = 61.3, 1.0e6, 30.0
+    sigma = true_fwhm / (2.0 * math.sqrt(2.0 * math.log(2.0)))
+    clean = true_height * np.exp(-0.5 * ((rt - true_rt) / sigma) ** 2)
+    heights, widths, apexes = [], [], []
+    for _ in range(300):
+        noisy = clean * (1.0 + 0.05 * rng.standard_normal(rt.size))
+        apex_rt, apex_height, fwhm_s = elution_peak(rt, noisy, int(np.argmax(noisy)))
+        assert fwhm_s is not None
+        heights.append(apex_height / true_height)
+        widths.append(fwhm_s / true_fwhm)
+        apexes.append(apex_rt - true_rt)
+    assert float(np.median(heights)) == pytest.approx(1.0, abs=0.02)
+    assert float(np.median(widths)) == pytest.approx(1.0, abs=0.02)
+    assert float(np.median(apexes)) == pytest.approx(0.0, abs=0.2)

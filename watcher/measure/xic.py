@@ -84,8 +84,7 @@ class XicTrace:
         if not height.size or not height.max() > 0:
             return absent(self.ion)
         top = int(np.argmax(height))
-        # Apex between scans: the same 3-point Gaussian refinement as in m/z, over RT.
-        apex_rt_s, apex_intensity = refine_apex(rt, height, top, wide=True)
+        apex_rt_s, apex_intensity, fwhm_s = elution_peak(rt, height, top)
         return ExpectedIonResult(
             name=self.ion.name,
             mz=self.ion.mz,
@@ -93,10 +92,62 @@ class XicTrace:
             apex_rt_s=apex_rt_s,
             apex_intensity=apex_intensity,
             ppm=ppm_error(_apex_mz(peak_mz, height, top), self.ion.mz),
-            fwhm_s=fwhm(rt, height, top, apex_intensity / 2),
+            fwhm_s=fwhm_s,
             m1_ratio=float(m1[top] / height[top]),
             m1_ratio_expected=self.ion.m1_ratio_expected,
         )
+
+
+# A least-squares fit needs a few points across the top; fewer and the 3-point vertex is as good.
+_MIN_FIT_POINTS = 5
+_SIGMA_TO_FWHM = 2.0 * math.sqrt(2.0 * math.log(2.0))
+
+
+def elution_peak(
+    rt_s: FloatArray, height: FloatArray, top: int
+) -> tuple[float, float, float | None]:
+    """Apex RT, apex height and FWHM of the elution around scan ``top`` (the highest).
+
+    A Gaussian (a parabola in log height) fitted by least squares through every scan of the
+    peak at or above half the top scan's height, weighted by height (Guo, IEEE Signal Process.
+    Mag. 28 (2011) 134: weighting the log fit by y^2 undoes the noise amplification of the log).
+    On a densely sampled noisy peak the top scan is the maximum of many noisy samples: a curve
+    forced through it (the 3-point vertex) reads the height high and the width low (0.2 s
+    cycle, 30 s FWHM, 5 % noise: +11 % and -14 %); the fit through all points does not. With
+    fewer than five points, or a fit that is not a peak, the 3-point vertex and the linear
+    half-height crossings are used.
+    """
+    half = 0.5 * float(height[top])
+    left = top
+    while left > 0 and height[left - 1] >= half:
+        left -= 1
+    right = top
+    while right < height.size - 1 and height[right + 1] >= half:
+        right += 1
+    fitted = _fit_gaussian(rt_s[left : right + 1], height[left : right + 1])
+    if fitted is not None:
+        return fitted
+    apex_rt_s, apex_intensity = refine_apex(rt_s, height, top, wide=True)
+    return apex_rt_s, apex_intensity, fwhm(rt_s, height, top, apex_intensity / 2)
+
+
+def _fit_gaussian(x: FloatArray, y: FloatArray) -> tuple[float, float, float] | None:
+    keep = np.isfinite(x) & np.isfinite(y) & (y > 0)
+    x, y = x[keep], y[keep]
+    if x.size < _MIN_FIT_POINTS:
+        return None
+    centre = float(x[int(np.argmax(y))])  # centred: squares of RTs near 3,000 s lose digits
+    u = x - centre
+    design = np.column_stack((np.ones_like(u), u, u * u)) * y[:, None]
+    coeffs, *_ = np.linalg.lstsq(design, np.log(y) * y, rcond=None)
+    a, b, c = (float(v) for v in coeffs)
+    if not c < 0:
+        return None
+    u_apex = -b / (2.0 * c)
+    if not float(u.min()) <= u_apex <= float(u.max()):
+        return None  # the vertex of a lopsided fit outside the points is no apex
+    sigma = math.sqrt(-1.0 / (2.0 * c))
+    return centre + u_apex, math.exp(a - b * b / (4.0 * c)), _SIGMA_TO_FWHM * sigma
 
 
 def absent(ion: ResolvedIon, *, searched: bool = True) -> ExpectedIonResult:
