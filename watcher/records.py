@@ -239,11 +239,13 @@ class Verdict:
     # The (check, subject) pairs the rules evaluated on this run (``Judgement.evaluated``): only
     # these may clear an open alert. Empty for an unreadable run.
     evaluated: frozenset[tuple[str, str]] = frozenset()
+    trend_states: tuple[TrendState, ...] = ()  # stored with the run, continued by the next
     judged_at: datetime | None = None
 
     def to_dict(self) -> dict[str, Any]:
         out: dict[str, Any] = _jsonable(dataclasses.asdict(self))
         out["evaluated"] = sorted([list(pair) for pair in self.evaluated])
+        out.pop("trend_states", None)  # the rules' working state, kept in the store only
         return out
 
 
@@ -274,6 +276,31 @@ class ReadFailure:
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
+class TrendState:
+    """The EWMA and CUSUM statistics of one (check, metric path) after one run, carried to the
+    next run so that they span the whole history, not a window of it.
+
+    Attributes:
+        check: the check's name.
+        path: the concrete metric path.
+        spec: the check's EWMA/CUSUM/baseline settings as text; a state made under other settings
+            is not continued (the statistics restart from a window of recent runs).
+        n_runs: runs the statistics have seen (for the EWMA limits' start-up factor).
+        ewma: the EWMA statistic, or None without an EWMA rule.
+        cusum_hi: the upper tabular CUSUM sum (SD units), or None without a CUSUM rule.
+        cusum_lo: the lower sum.
+    """
+
+    check: str
+    path: str
+    spec: str
+    n_runs: int
+    ewma: float | None = None
+    cusum_hi: float | None = None
+    cusum_lo: float | None = None
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
 class Judgement:
     """What the rules made of one run's metrics (``watcher.rules.judge``), for the Verdict.
 
@@ -288,6 +315,7 @@ class Judgement:
     status: Status
     findings: tuple[Finding, ...]
     evaluated: frozenset[tuple[str, str]]
+    trend_states: tuple[TrendState, ...] = ()
 
 
 class DaemonEvent(StrEnum):

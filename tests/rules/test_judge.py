@@ -22,6 +22,7 @@ from watcher.records import (
     RunMetrics,
     Severity,
     Status,
+    TrendState,
 )
 from watcher.rules.judge import History, judge
 
@@ -48,6 +49,9 @@ class ListHistory:
     def series(self, metric: str, *, before: datetime, limit: int) -> Sequence[HistoryPoint]:
         earlier = [p for p in self.points.get(metric, []) if p.acquired_at < before]
         return earlier[max(0, len(earlier) - limit) :] if limit > 0 else []
+
+    def trend_state(self, check: str, path: str, *, before: datetime) -> TrendState | None:
+        return None  # no stored statistics: EWMA and CUSUM start over the recent window
 
 
 def history_of(

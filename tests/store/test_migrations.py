@@ -37,8 +37,9 @@ def _pre_versioning_store(state: Path) -> None:
 
 def test_a_fresh_file_gets_the_current_version_and_schema(tmp_path: Path) -> None:
     conn = db.connect(tmp_path / "state", daemon=True)
-    assert db.user_version(conn) == db.SCHEMA_VERSION == 2
+    assert db.user_version(conn) == db.SCHEMA_VERSION == len(migrations.MIGRATIONS) + 1
     assert "jobs_by_updated" in _indexes(conn)
+    assert "trend_states_by_time" in _indexes(conn)
     conn.close()
 
 
@@ -71,14 +72,16 @@ def test_a_failing_migration_leaves_the_store_untouched(tmp_path: Path) -> None:
     failing = (
         *migrations.MIGRATIONS,
         migrations.Migration(
-            version=3, summary="broken", sql="CREATE TABLE extra (x); SELECT * FROM missing"
+            version=db.SCHEMA_VERSION + 1,
+            summary="broken",
+            sql="CREATE TABLE extra (x); SELECT * FROM missing",
         ),
     )
     conn = sqlite3.connect(tmp_path / "state" / db.DB_NAME, isolation_level=None)
     with pytest.raises(sqlite3.OperationalError, match="missing"):
         db.upgrade(conn, tmp_path / "state" / db.DB_NAME, failing)
     assert db.user_version(conn) == 0
-    assert "jobs_by_updated" not in _indexes(conn)  # step 2 rolled back with step 3
+    assert "jobs_by_updated" not in _indexes(conn)  # step 2 rolled back with the broken one
     assert conn.execute("SELECT verdict FROM jobs").fetchone()[0] is not None
     tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
     assert "extra" not in tables

@@ -126,6 +126,7 @@ def check_file(
         metrics=metrics,
         findings=judgement.findings,
         evaluated=judgement.evaluated,
+        trend_states=judgement.trend_states,
         judged_at=judged_at,
     )
 

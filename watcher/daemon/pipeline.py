@@ -398,6 +398,7 @@ class Pipeline:
             metrics=metrics,
             findings=judgement.findings,
             evaluated=judgement.evaluated,
+            trend_states=judgement.trend_states,
             judged_at=judged_at,
         )
 

@@ -16,8 +16,11 @@ History semantics (documented choices):
 - ``for_runs: N`` re-evaluates the same severity's condition on the previous N-1 values with the
   baseline as it is now; with too little history (or no history at all) it does not fire.
 - Westgard, EWMA and CUSUM need a baseline with SD > 0 (fixed mean/sd, or enough accepted runs);
-  without one they are skipped. EWMA and CUSUM run over the last ``TREND_RUNS`` runs + this one,
-  starting from the baseline centre.
+  without one they are skipped. EWMA and CUSUM carry their statistics from run to run (the state
+  the last earlier run of the same check and metric left, ``History.trend_state``), so they span
+  the whole history and CUSUM adds up a shift just above k; without a state (the first run, or
+  after the check's EWMA/CUSUM/baseline settings changed) they start from the baseline centre
+  over the last ``TREND_RUNS`` runs + this one.
 - Westgard, EWMA and CUSUM findings take ``check.westgard_severity`` (1-2s alone: notice); the
   forecast takes ``check.forecast.severity`` and is skipped when the run is already critical on
   its limit. It fits the last ``forecast.runs`` runs (this one included; at least 5 after the
@@ -40,6 +43,7 @@ from watcher.records import (
     RunMetrics,
     Severity,
     Status,
+    TrendState,
 )
 from watcher.rules import finding_text as messages
 from watcher.rules import trend, westgard
@@ -62,10 +66,14 @@ MS1_ONLY_PREFIXES = ("calibrant.", "expected_ion.", "expected_ions.", "mass_corr
 
 
 class History(Protocol):
-    """Earlier runs' values of one metric."""
+    """Earlier runs' values of one metric, and the trend statistics they left."""
 
     def series(self, metric: str, *, before: datetime, limit: int) -> Sequence[HistoryPoint]:
         """Oldest first: at most ``limit`` most recent runs acquired strictly before ``before``."""
+        ...
+
+    def trend_state(self, check: str, path: str, *, before: datetime) -> TrendState | None:
+        """The EWMA/CUSUM state stored with the latest run acquired before ``before``."""
         ...
 
 
@@ -118,6 +126,7 @@ class _Context:
     acquired_at: datetime
     baseline: Baseline | None
     recent: list[HistoryPoint]  # same kind, any status, oldest first
+    previous: TrendState | None = None  # the EWMA/CUSUM state the last earlier run left
 
 
 def _needs_baseline(check: Check) -> bool:
@@ -225,12 +234,58 @@ def _trend(ctx: _Context, severity: Severity, message: str, limit: str, rule: st
     )
 
 
-def _trend_findings(ctx: _Context) -> list[Finding]:
+def trend_spec(check: Check) -> str:
+    """The settings a carried EWMA/CUSUM state depends on; a change restarts the statistics."""
+    ewma = f"ewma {check.ewma.lam:g} {check.ewma.L:g}" if check.ewma else "ewma -"
+    cusum = f"cusum {check.cusum.k:g}" if check.cusum else "cusum -"
+    b = check.baseline
+    return f"{ewma}; {cusum}; baseline {b.runs} {b.min_runs} {b.mean} {b.sd}"
+
+
+def _carried(ctx: _Context) -> TrendState | None:
+    prev = ctx.previous
+    return prev if prev is not None and prev.spec == trend_spec(ctx.check) else None
+
+
+def _ewma_now(ctx: _Context, b: Baseline, xs: list[float]) -> tuple[trend.EwmaPoint, int]:
+    """This run's EWMA point and the runs it has seen: continued from the last run's state
+    (the whole history), else started from the baseline centre over the recent window."""
+    spec = ctx.check.ewma
+    assert spec is not None  # noqa: S101 - the caller checked
+    prev = _carried(ctx)
+    if prev is None or prev.ewma is None:
+        window = xs[-(TREND_RUNS + 1) :]
+        return trend.ewma(window, mean=b.centre, sd=b.sd, lam=spec.lam, L=spec.L)[-1], len(window)
+    n = prev.n_runs + 1
+    z = spec.lam * float(ctx.value) + (1.0 - spec.lam) * prev.ewma
+    return trend.ewma_point(z, n, mean=b.centre, sd=b.sd, lam=spec.lam, L=spec.L), n
+
+
+def _cusum_now(ctx: _Context, b: Baseline, xs: list[float]) -> tuple[trend.CusumPoint, int]:
+    """This run's CUSUM sums, continued from the last run's (the handbook's tabular CUSUM over
+    the whole history, so a shift just above k still adds up to h), else over the window."""
+    spec = ctx.check.cusum
+    assert spec is not None  # noqa: S101 - the caller checked
+    prev = _carried(ctx)
+    if prev is None or prev.cusum_hi is None or prev.cusum_lo is None:
+        window = xs[-(TREND_RUNS + 1) :]
+        return trend.cusum(window, mean=b.centre, sd=b.sd, k=spec.k)[-1], len(window)
+    z = (float(ctx.value) - b.centre) / b.sd
+    point = trend.CusumPoint(
+        s_hi=max(0.0, prev.cusum_hi + z - spec.k), s_lo=max(0.0, prev.cusum_lo - z - spec.k)
+    )
+    return point, prev.n_runs + 1
+
+
+def _trend_findings(ctx: _Context) -> tuple[list[Finding], TrendState | None]:
     check, b = ctx.check, ctx.baseline
     if b is None or b.sd <= 0.0 or isinstance(ctx.value, bool):
-        return []
+        return [], None
     out: list[Finding] = []
     xs = _sequence(ctx)
+    ewma_value: float | None = None
+    cusum_sums: tuple[float, float] | None = None
+    n_runs = 0
     if check.westgard:
         z = [(x - b.centre) / b.sd for x in xs[-(WESTGARD_RUNS + 1) :]]
         fired = westgard.violations(z, check.westgard)
@@ -248,9 +303,9 @@ def _trend_findings(ctx: _Context) -> list[Finding]:
             )
     if check.ewma is not None:
         spec = check.ewma
-        last = trend.ewma(xs[-(TREND_RUNS + 1) :], mean=b.centre, sd=b.sd, lam=spec.lam, L=spec.L)
-        if last[-1].is_out:
-            p = last[-1]
+        p, n_runs = _ewma_now(ctx, b, xs)
+        ewma_value = p.ewma
+        if p.is_out:
             bound = p.upper if p.ewma > p.upper else p.lower
             out.append(
                 _trend(
@@ -262,7 +317,8 @@ def _trend_findings(ctx: _Context) -> list[Finding]:
                 )
             )
     if check.cusum is not None:
-        c = trend.cusum(xs[-(TREND_RUNS + 1) :], mean=b.centre, sd=b.sd, k=check.cusum.k)[-1]
+        c, n_runs = _cusum_now(ctx, b, xs)
+        cusum_sums = (c.s_hi, c.s_lo)
         s = max(c.s_hi, c.s_lo)
         if s > check.cusum.h:
             out.append(
@@ -276,7 +332,18 @@ def _trend_findings(ctx: _Context) -> list[Finding]:
                     "cusum",
                 )
             )
-    return out
+    if ewma_value is None and cusum_sums is None:
+        return out, None
+    state = TrendState(
+        check=check.name,
+        path=ctx.path,
+        spec=trend_spec(check),
+        n_runs=n_runs,
+        ewma=ewma_value,
+        cusum_hi=cusum_sums[0] if cusum_sums else None,
+        cusum_lo=cusum_sums[1] if cusum_sums else None,
+    )
+    return out, state
 
 
 def _forecast_finding(ctx: _Context) -> Finding | None:
@@ -331,15 +398,24 @@ def judge(
     flat = _judgeable(metrics)
     findings: list[Finding] = []
     evaluated: set[tuple[str, str]] = set()
+    states: list[TrendState] = []
     for check, path, value in _evaluated(flat, file_name, checks):
         evaluated.add((check.name, path))
-        findings.extend(_judge_path(check, path, value, file_name, acquired_at, history))
+        found, state = _judge_path(check, path, value, file_name, acquired_at, history)
+        findings.extend(found)
+        if state is not None:
+            states.append(state)
     status = Status.OK
     for f in findings:
         candidate = Status(f.severity.value)
         if STATUS_RANK[candidate] > STATUS_RANK[status]:
             status = candidate
-    return Judgement(status=status, findings=tuple(findings), evaluated=frozenset(evaluated))
+    return Judgement(
+        status=status,
+        findings=tuple(findings),
+        evaluated=frozenset(evaluated),
+        trend_states=tuple(states),
+    )
 
 
 def _judgeable(metrics: RunMetrics) -> dict[str, float | bool | None]:
@@ -377,9 +453,10 @@ def _judge_path(
     file_name: str,
     acquired_at: datetime,
     history: History | None,
-) -> list[Finding]:
+) -> tuple[list[Finding], TrendState | None]:
     accepted: list[float] = []
     recent: list[HistoryPoint] = []
+    previous: TrendState | None = None
     fixed = check.baseline.mean is not None and check.baseline.sd is not None
     if history is not None:
         if _needs_baseline(check) and not fixed:
@@ -403,6 +480,8 @@ def _judge_path(
             limit=_recent_limit(check),
             accepted_only=False,
         )
+        if check.ewma is not None or check.cusum is not None:
+            previous = history.trend_state(check.name, path, before=acquired_at)
     baseline = from_spec(check.baseline, accepted) if _needs_baseline(check) else None
     ctx = _Context(
         check=check,
@@ -412,14 +491,16 @@ def _judge_path(
         acquired_at=acquired_at,
         baseline=baseline,
         recent=recent,
+        previous=previous,
     )
     out: list[Finding] = []
     limit = _limit_finding(ctx)
     if limit is not None:
         out.append(limit)
-    out.extend(_trend_findings(ctx))
+    trend_found, state = _trend_findings(ctx)
+    out.extend(trend_found)
     if limit is None or limit.severity is not Severity.CRITICAL:
         fc = _forecast_finding(ctx)
         if fc is not None:
             out.append(fc)
-    return out
+    return out, state

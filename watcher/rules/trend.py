@@ -54,9 +54,14 @@ def ewma(
     z = mean
     for t, x in enumerate(values, start=1):
         z = lam * x + (1.0 - lam) * z
-        half_width = L * sd * math.sqrt(lam / (2.0 - lam) * (1.0 - (1.0 - lam) ** (2 * t)))
-        out.append(EwmaPoint(ewma=z, lower=mean - half_width, upper=mean + half_width))
+        out.append(ewma_point(z, t, mean=mean, sd=sd, lam=lam, L=L))
     return out
+
+
+def ewma_point(z: float, t: int, *, mean: float, sd: float, lam: float, L: float) -> EwmaPoint:
+    """The EWMA statistic ``z`` after ``t`` values with its limits (formula in ``ewma``)."""
+    half_width = L * sd * math.sqrt(lam / (2.0 - lam) * (1.0 - (1.0 - lam) ** (2 * t)))
+    return EwmaPoint(ewma=z, lower=mean - half_width, upper=mean + half_width)
 
 
 def cusum(values: Sequence[float], *, mean: float, sd: float, k: float) -> list[CusumPoint]:

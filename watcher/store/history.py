@@ -24,7 +24,7 @@ from datetime import UTC, datetime
 from typing import TYPE_CHECKING, Any
 
 from watcher.config import matches_applies_to
-from watcher.records import Finding, HistoryPoint, Severity, Status, Verdict
+from watcher.records import Finding, HistoryPoint, Severity, Status, TrendState, Verdict
 from watcher.store.db import register_schema
 
 if TYPE_CHECKING:
@@ -141,6 +141,25 @@ def record_verdict(conn: sqlite3.Connection, verdict: Verdict) -> int:
         ),
     ).fetchone()
     run_id = int(row[0])
+    conn.execute("DELETE FROM trend_states WHERE run_id = ?", (run_id,))
+    conn.executemany(
+        "INSERT INTO trend_states (run_id, check_name, path, acquired_at, spec, n_runs, ewma,"
+        " cusum_hi, cusum_lo) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+        [
+            (
+                run_id,
+                t.check,
+                t.path,
+                acquired_text,
+                t.spec,
+                t.n_runs,
+                t.ewma,
+                t.cusum_hi,
+                t.cusum_lo,
+            )
+            for t in verdict.trend_states
+        ],
+    )
     conn.execute("DELETE FROM metrics WHERE run_id = ?", (run_id,))
     conn.executemany(
         "INSERT INTO metrics (run_id, path, acquired_at, value, is_bool) VALUES (?, ?, ?, ?, ?)",
@@ -274,3 +293,23 @@ class StoreHistory:
             cursor_id, cursor_at = int(rows[-1][0]), rows[-1][2]
         newest_first.reverse()
         return newest_first
+
+    def trend_state(self, check: str, path: str, *, before: datetime) -> TrendState | None:
+        """The EWMA/CUSUM state stored with the latest run acquired before ``before``."""
+        row = self._conn.execute(
+            "SELECT spec, n_runs, ewma, cusum_hi, cusum_lo FROM trend_states"
+            " WHERE check_name = ? AND path = ? AND acquired_at < ?"
+            " ORDER BY acquired_at DESC, run_id DESC LIMIT 1",
+            (check, path, to_text(before)),
+        ).fetchone()
+        if row is None:
+            return None
+        return TrendState(
+            check=check,
+            path=path,
+            spec=row[0],
+            n_runs=int(row[1]),
+            ewma=row[2],
+            cusum_hi=row[3],
+            cusum_lo=row[4],
+        )

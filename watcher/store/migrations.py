@@ -56,6 +56,28 @@ MIGRATIONS: tuple[Migration, ...] = (
         CREATE INDEX IF NOT EXISTS jobs_by_updated ON jobs (updated_s)
         """,
     ),
+    Migration(
+        version=3,
+        summary="trend_states: the EWMA and CUSUM statistics after each run, continued by the next",
+        # One row per run and (check, metric path): the rules read the latest earlier one, so
+        # EWMA and CUSUM span the whole history at the cost of one indexed lookup.
+        sql="""
+        CREATE TABLE IF NOT EXISTS trend_states (
+            run_id INTEGER NOT NULL REFERENCES runs (run_id) ON DELETE CASCADE,
+            check_name TEXT NOT NULL,
+            path TEXT NOT NULL,
+            acquired_at TEXT NOT NULL,
+            spec TEXT NOT NULL,
+            n_runs INTEGER NOT NULL,
+            ewma REAL,
+            cusum_hi REAL,
+            cusum_lo REAL,
+            PRIMARY KEY (run_id, check_name, path)
+        );
+        CREATE INDEX IF NOT EXISTS trend_states_by_time
+            ON trend_states (check_name, path, acquired_at)
+        """,
+    ),
 )
 
 
