@@ -206,3 +206,41 @@ def test_ppm_error_definition(observed: float, theoretical: float, ppm: float) -
     """ppm error is (observed - theoretical) / theoretical x 1e6."""
     # common practice (DESIGN.md vocabulary: mass error definition)
     assert ppm_error(observed, theoretical) == pytest.approx(ppm, abs=1e-9)
+
+
+GLUTATHIONE = IonSpec(name="glutathione", formula="C10H17N3O6S", adduct="+H")
+CAFFEINE_H = IonSpec(name="caffeine", formula="C8H10N4O2", adduct="+H")
+
+
+@pytest.mark.parametrize("resolving_power", [15_000, 30_000, 60_000, 120_000])
+@pytest.mark.parametrize("spec", [CAFFEINE_H, GLUTATHIONE], ids=["caffeine", "glutathione"])
+def test_expected_m1_ratio_matches_a_fine_structure_profile(
+    spec: IonSpec, resolving_power: int
+) -> None:
+    """Profile spectra built from the exact M+1 fine structure (one Gaussian of FWHM m/z / R
+    per isotopologue: 13C, 2H, 15N, 17O, 33S at their NIST mass offsets and abundances) read
+    the M+1/M height the expectation gives at that resolving power, within 2 %. The whole
+    nominal-mass cluster, the expectation without a resolving power, is 6-17 % too high for
+    these N- and S-rich ions once the 15N and 33S peaks separate."""
+    from tests.helpers.spectra import profile_arrays
+    from watcher.measure.ions import C13_SPACING_DA, m1_isotopologues
+    from watcher.measure.peaks import find_peak
+
+    cluster = resolve(spec)
+    at_r = resolve(spec, resolving_power=resolving_power)
+    assert cluster.composition is not None
+    composition = dict(cluster.composition)
+    z = abs(cluster.charge)
+    peaks = [(cluster.mz, 1.0e6)]
+    peaks += [(cluster.mz + d / z, 1.0e6 * a) for d, a in m1_isotopologues(composition)]
+    fwhm_ppm = 1e6 / resolving_power
+    mz, intensity = profile_arrays(peaks, fwhm_ppm=fwhm_ppm, spacing_ppm=fwhm_ppm / 8)
+    m0 = find_peak(mz, intensity, cluster.mz, 10.0, profile=True)
+    m1 = find_peak(mz, intensity, cluster.mz + C13_SPACING_DA / z, 10.0, profile=True)
+    assert m0 is not None
+    assert m1 is not None
+    observed = m1[1] / m0[1]
+    assert at_r.m1_ratio_expected == pytest.approx(observed, rel=0.02)
+    if resolving_power >= 60_000:
+        assert cluster.m1_ratio_expected is not None
+        assert cluster.m1_ratio_expected / observed - 1.0 > 0.06

@@ -39,6 +39,10 @@ def _key(name: str | None) -> dict[str, str | None]:
 class Instrument:
     name: str = "instrument"
     timezone: str = "UTC"  # IANA name; health-log days and the digest follow it
+    # m/z / FWHM of the MS1 scans, taken as constant over m/z. Set: the expected M+1/M is the
+    # height of the resolved 13C peak (the isotopologues a peak of that width merges with it);
+    # None: the whole nominal-mass M+1 cluster, right only for a low-resolution instrument.
+    resolving_power: float | None = None
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

@@ -101,7 +101,11 @@ def _instrument(v: Values, data: Any) -> Instrument:
         data,
         ("instrument",),
         Instrument,
-        {"name": lambda p, x: v.text(p, x), "timezone": lambda p, x: v.timezone(p, x)},
+        {
+            "name": lambda p, x: v.text(p, x),
+            "timezone": lambda p, x: v.timezone(p, x),
+            "resolving_power": lambda p, x: None if x is None else v.number(p, x, ge=100, le=1e7),
+        },
     )
 
 

@@ -251,7 +251,7 @@ def _resolve_all(config: Config, key: str) -> list[ResolvedIon]:
     problems: list[ConfigProblem] = []
     for i, spec in enumerate(specs):
         try:
-            resolved.append(resolve(spec))
+            resolved.append(resolve(spec, resolving_power=config.instrument.resolving_power))
         except ValueError as exc:
             source = str(config.source) if config.source is not None else "<config>"
             problems.append(ConfigProblem(source, None, f"{key}[{i}]", str(exc)))
