@@ -104,7 +104,10 @@ class CalibrantDrift:
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class MassCorrection:
-    """Linear fit of mass error against m/z over two or more calibrants: ppm = a + b * mz."""
+    """Linear fit of mass error against m/z over two or more calibrants: ppm = a + b * mz.
+
+    This is the error line; a correction subtracts it (the opposite sign). Never applied.
+    """
 
     intercept_ppm: float
     slope_ppm_per_mz: float

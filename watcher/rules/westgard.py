@@ -3,7 +3,9 @@
 Rule definitions after Westgard, Barry, Hunt and Groth, "A multi-rule Shewhart chart for quality
 control in clinical chemistry", Clin. Chem. 27 (1981) 493-501. The paper applies R-4s within one
 run across two control materials; with one QC value per run we apply it across the last two runs,
-a common adaptation. "Beyond k SD" is strict (``|z| > k``). A rule fires only when the current run
+a common adaptation. 4-1s is evaluated on every run, not only after a 1-2s warning as in the
+paper's scheme (a choice: four runs in a row at 1.5 SD are worth telling). "Beyond k SD" is strict
+(``|z| > k``). A rule fires only when the current run
 is part of the violating pattern, so an old violation does not fire again on every later run.
 """
 
