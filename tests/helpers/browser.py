@@ -25,11 +25,14 @@ FLAGS = (
 )
 
 
-def dump_dom(page: Path, profile: Path) -> subprocess.CompletedProcess[str]:
-    """The page's DOM after rendering (stdout) and Chromium's log (stderr)."""
+def dump_dom(
+    page: Path, profile: Path, *, size: str | None = None
+) -> subprocess.CompletedProcess[str]:
+    """The page's DOM after rendering (stdout) and Chromium's log (stderr), at ``size`` px."""
     assert CHROMIUM is not None
+    window = [f"--window-size={size}"] if size else []
     return subprocess.run(
-        [CHROMIUM, *FLAGS, f"--user-data-dir={profile}", "--dump-dom", page.as_uri()],
+        [CHROMIUM, *FLAGS, *window, f"--user-data-dir={profile}", "--dump-dom", page.as_uri()],
         capture_output=True,
         text=True,
         timeout=60,

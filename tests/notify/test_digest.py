@@ -172,7 +172,9 @@ def test_build_digest_counts_and_findings(state: Path) -> None:
         assert chart.png.startswith(b"\x89PNG\r\n\x1a\n")  # PNG signature (PNG spec, RFC 2083)
     text = digest_mod.render_text(d)
     assert "runs: 8 (ok 7, notice 0, warning 1, critical 0, unreadable 0)" in text
-    assert "QC_007.mzML warning calibration drift: 3.8" in text
+    assert "QC_007.mzML warning calibration drift, siloxane-445: 3.8" in text
+    # The verdict comes first: the worst run and the run that needs a decision.
+    assert text.splitlines()[1].startswith("worst run: WARNING; 1 run(s) need a decision")
 
 
 def test_day_bounds_follow_the_local_day() -> None:
@@ -334,3 +336,98 @@ def test_levey_jennings_centre_and_spread_are_the_rules_baseline(tmp_path: Path)
     assert cal2.centre_ppm is None
     assert cal2.sd_ppm is None
     assert cal2.baseline.startswith("none yet")
+
+
+def test_a_day_without_runs_says_so_in_one_line(state: Path) -> None:
+    """No runs on the day: one line, no charts, no empty tables."""
+    conn = db.connect(state, readonly=True)
+    d = digest_mod.build_digest(conn, CONFIG, date(2026, 3, 20))
+    conn.close()
+    assert d.run_count == 0
+    assert d.charts == ()
+    assert digest_mod.render_text(d).splitlines()[1] == "No runs were recorded on 2026-03-20."
+    page = digest_mod.render_html(d)
+    assert "No runs were recorded on 2026-03-20." in page
+    assert "<img" not in page
+    assert "<table" not in page
+
+
+def test_limits_are_drawn_and_points_take_the_metric_state() -> None:
+    """The check's fixed warning and critical bounds become chart lines (with or without a
+    baseline), and a point's colour is this metric's own finding in that run."""
+    check = Check(
+        name="drift",
+        metric="calibrant.*.median_ppm",
+        warning=Condition(outside=(-3.0, 3.0)),
+        critical=Condition(above=5.0),
+    )
+    assert sorted(digest_mod._limits(check)) == [
+        (-3.0, "warning"),
+        (3.0, "warning"),
+        (5.0, "critical"),
+    ]
+    at = datetime(2026, 3, 10, 1, 0, tzinfo=UTC)
+    pts = [(at + timedelta(hours=i), float(i)) for i in range(4)]
+    bare = digest_mod.plots.levey_jennings(pts, mean=None, sd=None, title="t")
+    with_limits = digest_mod.plots.levey_jennings(
+        pts, mean=None, sd=None, title="t", limits=digest_mod._limits(check)
+    )
+    assert bare != with_limits
+    other = Finding(
+        check="tic",
+        severity=Severity.CRITICAL,
+        metric="signal.tic_median",
+        subject="signal.tic_median",
+        message="m",
+        value=1.0,
+        limit="below 2",
+    )
+    run = history.RunRow(
+        run_id=1,
+        file_name="QC_1.mzML",
+        path="/x/QC_1.mzML",
+        acquired_at=at,
+        judged_at=at,
+        status=Status.CRITICAL,
+        error=None,
+        findings=(other,),
+        metrics={"calibrant.siloxane-445.median_ppm": 0.4},
+    )
+    # the run is critical for its TIC; on the calibrant chart its point is ok
+    assert digest_mod._metric_state(run, "calibrant.siloxane-445.median_ppm") == "ok"
+    assert digest_mod._metric_state(run, "signal.tic_median") == "critical"
+
+
+def test_digest_reads_at_desktop_and_phone_width(state: Path, tmp_path: Path) -> None:
+    """Headless Chromium at 1280 px and at a 390 px phone width: the verdict is the first
+    section and nothing is wider than the viewport. Headless windows are at least 500 px wide,
+    so the phone width is an iframe of 390 px; a probe (in a copy for the test, the page itself
+    has no script) posts the page's scroll width to the frame around it. Screenshots: tmp_path.
+    """
+    conn = db.connect(state, readonly=True)
+    html_page = digest_mod.render_html(digest_mod.build_digest(conn, CONFIG, DAY))
+    conn.close()
+    probe = (
+        "<script>window.onload=function(){parent.postMessage("
+        "String(document.documentElement.scrollWidth),'*')}</script>"
+    )
+    page = tmp_path / "digest.html"
+    page.write_text(html_page.replace("</body>", probe + "</body>"))
+    assert html_page.index('id="verdict"') < html_page.index("<h2>")
+    for width in (1280, 390):
+        frame = tmp_path / f"frame-{width}.html"
+        frame.write_text(
+            "<!DOCTYPE html><html><body style='margin:0'>"
+            "<script>window.addEventListener('message',function(e){"
+            "document.body.setAttribute('data-width',e.data)})</script>"
+            f"<iframe src='{page.name}' width='{width}' height='2400' style='border:0'>"
+            "</iframe></body></html>"
+        )
+        size = f"{max(width, 500)},2400"
+        dom = browser.dump_dom(frame, tmp_path / f"p{width}", size=size)
+        found = re.search(r'data-width="(\d+)"', dom.stdout)
+        assert found is not None, dom.stdout[:500]
+        assert int(found.group(1)) <= width, (width, found.group(1))
+        browser.screenshot(
+            frame, tmp_path / f"digest-{width}.png", tmp_path / f"s{width}", size=size
+        )

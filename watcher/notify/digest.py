@@ -20,9 +20,9 @@ from zoneinfo import ZoneInfo
 from watcher.config import BaselineSpec, Check, Config
 from watcher.notify import plots
 from watcher.notify.alert_text import format_value
-from watcher.records import Status
+from watcher.records import STATUS_RANK, Status
 from watcher.rules.baseline import Baseline, from_spec
-from watcher.rules.checks import matches_metric
+from watcher.rules.checks import critical_bounds, matches_metric
 from watcher.store import history
 
 if TYPE_CHECKING:
@@ -46,6 +46,7 @@ class FindingRow:
     time: str  # local HH:MM
     file: str
     check: str
+    subject: str  # the calibrant, ion or signal the finding is about (from its metric path)
     severity: str
     value: str
     limit: str
@@ -61,8 +62,31 @@ class CalibrantSummary:
     min_ppm: float | None
     max_ppm: float | None
     baseline: str  # where the chart's centre and SD come from
+    covers: str = "all runs"  # which runs the row and its chart hold (the check's applies_to)
     centre_ppm: float | None = None  # the rules' baseline centre at the start of the day
     sd_ppm: float | None = None  # and its spread; None when the rules had no baseline yet
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class OpenProblem:
+    """An alert still open when the digest was made: what, how bad, since when, which run."""
+
+    check: str
+    subject: str
+    severity: str
+    value: str
+    since: str  # local "YYYY-MM-DD HH:MM"
+    run_file: str | None
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class ReviewRun:
+    """A run of the day that needs a decision: critical, warning or unreadable."""
+
+    time: str
+    file: str
+    status: str
+    why: str
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -76,6 +100,9 @@ class Digest:
     findings: tuple[FindingRow, ...]
     unreadable: tuple[tuple[str, str], ...]  # (file, error)
     charts: tuple[Chart, ...]
+    worst: str = "ok"  # the worst run status of the day ("none" without runs)
+    open_problems: tuple[OpenProblem, ...] = ()
+    to_review: tuple[ReviewRun, ...] = ()
 
 
 # -- reading the history ----------------------------------------------------------------------
@@ -205,6 +232,7 @@ def _finding_rows(runs: Sequence[RunRow], tz: ZoneInfo) -> list[FindingRow]:
                     time=when,
                     file=run.file_name,
                     check=f.check,
+                    subject=subject_of(f.metric),
                     severity=str(f.severity),
                     value=with_unit(format_value(f.value), f.metric),
                     limit=with_unit(f.limit, f.metric),
@@ -215,15 +243,48 @@ def _finding_rows(runs: Sequence[RunRow], tz: ZoneInfo) -> list[FindingRow]:
     return rows
 
 
+def subject_of(metric: str) -> str:
+    """What a metric path is about: the calibrant or ion name, else the metric group."""
+    parts = metric.split(".")
+    if len(parts) >= 3 and parts[0] in ("calibrant", "expected_ion"):
+        return parts[1]
+    return parts[0]
+
+
+def _metric_state(run: RunRow, metric: str) -> str:
+    """This metric's own state in ``run``: its worst finding's severity, else ``ok`` (the run's
+    overall status could come from another metric and would mislead on this chart)."""
+    severities = [f.severity for f in run.findings if f.metric == metric]
+    worst = max(severities, key=lambda v: v.rank, default=None)
+    return "ok" if worst is None else str(worst)
+
+
 def _points(
     runs: Sequence[RunRow], metric: str, check: Check | None
 ) -> list[tuple[datetime, float, str]]:
-    """(acquired at, value, status) of the runs of the check's kind with a value for ``metric``."""
+    """(acquired at, value, this metric's state) of the runs of the check's kind with a value."""
     return [
-        (r.acquired_at, v, str(r.status))
+        (r.acquired_at, v, _metric_state(r, metric))
         for r in runs
         if _applies(check, r) and (v := _value(r, metric)) is not None
     ]
+
+
+def _limits(check: Check | None) -> list[tuple[float, str]]:
+    """The check's fixed warning and critical bounds (``above``/``below``/``outside``)."""
+    if check is None:
+        return []
+    out: list[tuple[float, str]] = []
+    for level, condition in (("warning", check.warning), ("critical", check.critical)):
+        upper, lower = critical_bounds(condition)
+        out.extend((v, level) for v in (upper, lower) if v is not None)
+    return out
+
+
+def _covers(check: Check | None) -> str:
+    if check is None or not check.applies_to:
+        return "all runs"
+    return "runs " + ", ".join(check.applies_to)
 
 
 def _summarise_calibrant(
@@ -231,6 +292,7 @@ def _summarise_calibrant(
     points: Sequence[tuple[datetime, float, str]],
     baseline: Baseline | None,
     source: str,
+    covers: str,
 ) -> CalibrantSummary:
     values = [p[1] for p in points]
     return CalibrantSummary(
@@ -242,6 +304,7 @@ def _summarise_calibrant(
         baseline=source,
         centre_ppm=baseline.centre if baseline is not None else None,
         sd_ppm=baseline.sd if baseline is not None else None,
+        covers=covers,
     )
 
 
@@ -251,10 +314,12 @@ def _levey_jennings(
     tz: ZoneInfo,
     *,
     title: str,
-    ylabel: str = "ppm",
+    ylabel: str = "median mass error (ppm)",
+    limits: Sequence[tuple[float, str]] = (),
 ) -> bytes:
     return plots.levey_jennings(
         [(p[0].astimezone(tz), p[1]) for p in points],
+        limits=limits,
         mean=baseline.centre if baseline is not None else None,
         sd=baseline.sd if baseline is not None and baseline.sd > 0 else None,
         title=title,
@@ -273,6 +338,27 @@ def _line(
     ]
 
 
+def _not_found(runs: Sequence[RunRow], name: str, tz: ZoneInfo) -> list[datetime]:
+    """Runs where the expected ion was looked for and not found (``found`` false)."""
+    return [
+        r.acquired_at.astimezone(tz)
+        for r in runs
+        if r.metrics.get(f"expected_ion.{name}.found") is False
+    ]
+
+
+def _found_line(
+    runs: Sequence[RunRow], name: str, field: str, tz: ZoneInfo, scale: float = 1.0
+) -> list[plots.Point]:
+    """The ion's values in the runs where it was found; a missing run is a gap, not a value."""
+    return [
+        (r.acquired_at.astimezone(tz), v * scale)
+        for r in runs
+        if r.metrics.get(f"expected_ion.{name}.found") is not False
+        and (v := _value(r, f"expected_ion.{name}.{field}")) is not None
+    ]
+
+
 def _run_charts(config: Config, runs: Sequence[RunRow], tz: ZoneInfo) -> list[Chart]:
     """TIC, expected-ion intensity and RT, and the status timeline of the day."""
     charts = [
@@ -281,7 +367,7 @@ def _run_charts(config: Config, runs: Sequence[RunRow], tz: ZoneInfo) -> list[Ch
             png=plots.series(
                 {"TIC median": _line(runs, "signal.tic_median", tz)},
                 title="TIC",
-                ylabel="counts",
+                ylabel="TIC (counts)",
                 log_y=True,
             ),
             kind="tic",
@@ -289,19 +375,28 @@ def _run_charts(config: Config, runs: Sequence[RunRow], tz: ZoneInfo) -> list[Ch
     ]
     if config.expected_ions:
         names = [e.ion.name for e in config.expected_ions]
-        intensity = {n: _line(runs, f"expected_ion.{n}.apex_intensity", tz) for n in names}
-        apex_rt_min = {n: _line(runs, f"expected_ion.{n}.apex_rt_s", tz, 1 / 60.0) for n in names}
+        missing = {n: _not_found(runs, n, tz) for n in names}
+        intensity = {n: _found_line(runs, n, "apex_intensity", tz) for n in names}
+        apex_rt_min = {n: _found_line(runs, n, "apex_rt_s", tz, 1 / 60.0) for n in names}
         charts.append(
             Chart(
-                title="Expected ions: apex intensity per run",
-                png=plots.series(intensity, title="apex intensity", ylabel="counts", log_y=True),
+                title="Expected ions: apex intensity per run (x: not found)",
+                png=plots.series(
+                    intensity,
+                    title="apex intensity",
+                    ylabel="apex intensity (counts)",
+                    log_y=True,
+                    missing=missing,
+                ),
                 kind="ion-intensity",
             )
         )
         charts.append(
             Chart(
-                title="Expected ions: apex retention time per run",
-                png=plots.series(apex_rt_min, title="apex RT", ylabel="RT (min)"),
+                title="Expected ions: apex retention time per run (x: not found)",
+                png=plots.series(
+                    apex_rt_min, title="apex RT", ylabel="apex RT (min)", missing=missing
+                ),
                 kind="ion-rt",
             )
         )
@@ -309,15 +404,74 @@ def _run_charts(config: Config, runs: Sequence[RunRow], tz: ZoneInfo) -> list[Ch
     charts.append(
         Chart(
             title="Run status over the day",
-            png=plots.status_timeline(timeline, title="status"),
+            png=plots.status_timeline(timeline, title="status", names=[r.file_name for r in runs]),
             kind="status",
         )
     )
     return charts
 
 
+def _open_problems(
+    conn: sqlite3.Connection, config: Config, tz: ZoneInfo
+) -> tuple[OpenProblem, ...]:
+    """The alerts open now, one per (check, subject) however many channels hold it."""
+    from watcher.store import outbox
+
+    seen: dict[tuple[str, str], OpenProblem] = {}
+    for alert in outbox.load_alerts(conn, instrument=config.instrument.name):
+        key = (alert.check, alert.subject)
+        finding = alert.state.finding
+        since = datetime.fromtimestamp(alert.state.raised_at_s, tz).strftime("%Y-%m-%d %H:%M")
+        problem = OpenProblem(
+            check=alert.check,
+            subject=subject_of(alert.subject),
+            severity=str(alert.state.severity),
+            value=with_unit(format_value(finding.value), finding.metric),
+            since=since,
+            run_file=alert.run_file,
+        )
+        if key not in seen or problem.since < seen[key].since:
+            seen[key] = problem
+    return tuple(seen.values())
+
+
+_REVIEW = (Status.CRITICAL, Status.UNREADABLE, Status.WARNING)
+
+
+def _to_review(runs: Sequence[RunRow], tz: ZoneInfo) -> tuple[ReviewRun, ...]:
+    """The day's runs a person must decide on, worst first, then by time."""
+    rows = []
+    for r in runs:
+        if r.status not in _REVIEW:
+            continue
+        if r.status is Status.UNREADABLE:
+            why = r.error or "unreadable"
+        else:
+            worst = max(r.findings, key=lambda f: f.severity.rank, default=None)
+            why = (
+                f"{worst.check}, {subject_of(worst.metric)}: "
+                f"{with_unit(format_value(worst.value), worst.metric)} ({worst.limit})"
+                if worst is not None
+                else str(r.status)
+            )
+        rows.append((r, why))
+    rows.sort(key=lambda x: (_REVIEW.index(x[0].status), x[0].acquired_at))
+    return tuple(
+        ReviewRun(
+            time=r.acquired_at.astimezone(tz).strftime("%H:%M"),
+            file=r.file_name,
+            status=str(r.status),
+            why=why,
+        )
+        for r, why in rows
+    )
+
+
 def build_digest(conn: sqlite3.Connection, config: Config, day: date) -> Digest:
     """Collect one local day of runs, summarise them and draw their charts.
+
+    A day without runs has no charts (the page says so in one line). The verdict at the top is
+    the worst status of the day's runs, the alerts open now and the runs that need a decision.
 
     Args:
         conn: the state database (read only is enough).
@@ -334,16 +488,20 @@ def build_digest(conn: sqlite3.Connection, config: Config, day: date) -> Digest:
         check = _check_for(config, metric)
         points = _points(runs, metric, check)
         baseline, source = _baseline(check, metric, day_runs.earlier)
-        summaries.append(_summarise_calibrant(cal.name, points, baseline, source))
+        summaries.append(_summarise_calibrant(cal.name, points, baseline, source, _covers(check)))
         title = f"{cal.name} (m/z {cal.mz:.4f})" if cal.mz else cal.name
-        charts.append(
-            Chart(
-                title=f"Levey-Jennings: {cal.name} median ppm (baseline: {source})",
-                png=_levey_jennings(points, baseline, tz, title=title),
-                kind="levey-jennings",
+        if runs:
+            charts.append(
+                Chart(
+                    title=f"Levey-Jennings: {cal.name} median ppm, {_covers(check)} "
+                    f"(baseline: {source})",
+                    png=_levey_jennings(points, baseline, tz, title=title, limits=_limits(check)),
+                    kind="levey-jennings",
+                )
             )
-        )
-    charts.extend(_run_charts(config, runs, tz))
+    if runs:
+        charts.extend(_run_charts(config, runs, tz))
+    worst = max((r.status for r in runs), key=lambda st: STATUS_RANK[st], default=None)
     return Digest(
         day=day,
         instrument=config.instrument.name,
@@ -356,6 +514,9 @@ def build_digest(conn: sqlite3.Connection, config: Config, day: date) -> Digest:
             (r.file_name, r.error or "unreadable") for r in runs if r.status is Status.UNREADABLE
         ),
         charts=tuple(charts),
+        worst="none" if worst is None else str(worst),
+        open_problems=_open_problems(conn, config, tz),
+        to_review=_to_review(runs, tz),
     )
 
 
@@ -390,20 +551,44 @@ def _ppm(v: float | None) -> str:
     return "n/a" if v is None else f"{v:+.2f}"
 
 
+def verdict_line(d: Digest) -> str:
+    """The night in one line: worst status, runs to decide on, alerts still open."""
+    if d.run_count == 0:
+        return f"No runs were recorded on {d.day.isoformat()}."
+    parts = [f"worst run: {d.worst.upper()}"]
+    parts.append(
+        f"{len(d.to_review)} run(s) need a decision" if d.to_review else "no run needs a decision"
+    )
+    parts.append(
+        f"{len(d.open_problems)} alert(s) still open" if d.open_problems else "no open alert"
+    )
+    return "; ".join(parts)
+
+
 def render_text(d: Digest) -> str:
-    """The terminal (and message body) summary: counts, calibrant drift, findings."""
+    """The terminal (and message body) summary: the verdict, then counts, drift, findings."""
     lines = [
         f"{d.instrument}: digest for {d.day.isoformat()} ({d.timezone})",
-        f"runs: {d.run_count} ({_counts(d)})",
+        verdict_line(d),
     ]
+    if d.run_count == 0:
+        return "\n".join(lines)
+    for r in d.to_review:
+        lines.append(f"  decide: {r.time} {r.file} {r.status}: {r.why}")
+    for o in d.open_problems:
+        lines.append(f"  open: {o.check}, {o.subject}: {o.value} ({o.severity} since {o.since})")
+    lines.append(f"runs: {d.run_count} ({_counts(d)})")
     for c in d.calibrants:
         lines.append(
             f"calibrant {c.name}: mean {_ppm(c.mean_ppm)} ppm, range {_ppm(c.min_ppm)} to "
-            f"{_ppm(c.max_ppm)} ppm over {c.runs} runs"
+            f"{_ppm(c.max_ppm)} ppm over {c.runs} {c.covers}"
         )
     lines.append(f"findings: {len(d.findings)}")
     for f in d.findings[:20]:
-        lines.append(f"  {f.time} {f.file} {f.severity} {f.check}: {f.value} ({f.limit}, {f.rule})")
+        lines.append(
+            f"  {f.time} {f.file} {f.severity} {f.check}, {f.subject}: {f.value} "
+            f"({f.limit}, {f.rule})"
+        )
     if len(d.findings) > 20:
         lines.append(f"  ... and {len(d.findings) - 20} more (see the HTML page)")
     for file_name, error in d.unreadable:
@@ -412,49 +597,111 @@ def render_text(d: Digest) -> str:
 
 
 _CSS = """
-body{font-family:system-ui,sans-serif;margin:1.5em;color:#222;max-width:60em}
-h1{font-size:1.4em}h2{font-size:1.1em;margin-top:1.6em}
-table{border-collapse:collapse;font-size:.9em}td,th{border:1px solid #ccc;padding:.25em .5em}
+body{font-family:system-ui,sans-serif;margin:1em;color:#222;max-width:64em}
+h1{font-size:1.35em}h2{font-size:1.1em;margin-top:1.6em}
+.verdict{border:2px solid #999;border-radius:6px;padding:.6em .9em;margin:1em 0}
+.verdict.critical,.verdict.unreadable{border-color:#c62828;background:#fdecea}
+.verdict.warning{border-color:#a66f00;background:#fff8e1}
+.verdict.ok,.verdict.notice{border-color:#2e7d32;background:#edf7ed}
+.verdict p{margin:.3em 0}.verdict .headline{font-size:1.15em;font-weight:600}
+table{border-collapse:collapse;font-size:.88em;width:100%;table-layout:auto}
+td,th{border:1px solid #ccc;padding:.25em .45em;vertical-align:top;overflow-wrap:break-word}
 th{background:#f3f3f3;text-align:left}.critical{color:#c62828}.warning{color:#a66f00}
 .unreadable{color:#6a1b9a}figure{margin:1em 0}figcaption{font-size:.85em;color:#555}
 img{max-width:100%;height:auto;border:1px solid #eee}td.num{white-space:nowrap}
+.scroll{overflow-x:auto}
+@media (max-width:600px){body{margin:.5em}
+table,tbody,tr,td{display:block;width:auto}tr:first-child{display:none}
+tr{border:1px solid #ccc;margin:.4em 0;padding:.2em .4em}td{border:0;padding:.1em 0}
+td::before{content:attr(data-label) ": ";font-weight:600;color:#555}td.msg{display:none}}
 """
 
 
+def _verdict_html(d: Digest) -> list[str]:
+    e = html.escape
+    out = [
+        f'<section class="verdict {e(d.worst)}" id="verdict">',
+        f'<p class="headline">{e(verdict_line(d))}</p>',
+    ]
+    if d.to_review:
+        out.append("<p><strong>Runs that need a decision</strong></p><ul>")
+        out.extend(
+            f'<li class="{e(r.status)}">{e(r.time)} {e(r.file)}: {e(r.status)}, {e(r.why)}</li>'
+            for r in d.to_review
+        )
+        out.append("</ul>")
+    if d.open_problems:
+        out.append("<p><strong>Still open</strong></p><ul>")
+        out.extend(
+            f'<li class="{e(o.severity)}">{e(o.check)}, {e(o.subject)}: {e(o.value)} '
+            f"({e(o.severity)} since {e(o.since)}"
+            + (f", {e(o.run_file)}" if o.run_file else "")
+            + ")</li>"
+            for o in d.open_problems
+        )
+        out.append("</ul>")
+    out.append("</section>")
+    return out
+
+
 def render_html(d: Digest) -> str:
-    """The self-contained HTML page (inline CSS, charts as data: URIs, no scripts)."""
+    """The self-contained HTML page (inline CSS, charts as data: URIs, no scripts).
+
+    The verdict comes first; details follow. Tables stay within the page width (long words
+    wrap; the message column is left out on a phone, it repeats the row's other cells).
+    """
     e = html.escape
     parts = [
         "<!DOCTYPE html>",
         '<html lang="en"><head><meta charset="utf-8">',
+        '<meta name="viewport" content="width=device-width, initial-scale=1">',
         f"<title>{e(d.instrument)} digest {d.day.isoformat()}</title>",
         f"<style>{_CSS}</style></head><body>",
         f"<h1>{e(d.instrument)}: daily digest {d.day.isoformat()}</h1>",
-        f"<p>Times in {e(d.timezone)}. Runs: <strong>{d.run_count}</strong> ({e(_counts(d))}).</p>",
-        "<h2>Calibrants</h2><table><tr><th>calibrant</th><th>runs</th><th>mean ppm</th>"
-        "<th>min ppm</th><th>max ppm</th><th>baseline</th></tr>",
+        *_verdict_html(d),
+    ]
+    if d.run_count == 0:
+        parts.append(
+            "<p><small>An aid for the lab's own QC procedures, not a substitute for them."
+            "</small></p></body></html>"
+        )
+        return "\n".join(parts)
+    parts += [
+        f"<p>Times in {e(d.timezone)}, by acquisition. Runs: <strong>{d.run_count}</strong> "
+        f"({e(_counts(d))}).</p>",
+        '<h2>Calibrants</h2><div class="scroll"><table><tr><th>calibrant</th><th>runs</th>'
+        "<th>mean ppm</th><th>min ppm</th><th>max ppm</th><th>baseline</th></tr>",
     ]
     for c in d.calibrants:
         parts.append(
-            f"<tr><td>{e(c.name)}</td><td>{c.runs}</td><td>{_ppm(c.mean_ppm)}</td>"
-            f"<td>{_ppm(c.min_ppm)}</td><td>{_ppm(c.max_ppm)}</td><td>{e(c.baseline)}</td></tr>"
+            f'<tr><td data-label="calibrant">{e(c.name)}</td>'
+            f'<td data-label="runs">{c.runs} ({e(c.covers)})</td>'
+            f'<td class="num" data-label="mean ppm">{_ppm(c.mean_ppm)}</td>'
+            f'<td class="num" data-label="min ppm">{_ppm(c.min_ppm)}</td>'
+            f'<td class="num" data-label="max ppm">{_ppm(c.max_ppm)}</td>'
+            f'<td data-label="baseline">{e(c.baseline)}</td></tr>'
         )
-    parts.append("</table>")
+    parts.append("</table></div>")
     parts.append(f"<h2>Findings ({len(d.findings)})</h2>")
     if d.findings:
         parts.append(
-            '<table id="findings"><tr><th>time</th><th>file</th><th>severity</th><th>check</th>'
-            "<th>value</th><th>limit</th><th>rule</th><th>message</th></tr>"
+            '<div class="scroll"><table id="findings"><tr><th>time</th><th>file</th>'
+            "<th>severity</th><th>check</th><th>subject</th><th>value</th><th>limit</th>"
+            '<th>rule</th><th class="msg">message</th></tr>'
         )
         for f in d.findings:
             parts.append(
-                f'<tr class="finding"><td>{e(f.time)}</td><td>{e(f.file)}</td>'
-                f'<td class="{e(f.severity)}">{e(f.severity)}</td><td>{e(f.check)}</td>'
-                f'<td class="num">{e(f.value)}</td><td class="num">{e(f.limit)}</td>'
-                f"<td>{e(f.rule)}</td>"
-                f"<td>{e(f.message)}</td></tr>"
+                f'<tr class="finding"><td data-label="time">{e(f.time)}</td>'
+                f'<td data-label="file">{e(f.file)}</td>'
+                f'<td class="{e(f.severity)}" data-label="severity">{e(f.severity)}</td>'
+                f'<td data-label="check">{e(f.check)}</td>'
+                f'<td data-label="subject">{e(f.subject)}</td>'
+                f'<td class="num" data-label="value">{e(f.value)}</td>'
+                f'<td data-label="limit">{e(f.limit)}</td>'
+                f'<td data-label="rule">{e(f.rule)}</td>'
+                f'<td class="msg" data-label="message">{e(f.message)}</td></tr>'
             )
-        parts.append("</table>")
+        parts.append("</table></div>")
     else:
         parts.append("<p>No findings.</p>")
     if d.unreadable:

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import io
 from datetime import datetime
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.dates import AutoDateLocator, ConciseDateFormatter, date2num
@@ -63,6 +63,12 @@ def _png(fig: Figure) -> bytes:
     return buf.getvalue()
 
 
+_LIMIT_STYLE: dict[str, tuple[str, Any]] = {
+    "warning": ("#a66f00", (0, (6, 2))),
+    "critical": ("#c62828", "solid"),
+}
+
+
 def levey_jennings(
     points: Sequence[Point],
     *,
@@ -71,23 +77,39 @@ def levey_jennings(
     title: str,
     ylabel: str = "median ppm",
     statuses: Sequence[str] | None = None,
+    limits: Sequence[tuple[float, str]] = (),
 ) -> bytes:
     """A Levey-Jennings chart: one value per run with the mean and ±2 SD / ±3 SD lines.
 
     Args:
         points: (run time, value) in time order.
         mean, sd: the baseline; lines are left out when either is None or sd <= 0.
-        statuses: optional run status per point, to colour the markers.
+        statuses: per point, this metric's own state in that run (its worst finding, or ``ok``),
+            to colour the markers; a legend names the colours.
+        limits: the lab's fixed limits as (value, "warning" or "critical"), drawn as bold
+            horizontal lines with their value, with or without a baseline.
     """
     fig, ax = _figure(title)
     xs = _x([p[0] for p in points])
     ys = [p[1] for p in points]
-    ax.plot(xs, ys, color="#455a64", linewidth=1, zorder=2)
-    colours = [STATUS_COLOURS.get(s, "#455a64") for s in statuses] if statuses else "#455a64"
-    ax.scatter(xs, ys, c=colours, s=18, zorder=3)
+    ax.plot(xs, ys, color="#90a4ae", linewidth=1, zorder=2)
+    states = list(statuses) if statuses else ["ok"] * len(points)
+    for state in _STATUS_ORDER:
+        sel = [i for i, s in enumerate(states) if s == state]
+        if sel:
+            ax.scatter(
+                [xs[i] for i in sel],
+                [ys[i] for i in sel],
+                color=STATUS_COLOURS[state],
+                s=22,
+                zorder=3,
+                label=f"run: {state}",
+                edgecolors="white",
+                linewidths=0.5,
+            )
     if mean is not None and sd is not None and sd > 0:
-        ax.axhline(mean, color="#2e7d32", linewidth=1, label="mean")
-        for k, style, colour in ((2, "--", "#f9a825"), (3, ":", "#c62828")):
+        ax.axhline(mean, color="#2e7d32", linewidth=1, label="baseline mean")
+        for k, style, colour in ((2, "--", "#9e9d24"), (3, ":", "#6d4c41")):
             for sign in (1, -1):
                 ax.axhline(
                     mean + sign * k * sd,
@@ -96,8 +118,30 @@ def levey_jennings(
                     linewidth=1,
                     label=f"±{k} SD" if sign == 1 else None,
                 )
-        ax.legend(fontsize=7, loc="best")
+    seen: set[str] = set()
+    for value, level in limits:
+        colour, style = _LIMIT_STYLE.get(level, ("#c62828", "solid"))
+        ax.axhline(
+            value,
+            color=colour,
+            linestyle=style,
+            linewidth=2,
+            label=f"{level} limit" if level not in seen else None,
+        )
+        seen.add(level)
+        ax.annotate(
+            f"{value:g}",
+            xy=(1.0, value),
+            xycoords=("axes fraction", "data"),
+            fontsize=7,
+            color=colour,
+            ha="left",
+            va="center",
+        )
+    if ax.get_legend_handles_labels()[0]:
+        ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.04, 1.0), borderaxespad=0)
     ax.set_ylabel(ylabel, fontsize=8)
+    ax.set_xlabel("acquired (instrument time)", fontsize=8)
     if xs:
         _dates(ax)
     return _png(fig)
@@ -115,17 +159,43 @@ def series(
     title: str,
     ylabel: str,
     log_y: bool = False,
+    missing: Mapping[str, Sequence[datetime]] | None = None,
 ) -> bytes:
-    """One or more named series over run time (TIC, ion intensities, apex RT)."""
+    """One or more named series over run time (TIC, ion intensities, apex RT).
+
+    ``missing``: per series, the runs where it was looked for and not found; each is an ``x`` at
+    the bottom of the chart in the series' colour, and the series' line breaks there instead of
+    bridging over it. Series get distinct markers as well as colours.
+    """
     fig, ax = _figure(title)
     any_points = False
-    for name, points in lines.items():
-        if not points:
+    markers = "osD^v<>P*X"
+    gaps = missing or {}
+    for n, (name, points) in enumerate(lines.items()):
+        marks = sorted(gaps.get(name, ()))
+        if not points and not marks:
             continue
         any_points = True
-        ax.plot(
-            _x([p[0] for p in points]), [p[1] for p in points], marker="o", markersize=3, label=name
+        # A None value at each missing run breaks the line there (matplotlib skips NaN).
+        merged = sorted([(t, v) for t, v in points] + [(t, float("nan")) for t in marks])
+        (line,) = ax.plot(
+            _x([p[0] for p in merged]),
+            [p[1] for p in merged],
+            marker=markers[n % len(markers)],
+            markersize=3.5,
+            label=name,
         )
+        if marks:
+            ax.scatter(
+                _x(marks),
+                [0.02] * len(marks),
+                transform=ax.get_xaxis_transform(),
+                marker="x",
+                s=40,
+                color=line.get_color(),
+                label=f"{name}: not found",
+                zorder=4,
+            )
     values = [p[1] for points in lines.values() for p in points]
     if log_y and wants_log_axis(values):
         ax.set_yscale("log")
@@ -134,21 +204,40 @@ def series(
         ax.yaxis.set_major_formatter(EngFormatter(sep=" "))
     if any_points:
         _dates(ax)
-        if len(lines) > 1:
-            ax.legend(fontsize=7, loc="best")
+        if len(lines) > 1 or gaps:
+            ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.04, 1.0), borderaxespad=0)
     ax.set_ylabel(ylabel, fontsize=8)
+    ax.set_xlabel("acquired (instrument time)", fontsize=8)
     return _png(fig)
 
 
-def status_timeline(points: Sequence[tuple[datetime, str]], *, title: str) -> bytes:
-    """Each run as a mark at its time, on the row of its status."""
-    fig, ax = _figure(title, height_in=1.9)
+def status_timeline(
+    points: Sequence[tuple[datetime, str]],
+    *,
+    title: str,
+    names: Sequence[str] | None = None,
+) -> bytes:
+    """Each run as a mark at its time, on the row of its status; with ``names`` (one per point)
+    each mark is labelled with its run's file name (up to 40 runs; more would not be legible)."""
+    fig, ax = _figure(title, height_in=2.4 if names else 1.9)
     for row, status in enumerate(_STATUS_ORDER):
         xs = _x([t for t, s in points if s == status])
         if xs:
             ax.scatter(xs, [row] * len(xs), color=STATUS_COLOURS[status], marker="|", s=200)
+    if names and len(points) <= 40:
+        for (t, status), name in zip(points, names, strict=True):
+            ax.annotate(
+                name,
+                xy=(_x([t])[0], _STATUS_ORDER.index(status) if status in _STATUS_ORDER else 0),
+                xytext=(2, 6),
+                textcoords="offset points",
+                fontsize=6,
+                rotation=45,
+                color="#37474f",
+            )
     ax.set_yticks(range(len(_STATUS_ORDER)), _STATUS_ORDER, fontsize=8)
-    ax.set_ylim(-0.5, len(_STATUS_ORDER) - 0.5)
+    ax.set_ylim(-0.5, len(_STATUS_ORDER) + 0.5)
+    ax.set_xlabel("acquired (instrument time)", fontsize=8)
     if points:
         _dates(ax)
     return _png(fig)
