@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import time
+from datetime import datetime
 from typing import TYPE_CHECKING
+from zoneinfo import ZoneInfo
 
 import pytest
 
@@ -215,3 +217,32 @@ def test_validate_channels_names_channel_not_url(tmp_path: Path) -> None:
         Notifier(config, tmp_path).validate_channels()
     assert "alert channel 'lab-chat'" in str(info.value)
     assert "s3cr3t" not in str(info.value)
+
+
+def test_no_digest_for_a_day_the_daemon_never_watched(tmp_path: Path, receiver: Receiver) -> None:
+    """First start on 10 March 02:00 Oslo: the next morning's tick sends no digest for 9 March
+    (the daemon never saw it); the morning after sends the digest of 10 March."""
+    import dataclasses
+    import datetime as dt
+
+    from tests.helpers.clock import Clock
+
+    started = datetime(2026, 3, 10, 2, 0, tzinfo=ZoneInfo("Europe/Oslo")).timestamp()
+    clock = Clock(started)
+    config = dataclasses.replace(lab_config(receiver.url()), digest_at=dt.time(7, 0))
+    h = Harness(config, tmp_path / "state", clock)
+    try:
+        with db.write(h.conn):
+            h.notifier.record_event(h.conn, DaemonEvent.STARTED, clock())
+        clock.advance(6 * 3600)  # 08:00 on 10 March: yesterday was never watched
+        h.notifier.tick(h.conn, clock())
+        with db.read(h.conn):
+            assert [m.kind for m in outbox.messages(h.conn)] == []
+        clock.advance(24 * 3600)  # 08:00 on 11 March: 10 March was watched from 02:00
+        h.notifier.tick(h.conn, clock())
+        with db.read(h.conn):
+            assert [(m.kind, m.ref) for m in outbox.messages(h.conn)] == [
+                ("digest", "digest:2026-03-10")
+            ]
+    finally:
+        h.close()

@@ -19,7 +19,7 @@ from watcher.notify import alert_state as machine
 from watcher.notify.alert_text import Item, Text, compose
 from watcher.notify.healthlog import HealthLog
 from watcher.records import AlertAction, DaemonEvent, Finding, Severity, Status, Verdict
-from watcher.store import db, outbox
+from watcher.store import db, jobs, outbox
 
 if TYPE_CHECKING:
     import sqlite3
@@ -32,6 +32,13 @@ if TYPE_CHECKING:
 log = structlog.get_logger("watcher.notify.notifier")
 
 _PRUNE_EVERY_S = 3600.0
+FIRST_WATCH_KEY = "notify.first_watch_s"  # epoch seconds of the store's first daemon start
+
+
+def day_end_s(day: date, timezone: str) -> float:
+    """Epoch seconds at which the local ``day`` ends (DST days are 23 or 25 h long)."""
+    tz = ZoneInfo(timezone)
+    return datetime.combine(day + timedelta(days=1), datetime.min.time(), tz).timestamp()
 
 
 def unreadable_finding(verdict: Verdict) -> Finding:
@@ -183,6 +190,9 @@ class Notifier:
         (the caller writes them there with ``write_event``).
         """
         at = datetime.fromtimestamp(now_s, UTC)
+        if kind == DaemonEvent.STARTED and jobs.get_state(conn, FIRST_WATCH_KEY) is None:
+            # The first start of this store: days before it were never watched.
+            jobs.set_state(conn, FIRST_WATCH_KEY, repr(now_s))
         if kind in (DaemonEvent.NORUN_MISSED, DaemonEvent.NORUN_RESUMED):
             finding = heartbeat_finding(fields)
             key = (finding.check, finding.subject)
@@ -400,6 +410,9 @@ class Notifier:
         ref = f"digest:{day.isoformat()}"
         if outbox.has_message(conn, ref) or not self.config.alerts.channels:
             return
+        first = jobs.get_state(conn, FIRST_WATCH_KEY)
+        if first is not None and day_end_s(day, self.config.instrument.timezone) <= float(first):
+            return  # a day that ended before the daemon first watched: nothing to tell
         html, summary = self._render_digest(conn, day)
         title = f"{self.config.instrument.name}: daily digest {day.isoformat()}"
         with db.write(conn):
