@@ -61,8 +61,17 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--record", action="store_true", help="add the runs to the history in state_dir")
     p.add_argument("--no-progress", action="store_true", help="no progress bar on stderr")
 
-    p = sub.add_parser("validate", help="check a config file and report every problem")
+    p = sub.add_parser(
+        "validate",
+        help="check a config file, and what `run` checks at start-up, and report every problem",
+    )
     config_arg(p, required=True)
+    p.add_argument(
+        "--file-only",
+        action="store_true",
+        help="check the file alone, not the folders and alert URLs it names "
+        "(for a config written for another machine)",
+    )
 
     p = sub.add_parser("run", help="the daemon, in the foreground (for systemd)")
     config_arg(p, required=True)

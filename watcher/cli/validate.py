@@ -1,7 +1,9 @@
 """``ionwarden validate -c FILE``: load a config and report it ok, or list every problem in it.
 
 Exit 0 when the config is valid; exit 2 when it is not, because no restart can fix a bad config
-(the systemd unit lists 2 in ``RestartPreventExitStatus``).
+(the systemd unit lists 2 in ``RestartPreventExitStatus``). Beyond the file itself it checks
+what ``run`` checks at start-up (``watcher.daemon.preflight``): the watch folders exist and can
+be read, the state folder can be created or written, apprise can use every alert URL.
 """
 
 from __future__ import annotations
@@ -33,6 +35,14 @@ def main(args: argparse.Namespace) -> int:
         config = load_config(Path(path))
     except ConfigError as exc:
         for problem in exc.problems:
+            sys.stderr.write(f"{problem}\n")
+        return ExitCode.USAGE
+    from watcher.daemon import preflight
+
+    # What ``run`` would refuse at start-up (folders, state folder, alert URLs): the same list.
+    found = [] if getattr(args, "file_only", False) else preflight.problems(config)
+    if found:
+        for problem in found:
             sys.stderr.write(f"{problem}\n")
         return ExitCode.USAGE
     line = summary(

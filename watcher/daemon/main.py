@@ -23,11 +23,10 @@ import structlog
 
 from watcher import config as config_mod
 from watcher.config import Config, state_dir_of
-from watcher.daemon import logs, norun_alert, retention, sdnotify
+from watcher.daemon import logs, norun_alert, preflight, retention, sdnotify
 from watcher.daemon.pipeline import JobOutcome, Pipeline, time_limit_s
 from watcher.errors import (
     ConfigError,
-    ConfigProblem,
     IonwardenError,
     StoreError,
     StoreTooNewError,
@@ -384,19 +383,10 @@ def main(args: argparse.Namespace) -> int:
     """``ionwarden run -c CONFIG``: 0 after SIGTERM/SIGINT, 2 bad config or a store written by a
     newer version, 3 unusable store."""
     config = config_mod.load(Path(args.config))  # ConfigError -> exit 2 in cli.main
-    if not config.watch.folders:
-        # A daemon that watches nothing would look healthy to systemd while missing every run.
-        raise ConfigError(
-            [
-                ConfigProblem(
-                    str(args.config),
-                    None,
-                    "watch.folders",
-                    "the daemon needs at least one folder to watch (the instrument's export "
-                    "folder), got none",
-                )
-            ]
-        )
+    found = preflight.problems(config)
+    if found:
+        # Missing folders, unusable alert URLs: config problems no restart cures (exit 2).
+        raise ConfigError(found)
     state_dir = state_dir_of(config)
     if db.is_network_fs(db.filesystem_type(state_dir if state_dir.exists() else state_dir.parent)):
         raise StoreError(
