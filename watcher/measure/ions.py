@@ -1,6 +1,6 @@
 """Ion m/z and expected isotope ratios from an IonSpec (bare m/z, formula + adduct, or peptide).
 
-Masses come from pyteomics' nuclide table (``pyteomics.mass.nist_mass``); the ion's m/z is
+Masses come from the NIST nuclide table in ``watcher.measure.nuclides``; the ion's m/z is
 computed here as (sum of nuclide masses - charge x electron mass) / |charge|, because pyteomics'
 ``charge_carrier='Na+'`` adds a neutral sodium atom and comes out one electron mass high.
 """
@@ -14,16 +14,19 @@ from functools import lru_cache
 from typing import TYPE_CHECKING
 
 import numpy as np
-from pyteomics import mass as pyt_mass
+
+from watcher.measure.nuclides import ELECTRON_MASS_DA as _ELECTRON_MASS_DA
+from watcher.measure.nuclides import ELEMENTS, RESIDUES
 
 if TYPE_CHECKING:
     from collections.abc import Mapping
 
     from watcher.config import IonSpec
 
-ELECTRON_MASS_DA: float = float(pyt_mass.nist_mass["e-"][0][0])
+ELECTRON_MASS_DA: float = _ELECTRON_MASS_DA
 # 13C - 12C: the spacing of the M+1 peak of an organic ion at charge 1 (common practice).
-C13_SPACING_DA: float = float(pyt_mass.nist_mass["C"][13][0] - pyt_mass.nist_mass["C"][12][0])
+_CARBON_DA = {a: m for a, m, _ab in ELEMENTS["C"][1]}
+C13_SPACING_DA: float = _CARBON_DA[13] - _CARBON_DA[12]
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -138,9 +141,8 @@ def m1_isotopologues(composition: Mapping[str, int]) -> list[tuple[float, float]
     for element, count in sorted(composition.items()):
         if count <= 0:
             continue
-        table = pyt_mass.nist_mass[element]
-        mono_mass = float(table[0][0])
-        isotopes = {a: (float(m), float(ab)) for a, (m, ab) in table.items() if a != 0 and ab > 0}
+        mono_mass, nuclides = ELEMENTS[element]
+        isotopes = {a: (m, ab) for a, m, ab in nuclides}
         mono_a = min(isotopes, key=lambda a: abs(isotopes[a][0] - mono_mass))
         heavy = isotopes.get(mono_a + 1)
         if heavy is None:
@@ -177,7 +179,7 @@ def ion_mz(composition: Mapping[str, int], charge: int) -> float:
     """m/z of an ion of this elemental composition: (sum of nuclide masses - z x m_e) / |z|."""
     if charge == 0:
         raise ValueError("charge must not be 0")
-    total_da = sum(n * float(pyt_mass.nist_mass[e][0][0]) for e, n in composition.items())
+    total_da = sum(n * ELEMENTS[e][0] for e, n in composition.items())
     return (total_da - charge * ELECTRON_MASS_DA) / abs(charge)
 
 
@@ -206,14 +208,13 @@ def isotope_ratios(composition: Mapping[str, int]) -> tuple[float, float]:
 @lru_cache(maxsize=128)
 def _element_distribution(element: str) -> tuple[np.ndarray[tuple[int], np.dtype[np.float64]], int]:
     """Abundances indexed by nominal-mass offset, and the offset of index 0 (<= 0)."""
-    table = pyt_mass.nist_mass.get(element)
-    if table is None:
+    entry = ELEMENTS.get(element)
+    if entry is None:
         raise ValueError(f"unknown element {element!r}")
-    mono_mass = table[0][0]
-    isotopes = {a: ab for a, (_m, ab) in table.items() if a != 0 and ab > 0}
-    if not isotopes:
-        raise ValueError(f"element {element!r} has no natural isotopic abundance")
-    mono_a = min(isotopes, key=lambda a: abs(table[a][0] - mono_mass))
+    mono_mass, nuclides = entry
+    isotopes = {a: ab for a, _m, ab in nuclides}
+    masses = {a: m for a, m, _ab in nuclides}
+    mono_a = min(isotopes, key=lambda a: abs(masses[a] - mono_mass))
     lo, hi = min(isotopes) - mono_a, max(isotopes) - mono_a
     probs = np.zeros(hi - lo + 1, dtype=np.float64)
     for a, ab in isotopes.items():
@@ -241,14 +242,12 @@ def _formula_composition(name: str, formula: str) -> dict[str, int]:
     text = formula.replace(" ", "")
     if not text:
         raise ValueError(f"ion {name!r}: formula is empty")
-    # pyteomics reads flat formulas only: expand parentheses first, then let it parse the rest.
     try:
-        flat = _expand_groups(text)
-        composition = dict(pyt_mass.Composition(formula=_flat_string(flat)))
-    except (ValueError, pyt_mass.PyteomicsError) as exc:
+        composition = _expand_groups(text)
+    except ValueError as exc:
         raise ValueError(f"ion {name!r}: cannot read formula {formula!r}") from exc
     for element in composition:
-        if element not in pyt_mass.nist_mass:
+        if element not in ELEMENTS:
             raise ValueError(f"ion {name!r}: formula {formula!r} has unknown element {element!r}")
     return {e: int(n) for e, n in composition.items() if n}
 
@@ -278,20 +277,21 @@ def _expand_groups(text: str) -> dict[str, int]:
     return stack[0]
 
 
-def _flat_string(composition: Mapping[str, int]) -> str:
-    return "".join(f"{e}{n}" for e, n in composition.items())
-
-
 def _peptide_composition(name: str, peptide: str) -> dict[str, int]:
     """Elements of an unmodified peptide (one-letter codes, free termini H- and -OH)."""
     sequence = peptide.strip().upper()
     if not sequence.isalpha():
         raise ValueError(f"ion {name!r}: peptide {peptide!r} must be one-letter amino-acid codes")
-    try:
-        composition = pyt_mass.Composition(sequence=sequence)
-    except pyt_mass.PyteomicsError as exc:
-        raise ValueError(f"ion {name!r}: peptide {peptide!r} has an unknown residue") from exc
-    return {e: int(n) for e, n in composition.items() if n}
+    composition: dict[str, int] = {"H": 2, "O": 1}  # the free termini: H- and -OH
+    for residue in sequence:
+        elements = RESIDUES.get(residue)
+        if elements is None:
+            raise ValueError(
+                f"ion {name!r}: peptide {peptide!r} has an unknown residue {residue!r}"
+            )
+        for element, n in elements.items():
+            composition[element] = composition.get(element, 0) + n
+    return {e: n for e, n in composition.items() if n}
 
 
 def _adduct_delta(name: str, adduct: str, charge: int) -> tuple[dict[str, int], int]:

@@ -27,7 +27,7 @@ from lxml import etree  # type: ignore[import-untyped, unused-ignore]
 
 from watcher.errors import ReadError
 from watcher.intake.formats import GunzipCheck, sniff
-from watcher.measure.readers import mgf, mzml, mzxml, safexml
+from watcher.measure.readers import mzml, safexml
 from watcher.measure.readers import mzml_index as mzmlindex
 from watcher.measure.readers.cv import disable_remote
 from watcher.measure.scan import RunHeader, Scan
@@ -65,7 +65,6 @@ def open_run(
         ReadError: from opening and from iterating ``scans``; the message names the file's
             basename only, one line, no traceback.
     """
-    disable_remote()  # nothing below may fetch the PSI-MS CV over the network
     throttle = _Throttle(progress, _size(path))
     with ExitStack() as stack:
         try:
@@ -91,6 +90,11 @@ def _open(
                 errors="strict",
             )
         )
+        # The MGF and mzXML readers load pyteomics' XML stack (and psims, when installed: half
+        # a second); imported on their own paths only, so an mzML run does not pay for them.
+        from watcher.measure.readers import mgf
+
+        disable_remote()  # pyteomics may consult the PSI-MS CV: never over the network
         return RunHeader(format="MGF"), mgf.read_scans(text)
     if found.format == "mzML.gz":
         with gzip.open(path, "rb") as probe:
@@ -110,6 +114,9 @@ def _open(
         safexml.assert_no_doctype(path)
         source = _Counted(stack.enter_context(path.open("rb")), throttle)  # type: ignore[assignment]
     if found.format == "mzXML":
+        from watcher.measure.readers import mzxml
+
+        disable_remote()  # pyteomics may consult the PSI-MS CV: never over the network
         return RunHeader(format="mzXML"), mzxml.read_scans(source, want_arrays=ms1_arrays)
     events = safexml.safe_iterparse(source, events=("start", "end"), tag=mzml.stream_tags())
     pre = mzml.read_preamble(events)
