@@ -8,6 +8,7 @@ Tree::
     ├── StoreError      the state folder or database cannot be used (permissions, network mount)
     ├── StoreTooNewError  the database was written by a newer ionwarden (exit 2: a restart of
     │                   this version cannot fix it)
+    ├── DaemonRunningError  another daemon holds the state folder's lock (exit 2)
     └── DeliveryError   an alert channel cannot be set up (apprise refused the URL)
 """
 
@@ -94,6 +95,13 @@ class StoreTooNewError(IonwardenError):
             "(downgrades are not supported; install the newer version again, or point state_dir "
             "at another folder)"
         )
+
+
+class DaemonRunningError(IonwardenError):
+    """Another daemon holds the state folder's lock: two would split the jobs and judge files twice.
+
+    Exit 2 like a bad config: restarting this one cannot help while the other runs.
+    """
 
 
 class DeliveryError(IonwardenError):

@@ -36,6 +36,7 @@ EVENTS: frozenset[str] = frozenset(
         "scan.completed",
         "store.pruned",
         "store.prune_skipped",
+        "state.lost",
         "heartbeat.missed",
         "heartbeat.resumed",
         # notify
