@@ -52,6 +52,9 @@ class Watch:
     poll_interval_s: float = 10.0
     rescan_interval_s: float = 300.0
     max_wait_s: float = 86400.0  # a file not complete by then becomes unreadable
+    # A link in the export folder to a file elsewhere (/etc/shadow, the config's secrets) is
+    # skipped unless this is set: the folder's writers must not choose what the daemon reads.
+    follow_symlinks_out: bool = False
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

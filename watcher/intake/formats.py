@@ -157,7 +157,7 @@ def _sniff_plain(path: Path, head: bytes, *, gz: bool) -> Sniffed:
         return Sniffed("MGF", None)
     raise ReadError(
         path,
-        f"{where} is not mzML, mzXML or MGF (starts {_preview(stripped)})",
+        f"{where} is not a run file ({_size_text(path)}; not mzML, mzXML or MGF)",
         kind="wrong-format",
     )
 
@@ -183,7 +183,7 @@ def _sniff_xml(path: Path, text: bytes, where: str) -> Sniffed:
     if match is None:
         raise ReadError(
             path,
-            f"{where} is XML but not mzML or mzXML (root {_preview(text[prolog_end:])})",
+            f"{where} is not a run file ({_size_text(path)}; XML, but not mzML or mzXML)",
             kind="wrong-format",
         )
     root = match.group(1).decode()
@@ -241,9 +241,13 @@ def _looks_like_mgf(text: bytes) -> bool:
     return True  # only header lines so far: an MGF header longer than 64 KiB, or no spectra
 
 
-def _preview(data: bytes) -> str:
-    snippet = data[:24].decode("latin-1")
-    return repr("".join(ch if ch.isprintable() else "?" for ch in snippet))
+def _size_text(path: Path) -> str:
+    # The size, never the bytes: a wrong file may be a secret (a link to a credentials file),
+    # and this reason goes into alerts and the health log.
+    try:
+        return f"{path.stat().st_size} bytes"
+    except OSError:
+        return "size unknown"
 
 
 # --- completeness ---------------------------------------------------------------------------
