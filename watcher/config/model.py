@@ -244,6 +244,9 @@ class Limits:
     parse_timeout_s_per_gb: float = 300.0
     parse_memory_mb: int = 2048
     queue_max: int = 10000
+    # Bound on a .mzML.gz's decompressed size: the largest real runs are a few GB inflated, a
+    # gzip bomb is 1000 times its file size. Over it, the run is unreadable (kind "too-large").
+    max_inflated_mb: int = 20000
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
