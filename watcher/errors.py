@@ -59,7 +59,8 @@ class ReadError(IonwardenError):
         path: the run file.
         reason: one line, no traceback, paths cut to the file name.
         kind: short machine-readable reason (``truncated``, ``corrupt``, ``xml-doctype``,
-            ``empty``, ``wrong-format``, ``unsupported``, ``timeout``, ``memory``, ``io``).
+            ``empty``, ``wrong-format``, ``unsupported``, ``timeout``, ``memory``, ``io``,
+            ``too-large``: a .mzML.gz inflating past ``limits.max_inflated_mb``).
     """
 
     def __init__(self, path: Path | str, reason: str, *, kind: str = "corrupt") -> None:
