@@ -8,6 +8,7 @@ Tree::
     ├── StoreError      the state folder or database cannot be used (permissions, network mount)
     ├── StoreTooNewError  the database was written by a newer ionwarden (exit 2: a restart of
     │                   this version cannot fix it)
+    ├── DaemonRunningError  another daemon holds the state folder's lock (exit 2)
     └── DeliveryError   an alert channel cannot be set up (apprise refused the URL)
 """
 
@@ -58,7 +59,8 @@ class ReadError(IonwardenError):
         path: the run file.
         reason: one line, no traceback, paths cut to the file name.
         kind: short machine-readable reason (``truncated``, ``corrupt``, ``xml-doctype``,
-            ``empty``, ``wrong-format``, ``unsupported``, ``timeout``, ``memory``, ``io``).
+            ``empty``, ``wrong-format``, ``unsupported``, ``timeout``, ``memory``, ``io``,
+            ``too-large``: a .mzML.gz inflating past ``limits.max_inflated_mb``).
     """
 
     def __init__(self, path: Path | str, reason: str, *, kind: str = "corrupt") -> None:
@@ -94,6 +96,13 @@ class StoreTooNewError(IonwardenError):
             "(downgrades are not supported; install the newer version again, or point state_dir "
             "at another folder)"
         )
+
+
+class DaemonRunningError(IonwardenError):
+    """Another daemon holds the state folder's lock: two would split the jobs and judge files twice.
+
+    Exit 2 like a bad config: restarting this one cannot help while the other runs.
+    """
 
 
 class DeliveryError(IonwardenError):

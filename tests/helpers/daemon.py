@@ -8,11 +8,13 @@ health log, datagrams on a notify socket); nothing sleeps for a fixed time longe
 
 from __future__ import annotations
 
+import itertools
 import json
 import signal
 import socket
 import sqlite3
 import subprocess
+import time
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -133,6 +135,7 @@ class Daemon:
         self.sock.bind(str(self.sock_path))
         self.sock.setblocking(False)
         self.messages: list[str] = []
+        self.received_s: list[float] = []  # time.monotonic() when each message was picked up
         # PYTHONFAULTHANDLER: a hung daemon dumps its threads on SIGABRT (see ``stop``).
         env = cli_env(
             set_env={"NOTIFY_SOCKET": str(self.sock_path), "PYTHONFAULTHANDLER": "1", **extra_env}
@@ -151,8 +154,17 @@ class Daemon:
         while True:
             try:
                 self.messages.append(self.sock.recv(4096).decode())
+                self.received_s.append(time.monotonic())
             except BlockingIOError:
                 return self.messages
+
+    def watchdog_gaps_s(self) -> list[float]:
+        """Seconds between consecutive WATCHDOG=1 pings, as picked up by ``notes`` (call it
+        often: a ping is stamped when it is read, not when it was sent)."""
+        self.notes()
+        stamped = zip(self.received_s, self.messages, strict=True)
+        times = [t for t, m in stamped if m == "WATCHDOG=1"]
+        return [b - a for a, b in itertools.pairwise(times)]
 
     def stderr(self) -> str:
         return self.log_path.read_text(errors="replace")

@@ -264,3 +264,34 @@ def test_gzip_bad_crc_and_trailing_garbage_are_reported(tmp_path: Path) -> None:
     # RFC 1952 allows several members; zero padding after the last is tolerated as gzip does.
     padded = packed + b"\x00" * 7
     assert completeness(bf.write(tmp_path, "QC_pad.mzML.gz", padded)) is None
+
+
+def test_bounded_check_reads_no_whole_file(tmp_path: Path) -> None:
+    """``deep=False`` (the daemon's settle check) still sees a cut tail and a wrong index
+    offset, but leaves the SHA-1, the MGF block count and the gzip stream to the measuring
+    child: each of those needs every byte of the file."""
+    data = _resum(bf.reindexed(bf.TINY.read_bytes()))
+    flipped = bf.write(tmp_path, "QC_flip.mzML", data.replace(b"Sample 1", b"Sample 2", 1))
+    assert completeness(flipped) is not None
+    assert completeness(flipped, deep=False) is None
+    cut_gz = bf.write(tmp_path, "QC_cut.mzML.gz", bf.gz(data)[:-64])
+    assert completeness(cut_gz) is not None
+    assert completeness(cut_gz, deep=False) is None
+    cut = bf.write(tmp_path, "QC_cut.mzML", data[: len(data) // 2])
+    assert completeness(cut, deep=False) == completeness(cut)
+    index_at = data.index(b"<indexList")
+    moved = data.replace(b"<indexListOffset>%d<" % index_at, b"<indexListOffset>100<")
+    off = bf.write(tmp_path, "QC_off.mzML", moved)
+    assert completeness(off, deep=False) == "indexListOffset 100 does not point at <indexList>"
+
+
+def test_gzip_check_stops_at_max_inflated_bytes(tmp_path: Path) -> None:
+    """A gzip stream inflating past ``max_inflated_bytes`` stops there with a 'too large'
+    reason (a whole 4 MiB-padded run; the bound is 1 MiB)."""
+    data = bf.TINY.read_bytes()
+    at = data.index(b"<spectrumList")
+    padded = bf.gz(bf.reindexed(data[:at] + b" " * (4 << 20) + data[at:]))
+    path = bf.write(tmp_path, "QC_big.mzML.gz", padded)
+    assert completeness(path) is None
+    reason = completeness(path, max_inflated_bytes=1 << 20)
+    assert reason == "too large: gzip content inflates to more than 1 MB (limits.max_inflated_mb)"

@@ -12,7 +12,7 @@ import pytest
 from synth import CalibrantTruth, RunSpec, TargetTruth, write_mgf, write_mzml
 from tests.helpers.refdata import REFERENCE as SHARED_REFERENCE
 from tests.helpers.spectra import Analyte, Calibrant, header, make_run
-from watcher.config import Config, ExpectedIon, IonSpec
+from watcher.config import Config, ExpectedIon, IonSpec, Limits
 from watcher.errors import ConfigError, ReadError
 from watcher.measure.ions import resolve
 from watcher.measure.run import NO_ARRAYS_NOTE, NO_MS1_NOTE, measure_file, measure_scans
@@ -342,3 +342,25 @@ def test_every_failure_becomes_one_read_failure(tmp_path: Path) -> None:
         assert "\n" not in outcome.reason
         assert str(tmp_path) not in outcome.reason
     assert not isinstance(measure_or_failure(good, Config()), ReadFailure)
+
+
+def test_measure_file_stops_a_gz_at_max_inflated_mb(tmp_path: Path) -> None:
+    """A .mzML.gz inflating past limits.max_inflated_mb (here 2 MB; a real run padded by 5 MiB
+    inside its spectrum list) is a ReadError of kind 'too-large' naming the key; with a bound
+    above its size the same file is measured."""
+    plain = tmp_path / "QC_pad.mzML"
+    write_mzml(plain, _synth_spec(profile=False), indexed=False)
+    data = plain.read_bytes()
+    at = data.index(b"<spectrumList")
+    path = tmp_path / "QC_pad.mzML.gz"
+    inflated = data[:at] + b" " * (5 << 20) + data[at:]
+    path.write_bytes(gzip.compress(inflated, mtime=0))
+    small = Config(limits=Limits(max_inflated_mb=2))
+    with pytest.raises(ReadError) as info:
+        measure_file(path, small)
+    assert info.value.kind == "too-large"
+    assert info.value.reason == (
+        "too large: gzip content inflates to more than 2 MB (limits.max_inflated_mb)"
+    )
+    enough = Limits(max_inflated_mb=len(inflated) // (1 << 20) + 1)
+    assert measure_file(path, Config(limits=enough)).signal.ms1_count > 0

@@ -19,7 +19,7 @@ from typing import TYPE_CHECKING
 
 from watcher import __version__
 from watcher.cli.exitcodes import ExitCode
-from watcher.errors import ConfigError, IonwardenError, StoreTooNewError
+from watcher.errors import ConfigError, DaemonRunningError, IonwardenError, StoreTooNewError
 
 if TYPE_CHECKING:
     from collections.abc import Sequence
@@ -114,8 +114,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     except ConfigError as exc:
         print(str(exc), file=sys.stderr)
         return ExitCode.USAGE
-    except StoreTooNewError as exc:
-        # Like a bad config, a restart of this version cannot cure it: systemd must not loop.
+    except (StoreTooNewError, DaemonRunningError) as exc:
+        # Like a bad config, a restart cannot cure it (a newer store; another daemon on the same
+        # state folder): systemd must not loop.
         print(f"ionwarden: {exc}", file=sys.stderr)
         return ExitCode.USAGE
     except IonwardenError as exc:

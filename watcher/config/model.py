@@ -56,6 +56,9 @@ class Watch:
     poll_interval_s: float = 10.0
     rescan_interval_s: float = 300.0
     max_wait_s: float = 86400.0  # a file not complete by then becomes unreadable
+    # A link in the export folder to a file elsewhere (/etc/shadow, the config's secrets) is
+    # skipped unless this is set: the folder's writers must not choose what the daemon reads.
+    follow_symlinks_out: bool = False
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -246,6 +249,9 @@ class Limits:
     parse_timeout_s_per_gb: float = 300.0
     parse_memory_mb: int = 2048
     queue_max: int = 10000
+    # Bound on a .mzML.gz's decompressed size: the largest real runs are a few GB inflated, a
+    # gzip bomb is 1000 times its file size. Over it, the run is unreadable (kind "too-large").
+    max_inflated_mb: int = 20000
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

@@ -67,6 +67,7 @@ def build_config(v: Values, data: Any, source: Path) -> Config:
             "parse_timeout_s_per_gb": lambda p, x: v.duration(p, x, allow_zero=True),
             "parse_memory_mb": lambda p, x: v.integer(p, x, ge=64),
             "queue_max": lambda p, x: v.integer(p, x, ge=1),
+            "max_inflated_mb": lambda p, x: v.integer(p, x, ge=1),
         },
     )
     v.put(kw, top, (), "digest_at", lambda p, x: None if x is None else v.time_of_day(p, x))
@@ -120,6 +121,7 @@ def _watch(v: Values, data: Any) -> Watch:
         "poll_interval_s": lambda p, x: v.duration(p, x),
         "rescan_interval_s": lambda p, x: v.duration(p, x),
         "max_wait_s": lambda p, x: v.duration(p, x),
+        "follow_symlinks_out": lambda p, x: v.boolean(p, x),
     }
     return _section(v, data, ("watch",), Watch, fields)  # type: ignore[no-any-return]
 

@@ -19,6 +19,7 @@ EVENTS: frozenset[str] = frozenset(
         "run.requeued",
         "run.duplicate",
         "run.skipped",
+        "run.link_skipped",
         "run.failed",
         "watch.network_folder",
         # measure / judge
@@ -36,6 +37,7 @@ EVENTS: frozenset[str] = frozenset(
         "scan.completed",
         "store.pruned",
         "store.prune_skipped",
+        "state.lost",
         "heartbeat.missed",
         "heartbeat.resumed",
         # notify

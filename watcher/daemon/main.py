@@ -11,6 +11,7 @@ watchdog, and only while the observer lives and the worker makes progress.
 from __future__ import annotations
 
 import contextlib
+import os
 import queue
 import signal
 import sqlite3
@@ -23,7 +24,7 @@ import structlog
 
 from watcher import config as config_mod
 from watcher.config import Config, state_dir_of
-from watcher.daemon import logs, norun_alert, preflight, retention, sdnotify
+from watcher.daemon import lock, logs, norun_alert, preflight, retention, sdnotify
 from watcher.daemon.pipeline import JobOutcome, Pipeline, time_limit_s
 from watcher.errors import (
     ConfigError,
@@ -51,6 +52,7 @@ STATUS_EVERY_S = 2.0
 NOTIFY_TICK_EVERY_S = 1.0
 CHECKPOINT_EVERY_S = 3600.0
 PRUNE_EVERY_S = 86400.0  # store retention is in days: once at start-up, then daily
+STATE_CHECK_EVERY_S = 2.0  # two stat calls: cheap enough to notice a deleted store within seconds
 
 
 class Daemon:
@@ -78,6 +80,10 @@ class Daemon:
         self._last_checkpoint = 0.0
         self._last_prune_s: float | None = None
         self._last_arrival_s = 0.0
+        self._state_ids: tuple[tuple[int, int], ...] | None = None
+        self._last_state_check = 0.0
+        self.state_lost: str | None = None
+        self.lock_fd: int | None = None
         self.conn: sqlite3.Connection | None = None
         self.notifier: Notifier | None = None
         self.pipeline: Pipeline | None = None
@@ -120,6 +126,8 @@ class Daemon:
         notifier.write_event(DaemonEvent.STARTED)
         notifier.start_delivery()
         self._last_arrival_s = max(now_s, jobs.last_arrival_s(self.conn) or 0.0)
+        self._state_ids = self._state_identity()
+        self._last_state_check = time.monotonic()
         self.pipeline = Pipeline(self.config, worker_conn, notifier, self.stop_event, self.clock)
         self.pipeline.resume_health_lines()
         self._prune_store(now_s)
@@ -151,6 +159,8 @@ class Daemon:
                 last_ping = time.monotonic()
             self._stop_requested.wait(TICK_S)
         self.close()
+        if self.state_lost is not None:
+            raise StoreError(self.state_lost)  # exit 3: systemd restarts into a fresh store
         return 0
 
     def request_stop(self) -> None:
@@ -171,7 +181,7 @@ class Daemon:
             self._worker.join(10.0)
         if self.pipeline is not None:
             self.pipeline.close()
-        if self.notifier is not None and self.conn is not None:
+        if self.notifier is not None and self.conn is not None and self.state_lost is None:
             with db.write(self.conn):
                 self.notifier.record_event(self.conn, DaemonEvent.STOPPED, self.clock())
             self.notifier.write_event(DaemonEvent.STOPPED)
@@ -190,6 +200,8 @@ class Daemon:
     def step(self) -> None:
         """One pass of the main loop: reload, scans, hints, settling, no-run alert, notifier."""
         self._conn()  # raises before start()
+        if self._state_gone():
+            return
         now_s = self.clock()
         if self._reload_requested.is_set():
             self._reload_requested.clear()
@@ -213,6 +225,41 @@ class Daemon:
         if now_s - self._last_checkpoint >= CHECKPOINT_EVERY_S and self._busy_since is None:
             self._last_checkpoint = now_s
             db.checkpoint(self._conn())
+
+    def _state_identity(self) -> tuple[tuple[int, int], ...] | None:
+        """(device, inode) of the state folder and its database; None when either is gone."""
+        try:
+            return tuple(
+                (st.st_dev, st.st_ino)
+                for st in (os.stat(self.state_dir), os.stat(self.state_dir / db.DB_NAME))
+            )
+        except OSError:
+            return None
+
+    def _state_gone(self) -> bool:
+        """Whether the store was deleted or replaced under us; then stop rather than go on.
+
+        An open SQLite file that was unlinked still takes writes, into a file nobody will ever
+        read again: every judgement from then on would be lost without a word.
+        """
+        if self.state_lost is not None:
+            return True
+        since_s = time.monotonic() - self._last_state_check
+        if self._state_ids is None or since_s < STATE_CHECK_EVERY_S:
+            return False
+        self._last_state_check = time.monotonic()
+        now_ids = self._state_identity()
+        if now_ids == self._state_ids:
+            return False
+        what = "was deleted" if now_ids is None else "was replaced by another folder or file"
+        self.state_lost = (
+            f"state folder {self.state_dir} {what} while the daemon was running; stopping so "
+            "that no judgement is written into a store nobody can read (a restart starts a new "
+            "store there; restore a backup first to keep the history)"
+        )
+        log.error("state.lost", state_dir=str(self.state_dir), error=self.state_lost)
+        self.request_stop()
+        return True
 
     def is_healthy(self) -> bool:
         """Observer thread alive, and the worker idle or within its run's time limit."""
@@ -380,8 +427,8 @@ class Daemon:
 
 
 def main(args: argparse.Namespace) -> int:
-    """``ionwarden run -c CONFIG``: 0 after SIGTERM/SIGINT, 2 bad config or a store written by a
-    newer version, 3 unusable store."""
+    """``ionwarden run -c CONFIG``: 0 after SIGTERM/SIGINT, 2 bad config, a store written by a
+    newer version or another daemon on the same state_dir, 3 unusable or lost store."""
     config = config_mod.load(Path(args.config))  # ConfigError -> exit 2 in cli.main
     found = preflight.problems(config)
     if found:
@@ -392,8 +439,11 @@ def main(args: argparse.Namespace) -> int:
         raise StoreError(
             f"state_dir {state_dir} is on a network filesystem; SQLite WAL needs a local disk"
         )
+    # Before logging: a second daemon must not even write into the first one's log file.
+    lock_fd = lock.acquire(state_dir)  # DaemonRunningError -> exit 2 in cli.main
     logs.configure_daemon(state_dir / "logs", config.log_keep_days)
     daemon = Daemon(config)
+    daemon.lock_fd = lock_fd  # held (open) for the process's lifetime
 
     def on_stop(signum: int, frame: FrameType | None) -> None:
         daemon.request_stop()

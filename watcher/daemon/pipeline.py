@@ -25,6 +25,7 @@ from typing import TYPE_CHECKING, Any
 import structlog
 
 from watcher.daemon.child import HEADER, READY, frame
+from watcher.intake import folderwalk
 from watcher.records import RunFile, RunMetrics, Status, Verdict, run_time
 from watcher.store import db, history, jobs
 
@@ -285,6 +286,10 @@ class Pipeline:
         """The file's content hash, or the outcome when the job ends here: the file vanished or
         changed since it settled, cannot be read, or holds what an earlier run already held."""
         path = job.path
+        watch_cfg = self.config.watch
+        if not watch_cfg.follow_symlinks_out and folderwalk.leads_outside(path, watch_cfg.folders):
+            # Re-pointed since it settled: the link is still not followed out of the folders.
+            return self._drop(job, "a symbolic link out of the watched folders: not measured")
         try:
             st = path.stat()
         except OSError:

@@ -109,6 +109,20 @@ def walk(
     return found
 
 
+def leads_outside(path: Path, folders: Iterable[Path]) -> bool:
+    """True when ``path`` resolves (through symbolic links) to a place under none of ``folders``.
+
+    The folders are resolved too, so a watched folder that is itself a link still holds its own
+    files. No folders (nothing watched, as for ``check``) means nothing is outside. Costs one
+    lstat per path component; nothing is opened.
+    """
+    folders = list(folders)
+    if not folders:
+        return False
+    real = Path(os.path.realpath(path))
+    return not any(real.is_relative_to(os.path.realpath(folder)) for folder in folders)
+
+
 def unknown(seen: Iterable[Seen], identities: set[tuple[str, int, int]]) -> list[Seen]:
     """The scanned files whose (path, size, mtime_ns) has no job yet, in scan order.
 

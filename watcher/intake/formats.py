@@ -75,11 +75,22 @@ def sniff(path: Path) -> Sniffed:
     return _sniff_plain(path, head, gz=False)
 
 
-def completeness(path: Path, *, whole_gzip: bool = True) -> str | None:
+def completeness(
+    path: Path,
+    *,
+    whole_gzip: bool = True,
+    deep: bool = True,
+    max_inflated_bytes: int | None = None,
+) -> str | None:
     """None when the file is structurally whole, else a short human reason why it is not.
 
     With ``whole_gzip=False`` a .gz file gets only the cheap checks here (size, head, format):
-    the caller proves the stream whole while reading it (``GunzipCheck``).
+    the caller proves the stream whole while reading it (``GunzipCheck``). With ``deep=False``
+    (the daemon's settle check, on its main loop) every check reads a bounded number of bytes
+    whatever the file's size: head, tail, the index offset; no SHA-1, no MGF block count, no
+    gzip stream. The measuring child does those once, with its time and memory limits, so that
+    a 20 GiB sparse file or a gzip bomb never holds up the loop that pings systemd's watchdog.
+    ``max_inflated_bytes`` bounds the gzip stream (``GunzipCheck``).
 
     Never raises. A file that can never become a run file (wrong format, a DOCTYPE) is not a
     completeness question: the answer is None and ``open_run`` refuses it at once, rather than
@@ -95,11 +106,13 @@ def completeness(path: Path, *, whole_gzip: bool = True) -> str | None:
             return "file starts with NUL bytes (preallocated, still being written?)"
         found = sniff(path)
         if found.format == "mzML.gz":
-            return _gzip_completeness(path, found.root) if whole_gzip else None
+            if not (whole_gzip and deep):
+                return None
+            return _gzip_completeness(path, found.root, max_inflated_bytes)
         tail = _read_tail(path, size)
         if found.format == "MGF":
-            return _mgf_completeness(path, tail)
-        return _xml_completeness(path, found.root, tail, size)
+            return _mgf_completeness(path, tail, deep=deep)
+        return _xml_completeness(path, found.root, tail, size, deep=deep)
     except ReadError as exc:
         return exc.reason if exc.kind in ("empty", "io") else None
     except OSError as exc:
@@ -157,7 +170,7 @@ def _sniff_plain(path: Path, head: bytes, *, gz: bool) -> Sniffed:
         return Sniffed("MGF", None)
     raise ReadError(
         path,
-        f"{where} is not mzML, mzXML or MGF (starts {_preview(stripped)})",
+        f"{where} is not a run file ({_size_text(path)}; not mzML, mzXML or MGF)",
         kind="wrong-format",
     )
 
@@ -183,7 +196,7 @@ def _sniff_xml(path: Path, text: bytes, where: str) -> Sniffed:
     if match is None:
         raise ReadError(
             path,
-            f"{where} is XML but not mzML or mzXML (root {_preview(text[prolog_end:])})",
+            f"{where} is not a run file ({_size_text(path)}; XML, but not mzML or mzXML)",
             kind="wrong-format",
         )
     root = match.group(1).decode()
@@ -241,9 +254,13 @@ def _looks_like_mgf(text: bytes) -> bool:
     return True  # only header lines so far: an MGF header longer than 64 KiB, or no spectra
 
 
-def _preview(data: bytes) -> str:
-    snippet = data[:24].decode("latin-1")
-    return repr("".join(ch if ch.isprintable() else "?" for ch in snippet))
+def _size_text(path: Path) -> str:
+    # The size, never the bytes: a wrong file may be a secret (a link to a credentials file),
+    # and this reason goes into alerts and the health log.
+    try:
+        return f"{path.stat().st_size} bytes"
+    except OSError:
+        return "size unknown"
 
 
 # --- completeness ---------------------------------------------------------------------------
@@ -256,7 +273,9 @@ def _tail_problem(tail: bytes) -> tuple[bytes, str | None]:
     return stripped, None
 
 
-def _xml_completeness(path: Path, root: str | None, tail: bytes, size: int) -> str | None:
+def _xml_completeness(
+    path: Path, root: str | None, tail: bytes, size: int, *, deep: bool
+) -> str | None:
     stripped, problem = _tail_problem(tail)
     if problem:
         return problem
@@ -266,10 +285,10 @@ def _xml_completeness(path: Path, root: str | None, tail: bytes, size: int) -> s
     if root != "indexedmzML":
         return None
     with path.open("rb") as fh:
-        return _index_problem(fh, tail, size)
+        return _index_problem(fh, tail, size, deep=deep)
 
 
-def _index_problem(fh: BinaryIO, tail: bytes, size: int) -> str | None:
+def _index_problem(fh: BinaryIO, tail: bytes, size: int, *, deep: bool = True) -> str | None:
     """indexListOffset must land on <indexList; the SHA-1 must match. ``fh`` is seekable."""
     offsets = _INDEX_OFFSET_RE.findall(tail)
     if not offsets:
@@ -282,7 +301,7 @@ def _index_problem(fh: BinaryIO, tail: bytes, size: int) -> str | None:
     if not fh.read(256).lstrip().startswith(b"<indexList"):
         return f"indexListOffset {offset} does not point at <indexList>"
     sums = _CHECKSUM_RE.findall(tail)
-    if not sums:
+    if not sums or not deep:
         return None  # fileChecksum is optional in practice; the tail tag and offset held
     expected = sums[-1].decode().lower()
     tag_at = tail.rfind(_CHECKSUM_TAG)  # the last tag of the file lies in its tail
@@ -313,14 +332,15 @@ def _chunks(fh: BinaryIO) -> Iterator[bytes]:
         yield chunk
 
 
-def _mgf_completeness(path: Path, tail: bytes) -> str | None:
+def _mgf_completeness(path: Path, tail: bytes, *, deep: bool = True) -> str | None:
     stripped, problem = _tail_problem(tail)
     if problem:
         return problem
     last_line = stripped.rsplit(b"\n", 1)[-1].strip()
-    begins, ends = _count_mgf_blocks(path)
-    if begins != ends:
-        return f"MGF has {begins} BEGIN IONS but {ends} END IONS"
+    if deep:
+        begins, ends = _count_mgf_blocks(path)
+        if begins != ends:
+            return f"MGF has {begins} BEGIN IONS but {ends} END IONS"
     if last_line.upper() != b"END IONS":
         return "MGF does not end with END IONS (truncated while copying?)"
     return None
@@ -347,9 +367,9 @@ def _count_lines(block: bytes, word: bytes) -> int:
     return sum(1 for line in block.split(b"\n") if line.strip() == word) if word in block else 0
 
 
-def _gzip_completeness(path: Path, root: str | None) -> str | None:
+def _gzip_completeness(path: Path, root: str | None, max_inflated_bytes: int | None) -> str | None:
     with path.open("rb") as raw:
-        check = GunzipCheck(raw, root)
+        check = GunzipCheck(raw, root, max_inflated_bytes=max_inflated_bytes)
         check.drain()
         return check.problem()
 
@@ -373,11 +393,19 @@ class GunzipCheck:
     After the parser is done, ``drain()`` reads whatever it left, and ``problem()`` gives the
     same reasons as ``completeness`` (None when whole). A truncated or corrupt stream ends
     ``read`` early (the parser then fails) and is reported by ``problem()``.
+
+    ``max_inflated_bytes`` bounds the decompressed size: past it the stream ends there,
+    ``too_large`` is set and ``problem()`` says so. A 21 MB gzip bomb inflates to 21.5 GB of
+    zeros; without a bound, checking it costs about a minute of CPU and tells nothing more.
     """
 
-    def __init__(self, raw: IO[bytes], root: str | None) -> None:
+    def __init__(
+        self, raw: IO[bytes], root: str | None, *, max_inflated_bytes: int | None = None
+    ) -> None:
         self._raw = raw
         self._root = root
+        self._max_inflated_bytes = max_inflated_bytes
+        self.too_large = False
         self._inflate: Any = zlib.decompressobj(wbits=31)
         self._in = b""  # compressed input not yet consumed
         self._between = False  # at the end of a member (zero padding or another member may follow)
@@ -468,6 +496,14 @@ class GunzipCheck:
             else:
                 self._in = self._inflate.unconsumed_tail
             if out:
+                cap = self._max_inflated_bytes
+                if cap is not None and self._size + len(out) > cap:
+                    self._done = self.too_large = True
+                    self._problem = (
+                        f"too large: gzip content inflates to more than {cap // (1024 * 1024)} "
+                        "MB (limits.max_inflated_mb)"
+                    )
+                    break
                 self._account(out)
                 return out
         return b""

@@ -43,6 +43,7 @@ class Settler:
     def __init__(self, watch_settings: Watch) -> None:
         self.watch = watch_settings  # replaced on reload; pending files keep their state
         self.pending: dict[Path, settle.Pending] = {}
+        self._links_skipped: set[Path] = set()  # each reported once, not on every scan
 
     def walk(self, known: set[tuple[str, int, int]], now_s: float) -> tuple[int, int]:
         """Look through every watched folder; returns (run files seen, newly pending).
@@ -54,7 +55,7 @@ class Settler:
         seen = folderwalk.walk(w.folders, w.patterns, w.ignore, recursive=w.recursive)
         added = 0
         for item in folderwalk.unknown(seen, known):
-            if item.path not in self.pending:
+            if item.path not in self.pending and not self._link_out(item.path):
                 self.pending[item.path] = settle.new_pending(item.path, now_s, w.settle_s)
                 added += 1
         return len(seen), added
@@ -127,8 +128,27 @@ class Settler:
             incomplete_reason=incomplete_reason,
         )
 
+    def _link_out(self, path: Path) -> bool:
+        """Whether ``path`` is a link out of the watched folders that must not be read.
+
+        Such a link lets whoever writes the export folder make the daemon read any file it can
+        (a secrets file, /etc/shadow) and put what it finds into alerts: skipped, and said once.
+        """
+        w = self.watch
+        if w.follow_symlinks_out or not folderwalk.leads_outside(path, w.folders):
+            return False
+        if path not in self._links_skipped:
+            self._links_skipped.add(path)
+            log.warning(
+                "run.link_skipped",
+                file=str(path),
+                reason="a symbolic link to a file outside the watched folders is not measured "
+                "(watch.follow_symlinks_out is false)",
+            )
+        return True
+
     def _note(self, path: Path, now_s: float) -> None:
-        if path not in self.pending:
+        if path not in self.pending and not self._link_out(path):
             self.pending[path] = settle.new_pending(path, now_s, self.watch.settle_s)
             log.info("run.detected", file=str(path))
 
@@ -153,7 +173,10 @@ def _completeness(path: Path) -> str | None:
     from watcher.intake.formats import completeness
 
     try:
-        reason: str | None = completeness(path)
+        # Bounded reads only (head, tail, index offset): this runs on the main loop, which must
+        # keep pinging the watchdog. The SHA-1, the MGF block count and the gzip stream are
+        # proven once, by the measuring child, before any metric leaves it.
+        reason: str | None = completeness(path, deep=False)
     except OSError as exc:
         return f"cannot be read ({exc.strerror})"
     return reason

@@ -179,18 +179,16 @@ def measure_file(
     # leave here before that proof is in.
     formats.check_complete(path, whole_gzip=False)
     needs_arrays = bool(config.calibrants or config.expected_ions)
-    try:
-        with read.open_run(path, ms1_arrays=needs_arrays, progress=progress, check_gzip=True) as (
-            header,
-            scans,
-        ):
-            metrics = measure_scans(header, scans, config, file_name=path.name)
-    except ReadError:
-        # A cut or damaged .gz can fail anywhere in that pass: report it as the full
-        # completeness check would have before reading (same reason, kind "truncated").
-        if _is_gzip(path):
-            formats.check_complete(path)
-        raise
+    # A cut, damaged or too large .gz can fail anywhere in that pass: open_run then names the
+    # stream's problem (kind "truncated" or "too-large") from the same pass.
+    with read.open_run(
+        path,
+        ms1_arrays=needs_arrays,
+        progress=progress,
+        check_gzip=True,
+        max_inflated_bytes=config.limits.max_inflated_mb * 1024 * 1024,
+    ) as (header, scans):
+        metrics = measure_scans(header, scans, config, file_name=path.name)
     if metrics.signal.ms1_count + metrics.signal.ms2_count == 0:
         raise ReadError(path, "no spectra in file", kind="empty")
     return metrics
@@ -230,15 +228,6 @@ def _searched_ions(
                 f"{lo / 60:g}-{hi / 60:g} min (the run spans {span}); reported not found"
             )
     return tuple(results), polarity_notes + window_notes
-
-
-def _is_gzip(path: Path) -> bool:
-    from watcher.intake import formats
-
-    try:
-        return formats.sniff_format(path) == "mzML.gz"
-    except ReadError:
-        return False
 
 
 def _resolve_all(config: Config, key: str) -> list[ResolvedIon]:

@@ -48,6 +48,7 @@ def open_run(
     ms1_arrays: bool = True,
     progress: Progress | None = None,
     check_gzip: bool = False,
+    max_inflated_bytes: int | None = None,
 ) -> Iterator[tuple[RunHeader, Iterator[Scan]]]:
     """Open ``path`` and yield ``(header, scans)``; scans come one at a time in file order.
 
@@ -59,7 +60,11 @@ def open_run(
         check_gzip: for mzML.gz, check the whole gzip stream (CRC-32, end of stream, closing
             tag, index offset and SHA-1 inside) while parsing; after the last scan, ``scans``
             raises ``ReadError(kind="truncated")`` if it is not whole. Pair it with
-            ``check_complete(path, whole_gzip=False)`` before the call.
+            ``check_complete(path, whole_gzip=False)`` before the call. When the parse fails
+            on such a stream, the rest of the same stream is drained and its problem, if any,
+            is the error (the file is inflated once, never a second time to name the reason).
+        max_inflated_bytes: with ``check_gzip``, the most a .mzML.gz may inflate to; past it
+            the error is ``kind="too-large"``.
 
     Raises:
         ReadError: from opening and from iterating ``scans``; the message names the file's
@@ -69,7 +74,12 @@ def open_run(
     with ExitStack() as stack:
         try:
             header, scans = _open(
-                path, stack, ms1_arrays=ms1_arrays, throttle=throttle, check_gzip=check_gzip
+                path,
+                stack,
+                ms1_arrays=ms1_arrays,
+                throttle=throttle,
+                check_gzip=check_gzip,
+                max_inflated_bytes=max_inflated_bytes,
             )
         except (ReadError, MemoryError):
             raise  # out of memory is the limit's doing, not the file's: the caller reports it
@@ -79,7 +89,13 @@ def open_run(
 
 
 def _open(
-    path: Path, stack: ExitStack, *, ms1_arrays: bool, throttle: _Throttle, check_gzip: bool
+    path: Path,
+    stack: ExitStack,
+    *,
+    ms1_arrays: bool,
+    throttle: _Throttle,
+    check_gzip: bool,
+    max_inflated_bytes: int | None,
 ) -> tuple[RunHeader, Iterator[Scan]]:
     found = sniff(path)
     if found.format == "MGF":
@@ -101,9 +117,17 @@ def _open(
             safexml.assert_no_doctype(probe, name=path.name)
         raw = stack.enter_context(path.open("rb"))
         if check_gzip:
-            check = GunzipCheck(_Counted(raw, throttle), found.root)  # type: ignore[arg-type]
+            check = GunzipCheck(
+                _Counted(raw, throttle),  # type: ignore[arg-type]
+                found.root,
+                max_inflated_bytes=max_inflated_bytes,
+            )
             events = safexml.safe_iterparse(check, events=("start", "end"), tag=mzml.stream_tags())
-            pre = mzml.read_preamble(events)
+            try:
+                pre = mzml.read_preamble(events)
+            except Exception:
+                _raise_stream_problem(path, check)
+                raise
             header = _mzml_header(found.format, pre)
             scans = mzml.stream_scans(events, pre, want_arrays=ms1_arrays)
             return header, _then_whole(path, scans, check)
@@ -159,11 +183,24 @@ def _with_fallback(
 
 def _then_whole(path: Path, scans: Iterator[Scan], check: GunzipCheck) -> Iterator[Scan]:
     """The scans, then the rest of the gzip stream checked: a cut stream ends in a ReadError."""
-    yield from scans
+    try:
+        yield from scans
+    except (GeneratorExit, MemoryError):
+        raise
+    except Exception:
+        # A cut, corrupt or too large stream makes the parse fail anywhere: its problem is the
+        # reason, as the full completeness check would name it, from the same single pass.
+        _raise_stream_problem(path, check)
+        raise
+    _raise_stream_problem(path, check)
+
+
+def _raise_stream_problem(path: Path, check: GunzipCheck) -> None:
+    """Drain the rest of the gzip stream; raise its problem, if it has one, as the ReadError."""
     check.drain()
     reason = check.problem()
     if reason is not None:
-        raise ReadError(path, reason, kind="truncated")
+        raise ReadError(path, reason, kind="too-large" if check.too_large else "truncated")
 
 
 def _guarded(path: Path, scans: Iterator[Scan], throttle: _Throttle) -> Iterator[Scan]:
