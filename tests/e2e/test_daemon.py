@@ -206,18 +206,23 @@ def test_time_limit_kills_child_and_daemon_goes_on(lab: Lab, big_run: Path) -> N
 
 
 def test_never_completing_file_is_unreadable_with_alert(lab: Lab, receiver: Receiver) -> None:
-    """A file that stays incomplete past max_wait_s: unreadable 'incomplete: ...' and an alert."""
+    """A cut-off export that stops changing: unreadable 'incomplete: ...' with how long it has
+    been unchanged, and its alert at the receiver within stall_s + settle_s + 2 s of the write."""
+    stall_s = 2.0
     lab.write_config(
-        watch={"max_wait_s": 1.0},
+        watch={"stall_s": stall_s},
         alerts={"channels": [{"name": "lab-chat", "url": receiver.url()}]},
     )
     d = lab.start()
     data = lab.run_bytes(1)
     (lab.exports / "QC_cut.mzML").write_bytes(data[: len(data) // 2])
+    written = time.monotonic()
+    wait_for(lambda: receiver.bodies, 15, "the alert at the receiver")
+    elapsed_s = time.monotonic() - written
+    assert elapsed_s <= stall_s + SETTLE_S + 2.0, elapsed_s
     runs = lab.wait_runs(1)
     assert runs[0][0:2] == ("QC_cut.mzML", "unreadable")
     assert re.fullmatch(r"incomplete: .+, still so after \d+ s", str(runs[0][2]))
-    wait_for(lambda: receiver.bodies, 15, "the alert at the receiver")
     assert "QC_cut.mzML" in str(receiver.bodies[0])
     assert d.stop() == 0
 

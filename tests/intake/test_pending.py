@@ -59,11 +59,11 @@ def test_known_identity_is_forgotten_not_queued(tmp_path: Path) -> None:
     assert settler.pending == {}
 
 
-def test_cut_file_gives_up_with_reason_after_max_wait(tmp_path: Path) -> None:
-    """A file that stays unchanged but incomplete comes out after max_wait_s, marked incomplete."""
+def test_cut_file_gives_up_with_reason_after_stall_s(tmp_path: Path) -> None:
+    """A file that stays unchanged but incomplete comes out after stall_s, marked incomplete."""
     run = tmp_path / "QC_005.mgf"
     run.write_text(CUT_MGF)
-    settler = Settler(Watch(folders=(tmp_path,), settle_s=1.0, max_wait_s=20.0))
+    settler = Settler(Watch(folders=(tmp_path,), settle_s=1.0, stall_s=20.0))
     files, added = settler.walk(set(), 0.0)
     assert (files, added) == (1, 1)
     assert _settle(settler, 0.5, 15.0) == []  # not yet given up: still waiting

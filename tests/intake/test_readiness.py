@@ -20,10 +20,23 @@ SETTLE_S = 0.5
 WAIT_S = 3600.0
 
 
+STALL_S = 600.0
+
+
 def _look(pending, stat, now_s, reason=None):
     return step(
-        pending, stat, now_s, settle_s=SETTLE_S, max_wait_s=WAIT_S, incomplete_reason=reason
+        pending,
+        stat,
+        now_s,
+        settle_s=SETTLE_S,
+        max_wait_s=WAIT_S,
+        incomplete_reason=reason,
+        stall_s=STALL_S,
     )
+
+
+def _ns(seconds: float) -> int:
+    return round(seconds * 1e9)
 
 
 def test_first_look_never_ready():
@@ -47,7 +60,7 @@ def test_looks_closer_than_settle_wait():
     assert decision is Decision.WAIT
 
 
-@pytest.mark.parametrize("later", [FileStat(11, 1), FileStat(10, 2)])
+@pytest.mark.parametrize("later", [FileStat(11, _ns(SETTLE_S)), FileStat(10, _ns(SETTLE_S))])
 def test_change_restarts_clock(later):
     """A new size or a new mtime_ns (same size, rewritten) restarts the settle clock."""
     _, p = _look(new_pending(P, 0.0, SETTLE_S), FileStat(10, 1), 0.0)
@@ -60,24 +73,28 @@ def test_change_restarts_clock(later):
     assert decision is Decision.READY
 
 
-def test_growing_file_never_gives_up():
-    """A file that keeps changing for far longer than max_wait_s never alarms."""
+def test_growing_file_waits_until_max_wait_s():
+    """A file that keeps changing is being written: no alarm until max_wait_s, then reported."""
     p = new_pending(P, 0.0, SETTLE_S)
     now = 0.0
-    for i in range(200):
-        decision, p = _look(p, FileStat(10 + i, 1 + i), now, reason="no closing tag")
+    for i in range(20):
+        decision, p = _look(p, FileStat(10 + i, _ns(now)), now, reason="no closing tag")
         assert decision is Decision.WAIT
-        now += WAIT_S / 20  # 10 x max_wait_s in total
-    assert now > 5 * WAIT_S
+        now += WAIT_S / 20
+    decision, p = _look(p, FileStat(99, _ns(now)), now, reason="no closing tag")
+    assert decision is Decision.GIVE_UP
+    assert p.reason == "no closing tag"
 
 
 def test_settled_but_incomplete_waits_then_gives_up():
-    """Unchanged but not whole (e.g. a NUL-filled tail): wait, and give up after max_wait_s."""
+    """Unchanged but not whole (e.g. a NUL-filled tail): wait, and give up after stall_s."""
     _, p = _look(new_pending(P, 0.0, SETTLE_S), FileStat(10, 1), 0.0)
     decision, p = _look(p, FileStat(10, 1), SETTLE_S, reason="NUL-filled tail")
     assert decision is Decision.WAIT
     assert p.next_check_s > SETTLE_S
-    decision, p = _look(p, FileStat(10, 1), WAIT_S, reason="NUL-filled tail")
+    decision, _ = _look(p, FileStat(10, 1), STALL_S - 1.0, reason="NUL-filled tail")
+    assert decision is Decision.WAIT
+    decision, p = _look(p, FileStat(10, 1), STALL_S, reason="NUL-filled tail")
     assert decision is Decision.GIVE_UP
     assert p.reason == "NUL-filled tail"
 
@@ -104,3 +121,35 @@ def test_incomplete_message_names_reason_and_hours():
     assert incomplete_message("x", 1800) == "incomplete: x, still so after 30 min"
     assert incomplete_message("x", 5) == "incomplete: x, still so after 5 s"
     assert incomplete_message("x", 3 * 3600) == "incomplete: x, still so after 3.0 h"
+
+
+def test_settle_runs_from_the_last_write_not_from_the_look():
+    """A write at 10.0 s first seen at 10.4 s (previous look 9.9 s): ready at 10.5 s, settle_s
+    after the write, not settle_s after the look that noticed it."""
+    _, p = _look(new_pending(P, 0.0, SETTLE_S), FileStat(10, _ns(9.0)), 9.9)
+    decision, p = _look(p, FileStat(20, _ns(10.0)), 10.4)
+    assert decision is Decision.WAIT
+    assert p.last_change_s == pytest.approx(10.0)
+    assert p.next_check_s == pytest.approx(10.5)
+    decision, _ = _look(p, FileStat(20, _ns(10.0)), 10.5)
+    assert decision is Decision.READY
+
+
+def test_a_skewed_mtime_stays_between_the_looks():
+    """A file server whose clock runs an hour behind or ahead cannot move the change outside the
+    span between the look that saw the old stat and the one that saw the new."""
+    _, p = _look(new_pending(P, 0.0, SETTLE_S), FileStat(10, _ns(100.0)), 100.0)
+    _, behind = _look(p, FileStat(20, _ns(100.2 - 3600)), 100.2)
+    assert behind.last_change_s == pytest.approx(100.0)
+    _, ahead = _look(p, FileStat(20, _ns(100.2 + 3600)), 100.2)
+    assert ahead.last_change_s == pytest.approx(100.2)
+
+
+def test_unchanged_time_survives_a_restart():
+    """After a restart the first look takes the file's mtime: an incomplete file last written an
+    hour ago is reported at the next look, not stall_s after the restart."""
+    now = 10_000.0
+    _, p = _look(new_pending(P, now, SETTLE_S), FileStat(10, _ns(now - 3600)), now)
+    assert p.last_change_s == pytest.approx(now - 3600)
+    decision, _ = _look(p, FileStat(10, _ns(now - 3600)), now + 0.1, reason="NUL-filled tail")
+    assert decision is Decision.GIVE_UP

@@ -101,6 +101,7 @@ def write_demo_config(workdir: Path, channel_urls: list[str], *, settle_s: float
     data["watch"]["settle_s"] = settle_s
     # The demo's truncated export never completes; report it after seconds, not the default hours.
     data["watch"]["max_wait_s"] = 5
+    data["watch"]["stall_s"] = 5
     data["state_dir"] = str(workdir / "state")
     data["alerts"]["channels"] = [
         {"name": f"demo-{i}" if i else "demo-receiver", "url": url, "min_severity": "warning"}

@@ -55,7 +55,10 @@ class Watch:
     polling: bool = False
     poll_interval_s: float = 10.0
     rescan_interval_s: float = 300.0
-    max_wait_s: float = 86400.0  # a file not complete by then becomes unreadable
+    # a file still changing after this long becomes unreadable (a writer that never finishes)
+    max_wait_s: float = 86400.0
+    # a file unchanged this long but still incomplete is reported unreadable (the copy died)
+    stall_s: float = 600.0
     # A link in the export folder to a file elsewhere (/etc/shadow, the config's secrets) is
     # skipped unless this is set: the folder's writers must not choose what the daemon reads.
     follow_symlinks_out: bool = False

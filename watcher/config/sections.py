@@ -121,6 +121,7 @@ def _watch(v: Values, data: Any) -> Watch:
         "poll_interval_s": lambda p, x: v.duration(p, x),
         "rescan_interval_s": lambda p, x: v.duration(p, x),
         "max_wait_s": lambda p, x: v.duration(p, x),
+        "stall_s": lambda p, x: v.duration(p, x),
         "follow_symlinks_out": lambda p, x: v.boolean(p, x),
     }
     return _section(v, data, ("watch",), Watch, fields)  # type: ignore[no-any-return]

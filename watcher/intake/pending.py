@@ -101,9 +101,10 @@ class Settler:
                 ready.append(Settled(path, stat))
             elif decision is settle.Decision.GIVE_UP and stat is not None:
                 del self.pending[path]
-                text = settle.incomplete_message(
-                    nxt.reason or "not whole", now_s - nxt.first_seen_s
-                )
+                growing = nxt.last_stat is not None and nxt.last_stat != pending.last_stat
+                # stalled: how long unchanged; still being written: how long it was waited for
+                waited_s = now_s - (nxt.first_seen_s if growing else nxt.last_change_s)
+                text = settle.incomplete_message(nxt.reason or "not whole", waited_s)
                 log.warning("run.incomplete", file=str(path), reason=text)
                 ready.append(Settled(path, stat, text))
             elif decision is settle.Decision.GONE:
@@ -126,6 +127,7 @@ class Settler:
             settle_s=self.watch.settle_s,
             max_wait_s=self.watch.max_wait_s,
             incomplete_reason=incomplete_reason,
+            stall_s=self.watch.stall_s,
         )
 
     def _link_out(self, path: Path) -> bool:

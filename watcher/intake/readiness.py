@@ -1,9 +1,16 @@
 """Readiness decisions for files that may still be written: pure functions, no I/O.
 
-A file is handed on only when two stats ``settle_s`` apart agree on size and ``mtime_ns`` and its
-format says it is whole; size alone proves nothing (a preallocated file with a NUL tail has its
-final size from the start, docs/reliability.md item 2). A file that keeps changing is being
-written and never alarms; one that stays unchanged but incomplete for ``max_wait_s`` gives up.
+A file is handed on only when its size and ``mtime_ns`` have stayed unchanged for ``settle_s``
+and its format says it is whole; size alone proves nothing (a preallocated file with a NUL tail
+has its final size from the start, docs/reliability.md item 2). The settle clock runs from the
+last change as the file itself records it (its mtime, kept between the look that saw the change
+and the look before, so a skewed file-server clock cannot stretch or shorten it): a file is
+handed on ``settle_s`` after its last write, not a whole period after the look that noticed it,
+and how long a file has been unchanged survives a daemon restart.
+
+Two ways to end incomplete: unchanged but incomplete for ``stall_s`` (the copy died: report it
+within minutes, not the next day), or still changing after ``max_wait_s`` (a writer that never
+finishes).
 """
 
 from __future__ import annotations
@@ -29,7 +36,7 @@ class Decision(StrEnum):
 
     READY = "ready"  # settled and whole: hand it to the job table
     WAIT = "wait"  # look again at ``next_check_s``
-    GIVE_UP = "give_up"  # unchanged but incomplete for max_wait_s: judge it unreadable
+    GIVE_UP = "give_up"  # stalled incomplete, or still changing after max_wait_s: unreadable
     GONE = "gone"  # deleted or renamed away before it settled: forget it
 
 
@@ -45,6 +52,7 @@ class Pending:
         next_check_s: when to look again.
         checks: how many looks found it not ready (drives the back-off).
         reason: the latest completeness reason, for the give-up message.
+        last_look_s: when the previous look was taken (bounds the mtime of a change it saw).
     """
 
     path: Path
@@ -54,6 +62,20 @@ class Pending:
     next_check_s: float
     checks: int = 0
     reason: str | None = None
+    last_look_s: float | None = None
+
+
+def changed_at_s(stat: FileStat, now_s: float, previous_look_s: float | None) -> float:
+    """When the file last changed: its mtime, within (previous look, now].
+
+    The change happened after the previous look that saw the old stat and before this one, so
+    a file server's clock that runs ahead or behind moves it at most within that span. At the
+    first look (no previous one) the mtime counts up to now: after a restart, a file unchanged
+    for an hour is known to be so.
+    """
+    mtime_s = stat.mtime_ns / 1e9
+    lower = previous_look_s if previous_look_s is not None else float("-inf")
+    return min(max(mtime_s, lower), now_s)
 
 
 def new_pending(path: Path, now_s: float, settle_s: float) -> Pending:
@@ -73,6 +95,9 @@ def recheck_delay_s(checks: int, settle_s: float, *, max_delay_s: float = 60.0) 
     return min(max(settle_s, max_delay_s), settle_s * 2.0 ** min(checks, 16))
 
 
+MIN_LOOK_GAP_S = 0.05  # two looks at least this far apart: a burst of hints is one look
+
+
 def step(
     pending: Pending,
     stat: FileStat | None,
@@ -81,6 +106,7 @@ def step(
     settle_s: float,
     max_wait_s: float,
     incomplete_reason: str | None,
+    stall_s: float | None = None,
 ) -> tuple[Decision, Pending]:
     """One look at a pending file.
 
@@ -89,44 +115,58 @@ def step(
         stat: the stat taken now, None when the file no longer exists.
         now_s: the time of the look (seconds).
         settle_s: how long size and mtime must stay unchanged.
-        max_wait_s: how long an unchanged file may stay incomplete before it is given up.
+        max_wait_s: how long a file may keep changing before it is given up.
         incomplete_reason: what the format check said (None = whole). Only consulted when the
             stats agree, so callers may pass None and call again with the real reason.
+        stall_s: how long an unchanged file may stay incomplete before it is given up
+            (None: ``max_wait_s``).
 
     Returns:
         The decision and the pending state to keep (unchanged for READY, GONE).
     """
     if stat is None:
         return Decision.GONE, pending
+    stall_s = max_wait_s if stall_s is None else stall_s
     changed = pending.last_stat is None or stat != pending.last_stat
     if changed:
         # A change restarts the settle clock and resets the back-off: the file is being written.
-        first_look = pending.last_stat is None
+        if pending.last_stat is not None and now_s - pending.first_seen_s >= max_wait_s:
+            return Decision.GIVE_UP, replace(
+                pending, last_stat=stat, reason=incomplete_reason or "still being written"
+            )
+        last_change_s = changed_at_s(stat, now_s, pending.last_look_s)
         nxt = replace(
             pending,
             last_stat=stat,
-            last_change_s=pending.last_change_s if first_look else now_s,
-            next_check_s=now_s + settle_s,
+            last_change_s=last_change_s,
+            next_check_s=max(last_change_s + settle_s, now_s + MIN_LOOK_GAP_S),
             checks=0,
+            last_look_s=now_s,
         )
         return Decision.WAIT, nxt
+    looked = replace(pending, last_look_s=now_s)
     if now_s - pending.last_change_s < settle_s:
-        return Decision.WAIT, replace(pending, next_check_s=pending.last_change_s + settle_s)
+        return Decision.WAIT, replace(looked, next_check_s=pending.last_change_s + settle_s)
     if incomplete_reason is None:
-        return Decision.READY, pending
-    if now_s - pending.last_change_s >= max_wait_s:
-        return Decision.GIVE_UP, replace(pending, reason=incomplete_reason)
+        return Decision.READY, looked
+    if now_s - pending.last_change_s >= stall_s:
+        return Decision.GIVE_UP, replace(looked, reason=incomplete_reason)
     checks = pending.checks + 1
     delay_s = min(
-        recheck_delay_s(checks, settle_s), max(0.0, pending.last_change_s + max_wait_s - now_s)
+        recheck_delay_s(checks, settle_s), max(0.0, pending.last_change_s + stall_s - now_s)
     )
     return Decision.WAIT, replace(
-        pending, checks=checks, next_check_s=now_s + max(delay_s, 0.05), reason=incomplete_reason
+        looked,
+        checks=checks,
+        next_check_s=now_s + max(delay_s, MIN_LOOK_GAP_S),
+        reason=incomplete_reason,
     )
 
 
 def incomplete_message(reason: str, waited_s: float) -> str:
-    """Verdict text for a file that never completed: ``incomplete: <why>, still so after 24 h``."""
+    """Verdict text for a file that never completed: ``incomplete: <why>, still so after 24 h``.
+
+    ``waited_s``: how long it has been unchanged (stalled), or waited while changing."""
     if waited_s < 120:
         shown = f"{waited_s:.0f} s"
     elif waited_s < 7200:
