@@ -3,6 +3,7 @@
 Runs ``python -m watcher run`` as a real subprocess on a temporary folder, exactly as systemd
 would, and measures from the outside:
 
+* slow_copy: a run written in place in chunks over ~1.5 s; seconds from its last write to its line;
 * latency: a run is written as ``*.part`` and renamed into place (the moment it is complete);
   the time until its line appears in the health log, against settle_s + measuring + 1 s;
 * idle CPU: user+system CPU of the daemon and its measuring child over ``--idle-s`` seconds of
@@ -132,6 +133,39 @@ def _stop(proc: subprocess.Popen[bytes]) -> None:
     proc.wait(timeout=30)
 
 
+def bench_slow_copy(root: Path, template: bytes, runs: int, settle_s: float) -> dict[str, float]:
+    """A run written in place in 8 chunks over ~1.5 s (a copy over a slow share): the latency
+    from its last write to its health line; the target is settle_s + measuring + 1 s."""
+    proc = _start(root, _config(root, settle_s))
+    exports = root / "exports"
+    latencies = []
+    for i in range(runs):
+        name = f"QC_slow_{i:03d}.mzML"
+        data = _variant(template, 1000 + i)
+        step = len(data) // 8 + 1
+        with (exports / name).open("wb") as out:
+            for k in range(0, len(data), step):
+                out.write(data[k : k + step])
+                out.flush()
+                time.sleep(0.2)
+        last_write = time.monotonic()
+        _wait(lambda n=name: _health_has(root, n), 60, f"health line of {name}")
+        latencies.append(time.monotonic() - last_write)
+    measured = [
+        json.loads(line)["duration_s"]
+        for line in (root / "daemon.log").read_text().splitlines()
+        if '"run.measured"' in line
+    ]
+    _stop(proc)
+    return {
+        "settle_s": settle_s,
+        "latency_median_s": statistics.median(latencies),
+        "latency_max_s": max(latencies),
+        "measure_median_s": statistics.median(measured) if measured else float("nan"),
+        "target_s": settle_s + (statistics.median(measured) if measured else 0.0) + 1.0,
+    }
+
+
 def bench_latency(root: Path, template: bytes, runs: int, settle_s: float) -> dict[str, float]:
     proc = _start(root, _config(root, settle_s))
     exports = root / "exports"
@@ -222,6 +256,7 @@ def main() -> int:
     parser.add_argument("--idle-s", type=float, default=60.0)
     parser.add_argument("--burst", type=int, default=1000)
     parser.add_argument("--latency-runs", type=int, default=10)
+    parser.add_argument("--slow-copies", type=int, default=20)
     parser.add_argument("--settle-s", type=float, default=2.0)
     args = parser.parse_args()
     with tempfile.TemporaryDirectory(prefix="ionwarden-bench-") as tmp:
@@ -230,6 +265,10 @@ def main() -> int:
         print(f"run file: {len(template) / 1e3:.0f} kB synthetic mzML (60 s, MS1+MS2)")
         for name, fn in (
             ("latency", lambda r: bench_latency(r, template, args.latency_runs, args.settle_s)),
+            (
+                "slow_copy",
+                lambda r: bench_slow_copy(r, template, args.slow_copies, args.settle_s),
+            ),
             ("idle", lambda r: bench_idle(r, args.idle_s)),
             ("burst", lambda r: bench_burst(r, template, args.burst, 0.5)),
         ):

@@ -123,9 +123,10 @@ def test_bad_file_is_unreadable_and_the_others_are_measured(tmp_path: Path) -> N
 
 
 def test_missing_file_is_unreadable_not_a_crash(tmp_path: Path) -> None:
-    """A path that does not exist is reported as unreadable with the reason."""
+    """A path that does not exist is reported as unreadable with the reason, and the call exits
+    4 (a file could not be opened), not 1 (a run failed QC): the two call for different acts."""
     proc = _check("-c", _config(tmp_path), tmp_path / "QC_gone.mzML")
-    assert proc.returncode == 1
+    assert proc.returncode == 4
     assert "QC_gone.mzML: unreadable: cannot open" in proc.stdout
     assert "Traceback" not in proc.stderr
 
@@ -220,3 +221,16 @@ def test_progress_bar_is_off_when_the_stream_is_not_a_tty() -> None:
     bar(50, 100)
     bar.close()
     assert stream.getvalue() == ""
+
+
+def test_mzqc_to_stdout_and_the_config_in_use_is_named(tmp_path: Path) -> None:
+    """``--mzqc -`` writes the mzQC document (JSON, HUPO-PSI mzQC 1.0 top level ``mzQC``) to stdout
+    and nothing else there; without ``-c`` stderr says the embedded demo config judged the run."""
+    run = _run(tmp_path, "QC_a.mzML", 0.0)
+    proc = _check("--mzqc", "-", "--no-progress", run)
+    assert proc.returncode in (0, 1), proc.stderr
+    document = json.loads(proc.stdout)
+    assert "mzQC" in document
+    assert "embedded demo config" in proc.stderr
+    both = _check("--mzqc", "-", "--json", run)
+    assert both.returncode == 2

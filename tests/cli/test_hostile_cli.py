@@ -213,12 +213,13 @@ def _cal(run: dict[str, Any], name: str) -> dict[str, Any]:
 
 
 def test_every_file_gets_a_run_and_exit_1_without_traceback(batch: dict[str, Any]) -> None:
-    """All files of the call are reported in order, the bad ones unreadable; exit 1 (cli.py)."""
+    """All files of the call are reported in order, the bad ones unreadable; exit 4, because
+    the batch names files that cannot be opened (a missing one, a symlink loop)."""
     proc = batch["proc"]
     _no_traceback(proc)
     _no_traceback(batch["text"])
-    assert proc.returncode == 1  # watcher/cli/main.py: 1 = any warning/critical/unreadable
-    assert batch["text"].returncode == 1
+    assert proc.returncode == 4  # watcher/cli/exitcodes.py: NO_INPUT
+    assert batch["text"].returncode == 4
     assert list(batch["runs"]) == batch["names"]
 
 

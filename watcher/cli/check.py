@@ -36,7 +36,18 @@ def main(args: argparse.Namespace) -> int:
     """Run ``ionwarden check``; returns the exit code (see the module docstring)."""
     from watcher import config as config_module
 
-    config = config_module.load(args.config) if args.config else config_module.load_default()
+    if args.config:
+        config = config_module.load(args.config)
+    else:
+        # Say so: thresholds of the embedded demo config are not the lab's.
+        _warn(
+            "no -c CONFIG given: judging with the embedded demo config (watcher/data/default.yaml)"
+        )
+        config = config_module.load_default()
+    mzqc_to_stdout = args.mzqc == "-"
+    if mzqc_to_stdout and args.json:
+        _warn("--mzqc - and --json both write to stdout: choose one")
+        return ExitCode.USAGE
     record = bool(getattr(args, "record", False))
     if record and config.state_dir is None:
         _warn("--record needs state_dir in the config; nothing recorded")
@@ -53,7 +64,7 @@ def main(args: argparse.Namespace) -> int:
                 show_progress=not args.no_progress,
             )
             verdicts.append(verdict)
-            if not args.json:
+            if not args.json and not mzqc_to_stdout:
                 try:
                     render_text(verdict, sys.stdout, colour=_use_colour(sys.stdout))
                     sys.stdout.flush()
@@ -70,12 +81,14 @@ def main(args: argparse.Namespace) -> int:
         except BrokenPipeError:
             _silence_stdout()
     if args.mzqc:
-        _write_mzqc(Path(args.mzqc), verdicts)
+        _write_mzqc(args.mzqc, verdicts)
     return exit_code(verdicts)
 
 
 def exit_code(verdicts: Sequence[Verdict]) -> int:
-    """0 when every run is ok or notice, else 1."""
+    """4 when a named file could not be opened, else 0 when every run is ok or notice, else 1."""
+    if any(v.error_kind == "missing" for v in verdicts):
+        return ExitCode.NO_INPUT
     return ExitCode.OK if all(v.status.accepted for v in verdicts) else ExitCode.ATTENTION
 
 
@@ -101,7 +114,7 @@ def check_file(
     except OSError as exc:
         reason = exc.strerror or type(exc).__name__
         return _unreadable(
-            RunFile(path=path, size=0, mtime_ns=0), f"cannot open: {reason}", "io", judged_at
+            RunFile(path=path, size=0, mtime_ns=0), f"cannot open: {reason}", "missing", judged_at
         )
     run_file = RunFile(path=path, size=st.st_size, mtime_ns=st.st_mtime_ns)
     if not stat.S_ISREG(st.st_mode) and not stat.S_ISDIR(st.st_mode):
@@ -203,16 +216,25 @@ def _unreadable(run_file: RunFile, reason: str, kind: str, judged_at: datetime) 
     )
 
 
-def _write_mzqc(path: Path, verdicts: Sequence[Verdict]) -> None:
-    from watcher.measure.mzqc import write_mzqc
+def _write_mzqc(target: str, verdicts: Sequence[Verdict]) -> None:
+    """The mzQC file at ``target``; ``-`` writes it to stdout (then use it without --json)."""
+    from watcher.measure.mzqc import build_mzqc, write_mzqc
 
     if not any(v.metrics is not None for v in verdicts):
-        _warn(f"{path}: not written, no run could be measured")
+        _warn(f"{target}: not written, no run could be measured")
+        return
+    if target == "-":
+        try:
+            json.dump(build_mzqc(verdicts), sys.stdout, indent=2, allow_nan=False)
+            sys.stdout.write("\n")
+            sys.stdout.flush()
+        except BrokenPipeError:
+            _silence_stdout()
         return
     try:
-        write_mzqc(path, verdicts)
+        write_mzqc(Path(target), verdicts)
     except OSError as exc:
-        _warn(f"{path}: cannot write mzQC: {exc.strerror}")
+        _warn(f"{target}: cannot write mzQC: {exc.strerror}")
 
 
 # --- JSON -----------------------------------------------------------------------------------

@@ -20,5 +20,8 @@ class ExitCode(IntEnum):
     cannot fix it."""
     RUNTIME = 3
     """Runtime failure (state folder unusable, no state yet, alert channel refused, ...)."""
+    NO_INPUT = 4
+    """``check``: a file named on the command line does not exist or cannot be opened (the
+    other files are still checked and reported)."""
     INTERRUPTED = 130
     """Interrupted (Ctrl-C)."""
