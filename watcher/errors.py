@@ -96,5 +96,28 @@ class StoreTooNewError(IonwardenError):
         )
 
 
+class StoreCorruptError(IonwardenError):
+    """The state database file is damaged or is not an SQLite database at all.
+
+    Not a ``StoreError``: a restart reads the same damaged file, so the commands exit 2 and
+    systemd does not restart into it. Nothing is deleted or overwritten: the file may still hold
+    the run history someone wants to recover, so the person decides (the message says how).
+
+    Attributes:
+        path: the database file.
+        detail: what SQLite reported (the first problem ``PRAGMA quick_check`` found, or the
+            open error).
+    """
+
+    def __init__(self, path: Path, detail: str) -> None:
+        self.path = path
+        self.detail = detail
+        super().__init__(
+            f"state database {path} is damaged ({detail}): stop the daemon, move the file aside "
+            f"(with its -wal and -shm files, e.g. mv {path} {path}.damaged), and start again; "
+            "the daemon then starts a new, empty store (the run history stays in the moved file)"
+        )
+
+
 class DeliveryError(IonwardenError):
     """An alert channel cannot be used (apprise refused its URL); names the channel, not the URL."""

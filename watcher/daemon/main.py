@@ -29,6 +29,7 @@ from watcher.errors import (
     ConfigError,
     ConfigProblem,
     IonwardenError,
+    StoreCorruptError,
     StoreError,
     StoreTooNewError,
 )
@@ -381,8 +382,8 @@ class Daemon:
 
 
 def main(args: argparse.Namespace) -> int:
-    """``ionwarden run -c CONFIG``: 0 after SIGTERM/SIGINT, 2 bad config or a store written by a
-    newer version, 3 unusable store."""
+    """``ionwarden run -c CONFIG``: 0 after SIGTERM/SIGINT, 2 bad config, a store written by a
+    newer version or a damaged store, 3 unusable store."""
     config = config_mod.load(Path(args.config))  # ConfigError -> exit 2 in cli.main
     if not config.watch.folders:
         # A daemon that watches nothing would look healthy to systemd while missing every run.
@@ -416,7 +417,7 @@ def main(args: argparse.Namespace) -> int:
     signal.signal(signal.SIGHUP, on_hup)
     try:
         daemon.start()
-    except (StoreError, StoreTooNewError, ConfigError) as exc:
+    except (StoreError, StoreTooNewError, StoreCorruptError, ConfigError) as exc:
         log.error("daemon.failed", error=str(exc))
         raise
     return daemon.run()
