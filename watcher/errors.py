@@ -8,11 +8,13 @@ Tree::
     ├── StoreError      the state folder or database cannot be used (permissions, network mount)
     ├── StoreTooNewError  the database was written by a newer ionwarden (exit 2: a restart of
     │                   this version cannot fix it)
+    ├── StoreCorruptError the database file is damaged or not SQLite (exit 2; never touched)
     └── DeliveryError   an alert channel cannot be set up (apprise refused the URL)
 """
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -65,7 +67,9 @@ class ReadError(IonwardenError):
         self.path = Path(path)
         self.reason = reason
         self.kind = kind
-        super().__init__(f"{self.path.name}: unreadable: {reason}")
+        # A name that is not UTF-8 shows its bytes as \\xNN: the message must encode anywhere.
+        name = os.fsencode(self.path.name).decode("utf-8", "backslashreplace")
+        super().__init__(f"{name}: unreadable: {reason}")
 
 
 class StoreError(IonwardenError):

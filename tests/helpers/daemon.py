@@ -9,6 +9,7 @@ health log, datagrams on a notify socket); nothing sleeps for a fixed time longe
 from __future__ import annotations
 
 import json
+import os
 import signal
 import socket
 import sqlite3
@@ -93,9 +94,8 @@ class Lab:
 
     def runs(self) -> list[tuple[str, str, str | None]]:
         """(file name, status, error) of every row in the run history."""
-        return [
-            (r[0], r[1], r[2]) for r in self._query("SELECT file_name, status, error FROM runs")
-        ]
+        rows = self._query("SELECT file_name, status, error FROM runs")
+        return [(_name(r[0]), r[1], r[2]) for r in rows]
 
     def runs_by_name(self) -> dict[str, int]:
         out: dict[str, int] = {}
@@ -105,7 +105,7 @@ class Lab:
 
     def jobs(self) -> list[tuple[str, str, str | None]]:
         rows = self._query("SELECT path, state, outcome FROM jobs ORDER BY id")
-        return [(Path(r[0]).name, r[1], r[2]) for r in rows]
+        return [(Path(_name(r[0])).name, r[1], r[2]) for r in rows]
 
     def health(self) -> list[dict[str, Any]]:
         out = []
@@ -202,6 +202,11 @@ class Daemon:
             self.proc.wait(timeout=10)
         self._log.close()
         self.sock.close()
+
+
+def _name(value: str | bytes) -> str:
+    """A stored path or name as Python names it: names that are not UTF-8 are stored as bytes."""
+    return os.fsdecode(value) if isinstance(value, bytes) else value
 
 
 def write_lab_config(root: Path, **overrides: Any) -> Path:

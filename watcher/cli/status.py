@@ -17,6 +17,7 @@ from zoneinfo import ZoneInfo
 from watcher.cli.exitcodes import ExitCode
 from watcher.config import Config, load, state_dir_of
 from watcher.errors import StoreError
+from watcher.records import shown
 
 if TYPE_CHECKING:
     import argparse
@@ -55,7 +56,7 @@ def collect(config: Config, state_dir: Path, *, now_s: float) -> dict[str, Any]:
         "last_runs": [
             {
                 "run_id": r.run_id,
-                "file": r.file_name,
+                "file": shown(r.file_name),
                 "judged_at": r.judged_at.astimezone(tz).isoformat(timespec="seconds"),
                 "status": str(r.status),
                 "findings": len(r.findings),

@@ -36,7 +36,7 @@ from watcher.errors import (
 from watcher.intake import watch
 from watcher.intake.pending import Settled, Settler
 from watcher.notify.notifier import Notifier
-from watcher.records import DaemonEvent
+from watcher.records import DaemonEvent, shown
 from watcher.store import db, jobs
 
 if TYPE_CHECKING:
@@ -293,7 +293,7 @@ class Daemon:
                 self._last_arrival_s = now_s
                 resumed = norun_alert.resume(self._conn(), self._notifier(), now_s)
         for job_id, path in added:
-            log.info("run.queued", file=str(path), job_id=job_id)
+            log.info("run.queued", file=shown(path), job_id=job_id)
         if resumed:
             norun_alert.announce_resumed(self._notifier())
         if added:
@@ -372,11 +372,11 @@ class Daemon:
                 if pipeline.process(job) is JobOutcome.REQUEUED and not self.stop_event.is_set():
                     self.stop_event.wait(5.0)  # the child could not start: do not spin
             except Exception:
-                log.exception("run.failed", file=str(job.path))
+                log.exception("run.failed", file=shown(job.path))
                 try:
                     pipeline.fail(job, "internal error (see the daemon log)")
                 except sqlite3.Error:
-                    log.exception("run.failed", file=str(job.path))
+                    log.exception("run.failed", file=shown(job.path))
             finally:
                 self._busy_since = None
 

@@ -25,7 +25,7 @@ from typing import TYPE_CHECKING, Any
 import structlog
 
 from watcher.daemon.child import HEADER, READY, frame
-from watcher.records import RunFile, RunMetrics, Status, Verdict, run_time
+from watcher.records import RunFile, RunMetrics, Status, Verdict, run_time, shown
 from watcher.store import db, history, jobs
 
 if TYPE_CHECKING:
@@ -257,7 +257,7 @@ class Pipeline:
     def process(self, job: jobs.Job) -> JobOutcome:
         """Take a claimed job to ``done`` (back to ``queued`` when stopping); returns outcome."""
         config = self.config
-        structlog.contextvars.bind_contextvars(job_id=job.id, file=str(job.path))
+        structlog.contextvars.bind_contextvars(job_id=job.id, file=shown(job.path))
         try:
             return self._process(config, job)
         except (Stopped, ChildStartError) as exc:
@@ -311,7 +311,7 @@ class Pipeline:
                 duplicate_of=twin.id,
                 sha256=sha256,
             )
-        log.info("run.duplicate", same_as=str(twin.path), run_id=twin.run_id)
+        log.info("run.duplicate", same_as=shown(twin.path), run_id=twin.run_id)
         return JobOutcome.DUPLICATE
 
     def _measure(self, config: Config, job: jobs.Job) -> ChildResult:
@@ -350,7 +350,7 @@ class Pipeline:
             )
         structlog.contextvars.bind_contextvars(run_id=run_id)
         self.write_health(run_id)
-        self.last_file = job.path.name
+        self.last_file = shown(job.path.name)
         log.info(
             "run.judged",
             status=str(verdict.status),

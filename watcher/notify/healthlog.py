@@ -20,6 +20,8 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 from zoneinfo import ZoneInfo
 
+from watcher.records import shown
+
 if TYPE_CHECKING:
     from collections.abc import Callable
 
@@ -51,8 +53,8 @@ def run_record(
     return {
         "type": "run",
         "run_id": run_id,
-        "file": Path(path).name,
-        "path": path,
+        "file": shown(Path(path).name),  # undecodable bytes as \\xNN: the line stays ASCII JSON
+        "path": shown(path),
         "time": judged_at.isoformat(),
         "status": str(status),
         "error": error,

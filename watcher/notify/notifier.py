@@ -18,7 +18,7 @@ import structlog
 from watcher.notify import alert_state as machine
 from watcher.notify.alert_text import Item, Text, compose
 from watcher.notify.healthlog import HealthLog
-from watcher.records import AlertAction, DaemonEvent, Finding, Severity, Status, Verdict
+from watcher.records import AlertAction, DaemonEvent, Finding, Severity, Status, Verdict, shown
 from watcher.store import db, outbox
 
 if TYPE_CHECKING:
@@ -132,7 +132,7 @@ class Notifier:
         findings = list(verdict.findings)
         if not readable:
             findings.append(unreadable_finding(verdict))
-        file_name = verdict.run_file.path.name
+        file_name = shown(verdict.run_file.path.name)  # alert text and the alert row
         configured = {c.name for c in self.config.checks}
         # The verdict's time is the acquisition time, else the file's mtime, else the judgement
         # (``watcher.records.run_time``); the message says which one it shows.

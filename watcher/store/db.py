@@ -7,6 +7,7 @@ a read snapshot to a write fails at once with "database is locked", whatever the
 
 from __future__ import annotations
 
+import os
 import sqlite3
 from contextlib import contextmanager
 from pathlib import Path
@@ -32,6 +33,26 @@ SCHEMAS: dict[str, str] = {}
 def register_schema(owner: str, sql: str) -> None:
     """Declare the version-1 tables a store module owns; a new database is created with them."""
     SCHEMAS[owner] = sql
+
+
+def path_value(path: Path | str) -> str | bytes:
+    """How a file path is stored: text when it is valid UTF-8, else its bytes (``os.fsencode``).
+
+    sqlite3 binds text as strict UTF-8, so a name with undecodable bytes (surrogates in Python)
+    is bound as a BLOB instead: lossless, and the same path always gives the same value, so the
+    identity lookups (``path = ?``, UNIQUE) still match. Valid names stay TEXT, as before.
+    """
+    text = str(path)
+    try:
+        text.encode("utf-8")
+    except UnicodeEncodeError:
+        return os.fsencode(text)
+    return text
+
+
+def path_text(value: str | bytes) -> str:
+    """The inverse of ``path_value``: the path as Python names it (``os.fsdecode`` of bytes)."""
+    return os.fsdecode(value) if isinstance(value, bytes) else value
 
 
 MOUNTINFO = Path("/proc/self/mountinfo")  # Linux; proc(5) gives the line format

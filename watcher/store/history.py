@@ -24,8 +24,8 @@ from datetime import UTC, datetime
 from typing import TYPE_CHECKING, Any
 
 from watcher.config import matches_applies_to
-from watcher.records import Finding, HistoryPoint, Severity, Status, Verdict
-from watcher.store.db import register_schema
+from watcher.records import Finding, HistoryPoint, Severity, Status, Verdict, shown
+from watcher.store.db import path_text, path_value, register_schema
 
 if TYPE_CHECKING:
     import sqlite3
@@ -125,8 +125,8 @@ def record_verdict(conn: sqlite3.Connection, verdict: Verdict) -> int:
         RETURNING run_id
         """,
         (
-            str(run_file.path),
-            run_file.path.name,
+            path_value(run_file.path),
+            path_value(run_file.path.name),
             run_file.size,
             run_file.mtime_ns,
             run_file.sha256 or "",
@@ -134,7 +134,7 @@ def record_verdict(conn: sqlite3.Connection, verdict: Verdict) -> int:
             acquired_text,
             to_text(judged_at),
             str(verdict.status),
-            verdict.error,
+            None if verdict.error is None else shown(verdict.error),  # may quote the file name
             verdict.error_kind,
             json.dumps([f.to_dict() for f in verdict.findings]),
             json.dumps(flat),
@@ -175,8 +175,8 @@ _RUN_COLUMNS = (
 def _run_row(r: sqlite3.Row | tuple[Any, ...]) -> RunRow:
     return RunRow(
         run_id=int(r[0]),
-        file_name=r[1],
-        path=r[2],
+        file_name=path_text(r[1]),
+        path=path_text(r[2]),
         acquired_at=from_text(r[3]),
         judged_at=from_text(r[4]),
         status=Status(r[5]),
@@ -219,7 +219,7 @@ def _point(r: sqlite3.Row | tuple[Any, ...]) -> HistoryPoint:
     if value is not None and r[3]:
         value = bool(value)
     return HistoryPoint(
-        file_name=r[0], acquired_at=from_text(r[1]), value=value, status=Status(r[4])
+        file_name=path_text(r[0]), acquired_at=from_text(r[1]), value=value, status=Status(r[4])
     )
 
 

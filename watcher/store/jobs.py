@@ -14,7 +14,7 @@ from enum import StrEnum
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-from watcher.store.db import register_schema
+from watcher.store.db import path_text, path_value, register_schema
 from watcher.store.rows import columns, from_row
 
 if TYPE_CHECKING:
@@ -77,7 +77,7 @@ class Job:
 
 
 def _job(row: sqlite3.Row) -> Job:
-    return from_row(Job, row, path=Path(row["path"]), state=JobState(row["state"]))
+    return from_row(Job, row, path=Path(path_text(row["path"])), state=JobState(row["state"]))
 
 
 _COLUMNS = columns(Job)
@@ -101,7 +101,7 @@ def enqueue(
         "INSERT OR IGNORE INTO jobs"
         " (path, size, mtime_ns, state, first_seen_s, updated_s, incomplete)"
         " VALUES (?, ?, ?, 'queued', ?, ?, ?)",
-        (str(path), size, mtime_ns, now_s, now_s, incomplete),
+        (path_value(path), size, mtime_ns, now_s, now_s, incomplete),
     )
     return cur.lastrowid if cur.rowcount == 1 else None
 
@@ -110,7 +110,7 @@ def known(conn: sqlite3.Connection, path: Path, size: int, mtime_ns: int) -> boo
     """True when this exact identity already has a row (any state)."""
     row = conn.execute(
         "SELECT 1 FROM jobs WHERE path = ? AND size = ? AND mtime_ns = ?",
-        (str(path), size, mtime_ns),
+        (path_value(path), size, mtime_ns),
     ).fetchone()
     return row is not None
 
@@ -118,7 +118,7 @@ def known(conn: sqlite3.Connection, path: Path, size: int, mtime_ns: int) -> boo
 def known_identities(conn: sqlite3.Connection) -> set[tuple[str, int, int]]:
     """Every (path, size, mtime_ns) in the table, for reconciling a folder scan in one query."""
     rows = conn.execute("SELECT path, size, mtime_ns FROM jobs").fetchall()
-    return {(r[0], r[1], r[2]) for r in rows}
+    return {(path_text(r[0]), r[1], r[2]) for r in rows}
 
 
 def requeue_interrupted(conn: sqlite3.Connection, now_s: float) -> int:
