@@ -85,6 +85,9 @@ class RunRow:
     run_id: int
     file_name: str
     path: str
+    size: int
+    mtime_ns: int
+    sha256: str  # '' when the file could not be hashed
     acquired_at: datetime
     judged_at: datetime
     status: Status
@@ -168,7 +171,8 @@ def _finding(d: dict[str, Any]) -> Finding:
 
 
 _RUN_COLUMNS = (
-    "run_id, file_name, path, acquired_at, judged_at, status, error, findings_json, metrics_json"
+    "run_id, file_name, path, acquired_at, judged_at, status, error, findings_json, metrics_json,"
+    " size, mtime_ns, sha256"
 )
 
 
@@ -183,6 +187,9 @@ def _run_row(r: sqlite3.Row | tuple[Any, ...]) -> RunRow:
         error=r[6],
         findings=tuple(_finding(d) for d in json.loads(r[7])),
         metrics=json.loads(r[8]),
+        size=int(r[9]),
+        mtime_ns=int(r[10]),
+        sha256=r[11],
     )
 
 
