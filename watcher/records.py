@@ -299,6 +299,7 @@ class DaemonEvent(StrEnum):
     CONFIG_REJECTED = "config.rejected"  # a reload that failed validation: a warning message
     NORUN_MISSED = "heartbeat.missed"  # no run arrived in time: raises the no-run alert
     NORUN_RESUMED = "heartbeat.resumed"  # runs arrive again: clears it
+    DUPLICATE = "run.duplicate"  # a copy of a run already judged arrived: no alert, a line
 
 
 class AlertAction(StrEnum):

@@ -44,6 +44,8 @@ EVENTS: frozenset[str] = frozenset(
         "alert.escalated",
         "alert.reminded",
         "healthlog.pruned",
+        "healthlog.write_failed",
+        "healthlog.caught_up",
         "message.queued",
         "message.delivered",
         "message.failed",

@@ -363,6 +363,7 @@ class Daemon:
             with db.write(pipeline.conn):
                 job = jobs.claim_next(pipeline.conn, self.clock())
             if job is None:
+                pipeline.flush_health_due()
                 self.wake_worker.wait(0.5)
                 self.wake_worker.clear()
                 continue

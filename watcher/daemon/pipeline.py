@@ -1,8 +1,10 @@
 """One run through the daemon: hash, measure in a child with limits, judge, record, notify.
 
 The final write for a run is ONE transaction (verdict in the history, the alert step, job
-``done``), so a kill at any moment leaves the run either wholly unjudged (measured again after
-restart) or wholly judged; the health-log line is written after the commit and is idempotent.
+``done``, and the note that its health-log line is owed), so a kill at any moment leaves the run
+either wholly unjudged (measured again after restart) or wholly judged; the health-log line is
+written after the commit, idempotent, and stays owed until it is written: a health folder that
+cannot be written (permissions, a full disk) delays the line, it never loses it nor fails the job.
 Nothing slow happens inside a transaction: hashing, the child and judging come first.
 """
 
@@ -25,7 +27,7 @@ from typing import TYPE_CHECKING, Any
 import structlog
 
 from watcher.daemon.child import HEADER, READY, frame
-from watcher.records import RunFile, RunMetrics, Status, Verdict, run_time, shown
+from watcher.records import DaemonEvent, RunFile, RunMetrics, Status, Verdict, run_time, shown
 from watcher.store import db, history, jobs
 
 if TYPE_CHECKING:
@@ -40,6 +42,7 @@ if TYPE_CHECKING:
 log = structlog.get_logger("watcher.daemon.pipeline")
 
 _HASH_CHUNK = 1 << 20
+HEALTH_RETRY_S = 5.0  # owed health lines are tried again this often while the folder refuses
 
 
 class JobOutcome(StrEnum):
@@ -243,6 +246,8 @@ class Pipeline:
     clock: Callable[[], float] = time.time
     last_file: str | None = None
     child: MeasuringChild = field(default_factory=MeasuringChild)
+    health_failing: bool = False  # the last try at the owed health lines failed
+    _health_retry_at: float = 0.0  # time.monotonic() of the next try while failing
 
     def reconfigure(self, config: Config, notifier: Notifier) -> None:
         """Use a reloaded config and its notifier from the next job on (the job in flight keeps
@@ -312,6 +317,14 @@ class Pipeline:
                 sha256=sha256,
             )
         log.info("run.duplicate", same_as=shown(twin.path), run_id=twin.run_id)
+        # Silent for alerts by design, but the health log shows that the file arrived.
+        self.notifier.write_event(
+            DaemonEvent.DUPLICATE,
+            file=shown(path.name),
+            path=shown(path),
+            duplicate_of=shown(twin.path.name),
+            run_id=twin.run_id,
+        )
         return JobOutcome.DUPLICATE
 
     def _measure(self, config: Config, job: jobs.Job) -> ChildResult:
@@ -348,8 +361,9 @@ class Pipeline:
                 run_id=run_id,
                 sha256=sha256,
             )
+            jobs.add_health_pending(self.conn, run_id)
         structlog.contextvars.bind_contextvars(run_id=run_id)
-        self.write_health(run_id)
+        self.flush_health()
         self.last_file = shown(job.path.name)
         log.info(
             "run.judged",
@@ -360,14 +374,54 @@ class Pipeline:
         return JobOutcome.JUDGED
 
     def write_health(self, run_id: int) -> None:
-        """The health-log line, after the commit; idempotent by run_id.
+        """The health-log line, after the commit; idempotent by the run's file identity.
 
         Built from the run as stored, not from the verdict in memory, so that the line written
         now and the one re-offered after a restart (``resume_health_lines``) are the same.
+
+        Raises:
+            OSError: the health folder or the day's file cannot be written.
         """
         row = history.get_run(self.conn, run_id)
         if row is not None:
             self.notifier.write_stored_health(row)
+
+    def flush_health(self) -> int:
+        """Write the owed health lines, oldest first, and strike off the ones written; returns
+        how many are still owed. Stops at the first that fails: the folder refuses them all."""
+        pending = jobs.health_pending(self.conn)
+        written: list[int] = []
+        error: OSError | None = None
+        for run_id in pending:
+            try:
+                self.write_health(run_id)
+            except OSError as exc:
+                error = exc
+                break
+            written.append(run_id)
+        if written:
+            with db.write(self.conn):
+                jobs.clear_health_pending(self.conn, written)
+        owed = len(pending) - len(written)
+        if error is not None:
+            self._health_retry_at = time.monotonic() + HEALTH_RETRY_S
+            if not self.health_failing:  # once per outage, not every retry
+                log.warning(
+                    "healthlog.write_failed",
+                    error=shown(f"{error.strerror or error}: {error.filename or ''}"),
+                    owed=owed,
+                    retry_every_s=HEALTH_RETRY_S,
+                )
+            self.health_failing = True
+        elif self.health_failing:
+            log.info("healthlog.caught_up", lines=len(written))
+            self.health_failing = False
+        return owed
+
+    def flush_health_due(self) -> None:
+        """From the worker's idle loop: try the owed lines again once the retry wait passed."""
+        if self.health_failing and time.monotonic() >= self._health_retry_at:
+            self.flush_health()
 
     def _judge(self, config: Config, run_file: RunFile, result: ChildResult) -> Verdict:
         judged_at = datetime.fromtimestamp(self.clock(), UTC)
@@ -414,8 +468,11 @@ class Pipeline:
         return JobOutcome.SKIPPED
 
     def resume_health_lines(self) -> int:
-        """Start-up: re-offer the newest health lines (a kill may have cut one off)."""
-        run_ids = jobs.recent_judged(self.conn)
-        for run_id in reversed(run_ids):
-            self.write_health(run_id)
-        return len(run_ids)
+        """Start-up: write the owed health lines, and re-offer the newest ones (a store from
+        before the owed-lines note: a kill may have cut one off); returns how many are owed."""
+        for run_id in reversed(jobs.recent_judged(self.conn)):
+            try:
+                self.write_health(run_id)
+            except OSError:
+                break  # flush_health below reports the folder and keeps what is owed
+        return self.flush_health()

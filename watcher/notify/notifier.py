@@ -239,9 +239,18 @@ class Notifier:
         self.health.write_stored_run(row)
         self.wake()
 
-    def write_event(self, kind: DaemonEvent, **fields: object) -> None:
-        """One daemon event in the health log."""
-        self.health.write_event(kind, **fields)
+    def write_event(self, kind: DaemonEvent | str, **fields: object) -> None:
+        """One daemon event in the health log, best effort: a health folder that cannot be
+        written (permissions, a full disk) must not stop a start, a stop or a delivery; the
+        runs' own lines are owed and retried by the pipeline instead."""
+        try:
+            self.health.write_event(kind, **fields)
+        except OSError as exc:
+            log.warning(
+                "healthlog.write_failed",
+                event_kind=str(kind),
+                error=shown(f"{exc.strerror or exc}: {exc.filename or ''}"),
+            )
 
     def wake(self) -> None:
         """Tell the delivery worker that new messages were committed."""

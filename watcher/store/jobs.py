@@ -9,6 +9,7 @@ parses, hashes or sends anything.
 
 from __future__ import annotations
 
+import json
 from dataclasses import dataclass
 from enum import StrEnum
 from pathlib import Path
@@ -195,6 +196,21 @@ def recent_judged(conn: sqlite3.Connection, limit: int = 3) -> list[int]:
     return [int(r[0]) for r in rows]
 
 
+def recent(conn: sqlite3.Connection, *, limit: int = 10) -> list[tuple[Job, Path | None]]:
+    """The last ``limit`` jobs changed, newest first, each with the path of the job it
+    duplicates (None when it is no copy): what ``status`` shows as files that arrived."""
+    prefixed = ", ".join(f"j.{name.strip()}" for name in _COLUMNS.split(","))
+    rows = conn.execute(
+        f"SELECT {prefixed}, t.path AS twin_path FROM jobs AS j"  # noqa: S608 - constant columns
+        " LEFT JOIN jobs AS t ON t.id = j.duplicate_of"
+        " ORDER BY j.updated_s DESC, j.id DESC LIMIT ?",
+        (limit,),
+    ).fetchall()
+    return [
+        (_job(r), None if r["twin_path"] is None else Path(path_text(r["twin_path"]))) for r in rows
+    ]
+
+
 def finished_before(conn: sqlite3.Connection, before_s: float) -> list[Job]:
     """Jobs ``done`` or ``failed`` whose last change is older than ``before_s``, oldest first
     (the candidates for pruning; read by the index on ``updated_s`` of schema version 2)."""
@@ -259,3 +275,27 @@ def set_state(conn: sqlite3.Connection, key: str, value: str) -> None:
         " ON CONFLICT (key) DO UPDATE SET value = excluded.value",
         (key, value),
     )
+
+
+HEALTH_PENDING_KEY = "health_pending"
+
+
+def health_pending(conn: sqlite3.Connection) -> list[int]:
+    """Run ids whose health-log line is committed to be written but not yet known written."""
+    text = get_state(conn, HEALTH_PENDING_KEY)
+    return [int(v) for v in json.loads(text)] if text else []
+
+
+def add_health_pending(conn: sqlite3.Connection, run_id: int) -> None:
+    """Note a run's line as owed, in the transaction that commits the run: the note survives a
+    health folder that cannot be written, a full disk and a kill, until ``clear_health_pending``."""
+    pending = health_pending(conn)
+    if run_id not in pending:
+        set_state(conn, HEALTH_PENDING_KEY, json.dumps([*pending, run_id]))
+
+
+def clear_health_pending(conn: sqlite3.Connection, run_ids: Sequence[int]) -> None:
+    """The lines of these runs are written (or their runs are gone): no longer owed."""
+    done = set(run_ids)
+    pending = [r for r in health_pending(conn) if r not in done]
+    set_state(conn, HEALTH_PENDING_KEY, json.dumps(pending))
