@@ -6,9 +6,11 @@ from __future__ import annotations
 
 import json
 import os
+import shutil
 from typing import TYPE_CHECKING
 
 from tests.helpers.cli import run_cli
+from tests.helpers.wait import wait_for
 
 if TYPE_CHECKING:
     from tests.helpers.daemon import Lab
@@ -52,3 +54,115 @@ def test_check_record_takes_a_name_that_is_not_utf8(lab: Lab) -> None:
     assert done.returncode == 0, done.stderr
     assert ODD_SHOWN in done.stdout
     assert lab.runs_by_name() == {os.fsdecode(ODD_NAME): 1}
+
+
+def _remove_store(lab: Lab) -> None:
+    for path in lab.state.glob("ionwarden.sqlite3*"):
+        path.unlink()
+
+
+def test_after_the_store_is_recreated_new_runs_get_their_health_line(lab: Lab) -> None:
+    """Run ids start again at 1 in a new store: the next run's line is still written, and the
+    run already logged (same file, same content) is not logged a second time."""
+    lab.drop("QC_first.mzML", 1)
+    d = lab.start()
+    lab.wait_runs(1)
+    wait_for(lambda: len(lab.health_runs()) == 1, 10, "the first health line")
+    assert d.stop() == 0
+    _remove_store(lab)  # the health folder stays
+    d2 = lab.start()
+    lab.drop("QC_second.mzML", 2)
+    lab.wait_runs(2)
+    wait_for(lambda: len(lab.health_runs()) == 2, 10, "the second run's health line")
+    assert d2.stop() == 0
+    lines = lab.health_runs()
+    assert [(r["file"], r["run_id"]) for r in lines] == [
+        ("QC_first.mzML", 1),
+        ("QC_second.mzML", 2),
+    ]
+    assert lines[0]["run_key"] != lines[1]["run_key"]
+
+
+def test_after_the_store_is_recreated_run_id_1_again_gets_its_line(lab: Lab) -> None:
+    """The sharpest case: the old store's run 1 is gone from the folder, and the new store's
+    run 1 is another file; it still gets its line."""
+    lab.drop("QC_first.mzML", 1)
+    d = lab.start()
+    wait_for(lambda: len(lab.health_runs()) == 1, 20, "the first health line")
+    assert d.stop() == 0
+    _remove_store(lab)
+    (lab.exports / "QC_first.mzML").unlink()
+    lab.drop("QC_other.mzML", 2)
+    d2 = lab.start()
+    wait_for(lambda: len(lab.health_runs()) == 2, 20, "the new store's first run's line")
+    assert d2.stop() == 0
+    assert [(r["file"], r["run_id"]) for r in lab.health_runs()] == [
+        ("QC_first.mzML", 1),
+        ("QC_other.mzML", 1),
+    ]
+
+
+def test_a_health_line_that_cannot_be_written_is_owed_and_written_later(lab: Lab) -> None:
+    """A file where the health folder should be (root ignores permission bits, not this): the
+    run is judged and its job done, not failed; once the folder can be made, the line comes."""
+    lab.state.mkdir()
+    blocker = lab.state / "health"
+    blocker.write_text("not a folder")
+    d = lab.start()
+    lab.drop("QC_owed.mzML", 1)
+    lab.wait_runs(1)
+    wait_for(
+        lambda: ("QC_owed.mzML", "done", "ok") in lab.jobs(), 10, "the job done with its verdict"
+    )
+    wait_for(
+        lambda: any(e["event"] == "healthlog.write_failed" for e in d.events()), 10, "the warning"
+    )
+    blocker.unlink()
+    wait_for(lambda: len(lab.health_runs()) == 1, 20, "the owed line, once the folder works")
+    assert lab.health_runs()[0]["file"] == "QC_owed.mzML"
+    assert any(e["event"] == "healthlog.caught_up" for e in d.events())
+    assert d.stop() == 0
+    assert [j[1] for j in lab.jobs()] == ["done"]
+    d2 = lab.start()  # nothing owed any more: a restart writes no second line
+    assert d2.stop() == 0
+    assert len(lab.health_runs()) == 1
+
+
+def test_a_health_line_owed_at_a_stop_is_written_at_the_next_start(lab: Lab) -> None:
+    """Owed when the daemon stops: the note is in the store, the next start writes the line."""
+    lab.state.mkdir()
+    blocker = lab.state / "health"
+    blocker.write_text("not a folder")
+    d = lab.start()
+    lab.drop("QC_owed.mzML", 1)
+    lab.wait_runs(1)
+    assert d.stop() == 0
+    assert lab.health_runs() == []
+    blocker.unlink()
+    d2 = lab.start()
+    wait_for(lambda: len(lab.health_runs()) == 1, 10, "the owed line at start-up")
+    assert d2.stop() == 0
+
+
+def test_a_copy_of_a_judged_run_shows_in_status_and_the_health_log(lab: Lab) -> None:
+    """Same content under another name: no second run and no alert (by design), but the
+    operator sees that it arrived: ``status`` lists it as a duplicate, the health log too."""
+    d = lab.start()
+    lab.drop("QC_a.mzML", 1)
+    lab.wait_runs(1)
+    shutil.copy(lab.exports / "QC_a.mzML", lab.exports / "QC_a_copy.mzML")
+    wait_for(lambda: ("QC_a_copy.mzML", "done", "duplicate") in lab.jobs(), 10, "the duplicate job")
+    wait_for(
+        lambda: any(r.get("kind") == "run.duplicate" for r in lab.health()), 10, "its health line"
+    )
+    assert d.stop() == 0
+    (line,) = [r for r in lab.health() if r.get("kind") == "run.duplicate"]
+    assert line["fields"]["file"] == "QC_a_copy.mzML"
+    assert line["fields"]["duplicate_of"] == "QC_a.mzML"
+    status = run_cli("status", "-c", lab.config, "--json")
+    assert status.returncode == 0, status.stderr
+    files = {f["file"]: f for f in json.loads(status.stdout)["recent_files"]}
+    assert files["QC_a_copy.mzML"]["note"] == "duplicate of QC_a.mzML"
+    assert files["QC_a.mzML"]["note"] is None
+    human = run_cli("status", "-c", lab.config)
+    assert "QC_a_copy.mzML  duplicate of QC_a.mzML" in human.stdout
