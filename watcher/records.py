@@ -299,6 +299,8 @@ class DaemonEvent(StrEnum):
     CONFIG_REJECTED = "config.rejected"  # a reload that failed validation: a warning message
     NORUN_MISSED = "heartbeat.missed"  # no run arrived in time: raises the no-run alert
     NORUN_RESUMED = "heartbeat.resumed"  # runs arrive again: clears it
+    STORE_UNWRITABLE = "store.unwritable"  # the state database refuses writes (full disk...)
+    STORE_RECOVERED = "store.recovered"  # it takes writes again: an info message via the outbox
     DUPLICATE = "run.duplicate"  # a copy of a run already judged arrived: no alert, a line
 
 

@@ -6,14 +6,19 @@ from __future__ import annotations
 
 import json
 import os
+import resource
 import shutil
+import time
 from typing import TYPE_CHECKING
 
 from tests.helpers.cli import run_cli
 from tests.helpers.wait import wait_for
 
 if TYPE_CHECKING:
+    from pathlib import Path
+
     from tests.helpers.daemon import Lab
+    from tests.helpers.receiver import Receiver
 
 ODD_NAME = b"latin1_\xe9\xff.mzML"  # Latin-1 bytes, as a share written by another system has them
 ODD_SHOWN = "latin1_\\xe9\\xff.mzML"  # how logs, the health log and status show it
@@ -166,3 +171,51 @@ def test_a_copy_of_a_judged_run_shows_in_status_and_the_health_log(lab: Lab) -> 
     assert files["QC_a.mzML"]["note"] is None
     human = run_cli("status", "-c", lab.config)
     assert "QC_a_copy.mzML  duplicate of QC_a.mzML" in human.stdout
+
+
+def _file_size_limit(pid: int, limit_bytes: int) -> None:
+    """RLIMIT_FSIZE of the running daemon (prlimit(2)): at 0 every write to a regular file
+    fails with EFBIG, as on a full disk, while sockets (sd_notify, HTTP) still work."""
+    resource.prlimit(pid, resource.RLIMIT_FSIZE, (limit_bytes, resource.RLIM_INFINITY))
+
+
+def test_a_store_that_refuses_writes_is_reported_retried_and_recovered(
+    lab: Lab, big_run: Path, receiver: Receiver
+) -> None:
+    """The run being measured when the disk fills cannot be committed, and a file that arrives
+    meanwhile cannot be queued: the daemon stays up, says ``state store not writable`` (STATUS=
+    and one alert, sent past the outbox), and once writes work again judges both, each once,
+    and says so through the outbox."""
+    lab.write_config(alerts={"channels": [{"name": "lab-chat", "url": receiver.url()}]})
+    d = lab.start()
+    lab.drop("QC_before.mzML", 1)
+    lab.wait_runs(1)
+    shutil.copy(big_run, lab.exports / "QC_big.mzML")
+    wait_for(lambda: ("QC_big.mzML", "measuring", None) in lab.jobs(), 20, "measuring state")
+    _file_size_limit(d.proc.pid, 0)
+    try:
+        lab.drop("QC_during.mzML", 2)
+        wait_for(
+            lambda: any("STATUS=state store not writable" in m for m in d.notes()),
+            30,
+            "the STATUS= line saying the store is not writable",
+        )
+        (alert,) = receiver.wait_for(1, timeout_s=20)
+        assert "state store not writable" in str(alert["title"])
+        time.sleep(2.0)  # retries meanwhile: still one alert, the daemon still up
+        assert d.proc.poll() is None
+        assert len(receiver.bodies) == 1
+        assert lab.runs_by_name() == {"QC_before.mzML": 1}
+    finally:
+        _file_size_limit(d.proc.pid, resource.RLIM_INFINITY)
+    lab.wait_runs(3, timeout_s=90)
+    assert lab.runs_by_name() == {"QC_before.mzML": 1, "QC_big.mzML": 1, "QC_during.mzML": 1}
+    assert lab.attempts("QC_big.mzML") == 2  # its refused commit put it back in the queue
+    bodies = receiver.wait_for(2, timeout_s=20)
+    assert "writable again" in str(bodies[1]["title"])
+    wait_for(lambda: len(lab.health_runs()) == 3, 20, "every run's health line")
+    wait_for(
+        lambda: not any("not writable" in m for m in d.notes()[-1:]), 10, "STATUS= back to normal"
+    )
+    assert d.stop() == 0
+    assert any(e["event"] == "store.recovered" for e in d.events())

@@ -107,6 +107,11 @@ class Lab:
         rows = self._query("SELECT path, state, outcome FROM jobs ORDER BY id")
         return [(Path(_name(r[0])).name, r[1], r[2]) for r in rows]
 
+    def attempts(self, name: str) -> int:
+        """How often the job of the file called ``name`` was claimed for measuring."""
+        rows = self._query("SELECT path, attempts FROM jobs")
+        return sum(r[1] for r in rows if Path(_name(r[0])).name == name)
+
     def health(self) -> list[dict[str, Any]]:
         out = []
         for path in sorted((self.state / "health").glob("health-*.jsonl")):

@@ -35,6 +35,8 @@ EVENTS: frozenset[str] = frozenset(
         "config.rejected",
         "scan.completed",
         "store.pruned",
+        "store.unwritable",
+        "store.recovered",
         "store.prune_skipped",
         "heartbeat.missed",
         "heartbeat.resumed",

@@ -53,6 +53,11 @@ STATUS_EVERY_S = 2.0
 NOTIFY_TICK_EVERY_S = 1.0
 CHECKPOINT_EVERY_S = 3600.0
 PRUNE_EVERY_S = 86400.0  # store retention is in days: once at start-up, then daily
+# A store that refuses writes (a full disk) is tried again with a doubling wait: soon enough to
+# resume minutes after space returns, rare enough not to fill the journal meanwhile.
+STORE_RETRY_FIRST_S = 1.0
+STORE_RETRY_MAX_S = 60.0
+STORE_PROBE_KEY = "store_probe_s"  # a real write: an empty transaction proves nothing
 
 
 class Daemon:
@@ -81,6 +86,10 @@ class Daemon:
         self._last_prune_s: float | None = None
         self._last_arrival_s = 0.0
         self.conn: sqlite3.Connection | None = None
+        # Why the state store refuses writes, while it does (set by any thread, cleared only by
+        # the worker's probe write): shown in STATUS=, reported once per outage.
+        self.store_fault: str | None = None
+        self._fault_lock = threading.Lock()
         self.notifier: Notifier | None = None
         self.pipeline: Pipeline | None = None
 
@@ -146,7 +155,15 @@ class Daemon:
         watchdog_every_s = sdnotify.watchdog_interval_s()
         last_ping = 0.0
         while not self._stop_requested.is_set():
-            self.step()
+            try:
+                self.step()
+            except sqlite3.Error as exc:
+                # A full disk must not end the main loop: it keeps watching and pinging, files
+                # not queued now are found by the rescan the recovery asks for.
+                self.store_failed(exc)
+                if self.clock() - self._last_status >= STATUS_EVERY_S:
+                    self._last_status = self.clock()
+                    self._status()
             due = watchdog_every_s is not None and time.monotonic() - last_ping >= watchdog_every_s
             if due and self.is_healthy():
                 sdnotify.notify("WATCHDOG=1")
@@ -174,8 +191,11 @@ class Daemon:
         if self.pipeline is not None:
             self.pipeline.close()
         if self.notifier is not None and self.conn is not None:
-            with db.write(self.conn):
-                self.notifier.record_event(self.conn, DaemonEvent.STOPPED, self.clock())
+            try:
+                with db.write(self.conn):
+                    self.notifier.record_event(self.conn, DaemonEvent.STOPPED, self.clock())
+            except sqlite3.Error as exc:  # the store refuses writes: stop all the same
+                log.warning("store.unwritable", error=str(exc), during="stop")
             self.notifier.write_event(DaemonEvent.STOPPED)
             self.notifier.stop_delivery(2.0)
         for conn in (self.conn, self.pipeline.conn if self.pipeline else None):
@@ -305,10 +325,58 @@ class Daemon:
     def _status(self) -> None:
         counts = jobs.counts(self._conn())
         last = self.pipeline.last_file if self.pipeline else None
+        fault = self.store_fault
         sdnotify.notify(
-            f"STATUS=queued {counts['queued']}, settling {len(self.settler.pending)}, "
+            ("STATUS=" if fault is None else f"STATUS=state store not writable ({fault}); ")
+            + f"queued {counts['queued']}, settling {len(self.settler.pending)}, "
             f"done {counts['done']}; last run {last or 'none yet'}"
         )
+
+    # -- a store that refuses writes --------------------------------------------------------------
+
+    def store_failed(self, exc: sqlite3.Error) -> None:
+        """A write to the state store failed (full disk, file-size limit, I/O error): report it
+        once per outage (log, STATUS=, one direct alert); the worker retries with back-off."""
+        reason = str(exc) or type(exc).__name__
+        with self._fault_lock:
+            first = self.store_fault is None
+            self.store_fault = reason
+        if not first:
+            return
+        path = self.state_dir / db.DB_NAME
+        log.error("store.unwritable", error=reason, database=str(path))
+        sdnotify.notify(f"STATUS=state store not writable ({reason}); retrying")
+        notifier = self.notifier
+        if notifier is not None:
+            notifier.write_event(DaemonEvent.STORE_UNWRITABLE, error=reason)
+            notifier.send_direct(
+                f"{self.config.instrument.name}: state store not writable",
+                f"ionwarden cannot write its state database {shown(path)}: {reason}. "
+                "Runs are not judged until it can (free space on that disk); the daemon keeps "
+                "watching and retries on its own.",
+            )
+
+    def _store_recovered(self, conn: sqlite3.Connection) -> None:
+        """The worker's probe write went through: clear the fault, say so, look for the files
+        that arrived while nothing could be queued."""
+        with self._fault_lock:
+            reason, self.store_fault = self.store_fault, None
+        if reason is None:
+            return
+        log.info("store.recovered", error_was=reason)
+        notifier = self.notifier
+        if notifier is not None:
+            try:
+                with db.write(conn):
+                    notifier.record_event(
+                        conn, DaemonEvent.STORE_RECOVERED, self.clock(), error=reason
+                    )
+            except sqlite3.Error as exc:
+                self.store_failed(exc)
+                return
+            notifier.write_event(DaemonEvent.STORE_RECOVERED, error_was=reason)
+            notifier.wake()
+        self.rescan.set("state store writable again")
 
     # -- reload ---------------------------------------------------------------------------------
 
@@ -359,11 +427,31 @@ class Daemon:
         pipeline = self.pipeline
         if pipeline is None:
             return
+        retry_s = STORE_RETRY_FIRST_S
+        owed_release: int | None = None  # a job claimed when the store began to refuse writes
         while not self.stop_event.is_set():
-            with db.write(pipeline.conn):
-                job = jobs.claim_next(pipeline.conn, self.clock())
+            if self.store_fault is not None or owed_release is not None:
+                try:
+                    with db.write(pipeline.conn):
+                        if owed_release is not None:
+                            jobs.release(pipeline.conn, owed_release, self.clock())
+                        jobs.set_state(pipeline.conn, STORE_PROBE_KEY, f"{self.clock():.3f}")
+                except sqlite3.Error as exc:
+                    self.store_failed(exc)
+                    self.stop_event.wait(retry_s)
+                    retry_s = min(2 * retry_s, STORE_RETRY_MAX_S)
+                    continue
+                owed_release, retry_s = None, STORE_RETRY_FIRST_S
+                self._store_recovered(pipeline.conn)
+            try:
+                with db.write(pipeline.conn):
+                    job = jobs.claim_next(pipeline.conn, self.clock())
+                if job is None:
+                    pipeline.flush_health_due()
+            except sqlite3.Error as exc:
+                self.store_failed(exc)
+                continue
             if job is None:
-                pipeline.flush_health_due()
                 self.wake_worker.wait(0.5)
                 self.wake_worker.clear()
                 continue
@@ -372,6 +460,11 @@ class Daemon:
             try:
                 if pipeline.process(job) is JobOutcome.REQUEUED and not self.stop_event.is_set():
                     self.stop_event.wait(5.0)  # the child could not start: do not spin
+            except sqlite3.Error as exc:
+                # The run's commit (or any write of the job) was refused: nothing of it is
+                # stored, so it is measured again once the store takes writes.
+                self.store_failed(exc)
+                owed_release = job.id
             except Exception:
                 log.exception("run.failed", file=shown(job.path))
                 try:

@@ -209,6 +209,25 @@ class Notifier:
                         items=items,
                     )
                     self._enqueue(conn, channel, "event", f"{kind}:{now_s:.3f}", now_s, text, items)
+        elif kind == DaemonEvent.STORE_RECOVERED:
+            title = f"{self.config.instrument.name}: state store writable again"
+            body = (
+                "The state database can be written again; runs that arrived meanwhile are "
+                f"judged now. It had failed with: {fields.get('error') or 'see the daemon log'}"
+            )
+            for channel in self.config.alerts.channels:
+                if Severity.CRITICAL.rank < channel.min_severity.rank:
+                    continue  # the channels that got the direct "not writable" alert
+                outbox.enqueue(
+                    conn,
+                    channel=channel.name,
+                    kind="event",
+                    ref=f"{kind}:{now_s:.3f}",
+                    created_at_s=now_s,
+                    title=title,
+                    body=body[:1000],
+                    notify_type="success",
+                )
         elif kind == DaemonEvent.CONFIG_REJECTED:
             problem = str(fields.get("error") or fields.get("problems") or "see the daemon log")
             title = f"{self.config.instrument.name}: config reload rejected"
@@ -251,6 +270,40 @@ class Notifier:
                 event_kind=str(kind),
                 error=shown(f"{exc.strerror or exc}: {exc.filename or ''}"),
             )
+
+    def send_direct(self, title: str, body: str, *, notify_type: str = "failure") -> None:
+        """Send one message to every channel now, past the outbox, in a thread of its own.
+
+        For the one alert the outbox cannot carry: "the state store is not writable" (a full
+        disk, a file-size limit). Queuing it would need the very write that fails, so it goes
+        straight to apprise, once, without retries; the daemon log and the systemd STATUS=
+        line say the same, and the outbox carries the "writable again" message once it works.
+        """
+        from watcher.notify import deliver
+
+        channels = [
+            c for c in self.config.alerts.channels if Severity.CRITICAL.rank >= c.min_severity.rank
+        ]
+
+        def run() -> None:
+            for channel in channels:
+                try:
+                    target = deliver.make_target(channel, self.config.alerts)
+                    ok, word = deliver.send_text(
+                        target,
+                        title=title,
+                        body=body,
+                        notify_type=notify_type,
+                        timeout_s=self.config.alerts.timeout_s,
+                    )
+                except Exception as exc:  # a failed direct send must not take a thread down
+                    ok, word = False, repr(exc)
+                if ok:
+                    log.info("message.delivered", channel=channel.name, message_kind="direct")
+                else:
+                    log.warning("message.failed", channel=channel.name, error=f"direct: {word}")
+
+        threading.Thread(target=run, name="ionwarden-direct-alert", daemon=True).start()
 
     def wake(self) -> None:
         """Tell the delivery worker that new messages were committed."""

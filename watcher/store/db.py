@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import os
 import sqlite3
-from contextlib import contextmanager
+from contextlib import contextmanager, suppress
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -185,10 +185,14 @@ def write(conn: sqlite3.Connection) -> Iterator[sqlite3.Connection]:
     conn.execute("BEGIN IMMEDIATE")
     try:
         yield conn
+        # Inside the try: COMMIT is where a full disk shows (the WAL frames are written then),
+        # and a transaction left open would refuse every later BEGIN on this connection.
+        conn.execute("COMMIT")
     except BaseException:
-        conn.execute("ROLLBACK")
+        if conn.in_transaction:  # SQLite may have rolled back already (an I/O error)
+            with suppress(sqlite3.Error):
+                conn.execute("ROLLBACK")
         raise
-    conn.execute("COMMIT")
 
 
 @contextmanager
