@@ -12,6 +12,7 @@ import time
 from typing import TYPE_CHECKING
 
 from tests.helpers.cli import run_cli
+from tests.helpers.daemon import set_file_size_limit
 from tests.helpers.wait import wait_for
 
 if TYPE_CHECKING:
@@ -173,12 +174,6 @@ def test_a_copy_of_a_judged_run_shows_in_status_and_the_health_log(lab: Lab) -> 
     assert "QC_a_copy.mzML  duplicate of QC_a.mzML" in human.stdout
 
 
-def _file_size_limit(pid: int, limit_bytes: int) -> None:
-    """RLIMIT_FSIZE of the running daemon (prlimit(2)): at 0 every write to a regular file
-    fails with EFBIG, as on a full disk, while sockets (sd_notify, HTTP) still work."""
-    resource.prlimit(pid, resource.RLIMIT_FSIZE, (limit_bytes, resource.RLIM_INFINITY))
-
-
 def test_a_store_that_refuses_writes_is_reported_retried_and_recovered(
     lab: Lab, big_run: Path, receiver: Receiver
 ) -> None:
@@ -192,22 +187,24 @@ def test_a_store_that_refuses_writes_is_reported_retried_and_recovered(
     lab.wait_runs(1)
     shutil.copy(big_run, lab.exports / "QC_big.mzML")
     wait_for(lambda: ("QC_big.mzML", "measuring", None) in lab.jobs(), 20, "measuring state")
-    _file_size_limit(d.proc.pid, 0)
+    set_file_size_limit(d.proc.pid, 0)
     try:
-        lab.drop("QC_during.mzML", 2)
+        # Nothing else writes while the run is measured: this STATUS= is the refused commit.
         wait_for(
             lambda: any("STATUS=state store not writable" in m for m in d.notes()),
-            30,
+            60,
             "the STATUS= line saying the store is not writable",
         )
         (alert,) = receiver.wait_for(1, timeout_s=20)
         assert "state store not writable" in str(alert["title"])
+        lab.drop("QC_during.mzML", 2)  # settles, and cannot be queued
         time.sleep(2.0)  # retries meanwhile: still one alert, the daemon still up
         assert d.proc.poll() is None
         assert len(receiver.bodies) == 1
         assert lab.runs_by_name() == {"QC_before.mzML": 1}
+        assert ("QC_during.mzML", "queued", None) not in lab.jobs()
     finally:
-        _file_size_limit(d.proc.pid, resource.RLIM_INFINITY)
+        set_file_size_limit(d.proc.pid, resource.RLIM_INFINITY)
     lab.wait_runs(3, timeout_s=90)
     assert lab.runs_by_name() == {"QC_before.mzML": 1, "QC_big.mzML": 1, "QC_during.mzML": 1}
     assert lab.attempts("QC_big.mzML") == 2  # its refused commit put it back in the queue
@@ -219,3 +216,34 @@ def test_a_store_that_refuses_writes_is_reported_retried_and_recovered(
     )
     assert d.stop() == 0
     assert any(e["event"] == "store.recovered" for e in d.events())
+
+
+def test_a_store_that_refuses_writes_at_start_up_is_waited_for(
+    lab: Lab, receiver: Receiver
+) -> None:
+    """Started on a full disk (as systemd restarts it; SQLite cannot even set up its -shm file):
+    no exit, which would burn systemd's start limit; READY=1 with the reason in STATUS=, one
+    alert, and once writes work the run that arrived while it was down is judged."""
+    lab.write_config(alerts={"channels": [{"name": "lab-chat", "url": receiver.url()}]})
+    d = lab.start()
+    lab.drop("QC_1.mzML", 1)
+    lab.wait_runs(1)
+    assert d.stop() == 0
+    lab.drop("QC_2.mzML", 2)
+    d2 = lab.start(file_size_limit=0)
+    try:
+        wait_for(
+            lambda: any("STATUS=state store not writable" in m for m in d2.notes()),
+            20,
+            "the STATUS= line saying the store is not writable",
+        )
+        (alert,) = receiver.wait_for(1, timeout_s=20)
+        assert "state store not writable" in str(alert["title"])
+        assert d2.proc.poll() is None
+    finally:
+        set_file_size_limit(d2.proc.pid, resource.RLIM_INFINITY)
+    lab.wait_runs(2, timeout_s=90)
+    bodies = receiver.wait_for(2, timeout_s=20)
+    assert "writable again" in str(bodies[1]["title"])
+    assert d2.stop() == 0
+    assert lab.runs_by_name() == {"QC_1.mzML": 1, "QC_2.mzML": 1}

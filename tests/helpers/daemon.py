@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import os
+import resource
 import signal
 import socket
 import sqlite3
@@ -71,8 +72,16 @@ class Lab:
         path.write_bytes(self.run_bytes(n))
         return path
 
-    def start(self, *, env: dict[str, str] | None = None, ready: bool = True) -> Daemon:
-        d = Daemon(self, env or {})
+    def start(
+        self,
+        *,
+        env: dict[str, str] | None = None,
+        ready: bool = True,
+        file_size_limit: int | None = None,
+    ) -> Daemon:
+        """Run the daemon; ``file_size_limit`` (bytes) starts it under that RLIMIT_FSIZE, 0
+        making every write to a regular file fail as on a full disk (``set_file_size_limit``)."""
+        d = Daemon(self, env or {}, file_size_limit)
         self.procs.append(d)
         if ready:
             d.wait_ready()
@@ -129,7 +138,9 @@ class Lab:
 class Daemon:
     """``python -m watcher run -c CONFIG`` with stderr in a file and a notify socket of our own."""
 
-    def __init__(self, lab: Lab, extra_env: dict[str, str]) -> None:
+    def __init__(
+        self, lab: Lab, extra_env: dict[str, str], file_size_limit: int | None = None
+    ) -> None:
         self.lab = lab
         index = len(lab.procs)
         self.log_path = lab.root / f"daemon{index}.stderr"
@@ -149,6 +160,9 @@ class Daemon:
             env=env,
             stdout=self._log,
             stderr=subprocess.STDOUT,
+            preexec_fn=None
+            if file_size_limit is None
+            else lambda: set_file_size_limit(os.getpid(), file_size_limit),
         )
 
     def notes(self) -> list[str]:
@@ -207,6 +221,13 @@ class Daemon:
             self.proc.wait(timeout=10)
         self._log.close()
         self.sock.close()
+
+
+def set_file_size_limit(pid: int, limit_bytes: int) -> None:
+    """RLIMIT_FSIZE of a process (prlimit(2)): at 0 every write to a regular file fails with
+    EFBIG, as on a full disk, while sockets (sd_notify, HTTP) still work; the hard limit stays
+    unlimited, so ``resource.RLIM_INFINITY`` lifts it again."""
+    resource.prlimit(pid, resource.RLIMIT_FSIZE, (limit_bytes, resource.RLIM_INFINITY))
 
 
 def _name(value: str | bytes) -> str:

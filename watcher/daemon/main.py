@@ -114,7 +114,12 @@ class Daemon:
         """
         now_s = self.clock()
         self.conn = db.connect(self.state_dir, daemon=True)
-        worker_conn = db.connect(self.state_dir, daemon=True)
+        try:
+            worker_conn = db.connect(self.state_dir, daemon=True)
+        except BaseException:
+            self.conn.close()  # start() may be tried again (``start_when_writable``)
+            self.conn = None
+            raise
         for folder in self.config.watch.folders:
             if not Path(folder).is_dir():
                 raise StoreError(f"watch folder {folder} does not exist or is not a folder")
@@ -125,15 +130,27 @@ class Daemon:
                     advice="inotify sees nothing on network shares; set watch.polling: true",
                 )
         notifier = self.notifier = self._make_notifier(self.config)
-        with db.write(self.conn):
-            requeued = jobs.requeue_interrupted(self.conn, now_s)
-            notifier.record_event(self.conn, DaemonEvent.STARTED, now_s)
+        # A store that refuses writes at start-up (a full disk after a restart) is reported and
+        # retried by the worker like one that fails later: exiting would only loop under systemd.
+        start_fault: sqlite3.Error | None = None
+        requeued = 0
+        try:
+            with db.write(self.conn):
+                requeued = jobs.requeue_interrupted(self.conn, now_s)
+                notifier.record_event(self.conn, DaemonEvent.STARTED, now_s)
+        except sqlite3.Error as exc:
+            start_fault = exc
         notifier.write_event(DaemonEvent.STARTED)
         notifier.start_delivery()
         self._last_arrival_s = max(now_s, jobs.last_arrival_s(self.conn) or 0.0)
         self.pipeline = Pipeline(self.config, worker_conn, notifier, self.stop_event, self.clock)
-        self.pipeline.resume_health_lines()
-        self._prune_store(now_s)
+        try:
+            self.pipeline.resume_health_lines()
+            self._prune_store(now_s)
+        except sqlite3.Error as exc:
+            start_fault = start_fault or exc
+        if start_fault is not None:
+            self.store_failed(start_fault)
         self._observer, self._overflow = watch.start_watching(
             self.config.watch, self.hints, self.rescan
         )
@@ -149,6 +166,40 @@ class Daemon:
         )
         sdnotify.notify("READY=1")
         log.info("daemon.ready")
+
+    def start_when_writable(self) -> bool:
+        """``start()``, waiting while the store cannot even be opened for want of space (a full
+        disk after a restart: SQLite cannot create its -shm/-wal files); False when asked to stop
+        meanwhile. Exiting instead would burn systemd's start limit within seconds and leave
+        nothing watching; so it tells systemd READY=1 with the reason in STATUS=, keeps pinging
+        the watchdog, sends one alert directly, and retries with back-off."""
+        retry_s = STORE_RETRY_FIRST_S
+        reported = False
+        watchdog_every_s = sdnotify.watchdog_interval_s()
+        while True:
+            try:
+                self.start()
+            except StoreError as exc:
+                if not db.refuses_writes(exc.__cause__):
+                    raise
+                if not reported:
+                    reported = True
+                    self.store_failed(sqlite3.OperationalError(str(exc.__cause__)), at_start=True)
+                sdnotify.notify("READY=1")
+                sdnotify.notify(f"STATUS=state store not writable ({exc.__cause__}); waiting")
+            else:
+                if reported:  # the worker's probe write clears it: the outbox says "again"
+                    with self._fault_lock:
+                        self.store_fault = self.store_fault or "could not open it at start-up"
+                return True
+            deadline = time.monotonic() + retry_s
+            while time.monotonic() < deadline:
+                if self._stop_requested.wait(min(watchdog_every_s or 1.0, 1.0)):
+                    sdnotify.notify("STOPPING=1")
+                    return False
+                if watchdog_every_s is not None:
+                    sdnotify.notify("WATCHDOG=1")  # alive and waiting: a restart frees nothing
+            retry_s = min(2 * retry_s, STORE_RETRY_MAX_S)
 
     def run(self) -> int:
         """The main loop until SIGTERM/SIGINT (``request_stop``); returns the exit code."""
@@ -237,7 +288,10 @@ class Daemon:
             db.checkpoint(self._conn())
 
     def is_healthy(self) -> bool:
-        """Observer thread alive, and the worker idle or within its run's time limit."""
+        """Observer thread alive, and the worker idle or within its run's time limit.
+
+        A store that refuses writes does not stop the pings: a restart frees no disk space, and
+        the daemon must keep watching (``store_fault`` is in STATUS= instead)."""
         if self._observer is None or not self._observer.is_alive():
             return False
         if self._worker is None or not self._worker.is_alive():
@@ -334,19 +388,23 @@ class Daemon:
 
     # -- a store that refuses writes --------------------------------------------------------------
 
-    def store_failed(self, exc: sqlite3.Error) -> None:
+    def store_failed(self, exc: sqlite3.Error, *, at_start: bool = False) -> None:
         """A write to the state store failed (full disk, file-size limit, I/O error): report it
-        once per outage (log, STATUS=, one direct alert); the worker retries with back-off."""
+        once per outage (log, STATUS=, one direct alert); the worker retries with back-off.
+        ``at_start``: the store could not be opened; nothing runs yet to clear the fault."""
         reason = str(exc) or type(exc).__name__
         with self._fault_lock:
             first = self.store_fault is None
-            self.store_fault = reason
+            self.store_fault = None if at_start else reason
         if not first:
             return
         path = self.state_dir / db.DB_NAME
         log.error("store.unwritable", error=reason, database=str(path))
         sdnotify.notify(f"STATUS=state store not writable ({reason}); retrying")
         notifier = self.notifier
+        if notifier is None and at_start:
+            # No store yet, but the channels need none: one message straight to apprise.
+            notifier = self.notifier = self._make_notifier(self.config)
         if notifier is not None:
             notifier.write_event(DaemonEvent.STORE_UNWRITABLE, error=reason)
             notifier.send_direct(
@@ -428,20 +486,20 @@ class Daemon:
         if pipeline is None:
             return
         retry_s = STORE_RETRY_FIRST_S
-        owed_release: int | None = None  # a job claimed when the store began to refuse writes
         while not self.stop_event.is_set():
-            if self.store_fault is not None or owed_release is not None:
+            if self.store_fault is not None:
                 try:
                     with db.write(pipeline.conn):
-                        if owed_release is not None:
-                            jobs.release(pipeline.conn, owed_release, self.clock())
+                        # Nothing is being measured here, so every "measuring" row is one whose
+                        # commit (or a start-up's re-queue) was refused: back to the queue.
+                        jobs.requeue_interrupted(pipeline.conn, self.clock())
                         jobs.set_state(pipeline.conn, STORE_PROBE_KEY, f"{self.clock():.3f}")
                 except sqlite3.Error as exc:
                     self.store_failed(exc)
                     self.stop_event.wait(retry_s)
                     retry_s = min(2 * retry_s, STORE_RETRY_MAX_S)
                     continue
-                owed_release, retry_s = None, STORE_RETRY_FIRST_S
+                retry_s = STORE_RETRY_FIRST_S
                 self._store_recovered(pipeline.conn)
             try:
                 with db.write(pipeline.conn):
@@ -464,7 +522,6 @@ class Daemon:
                 # The run's commit (or any write of the job) was refused: nothing of it is
                 # stored, so it is measured again once the store takes writes.
                 self.store_failed(exc)
-                owed_release = job.id
             except Exception:
                 log.exception("run.failed", file=shown(job.path))
                 try:
@@ -510,7 +567,8 @@ def main(args: argparse.Namespace) -> int:
     signal.signal(signal.SIGINT, on_stop)
     signal.signal(signal.SIGHUP, on_hup)
     try:
-        daemon.start()
+        if not daemon.start_when_writable():
+            return 0
     except (StoreError, StoreTooNewError, StoreCorruptError, ConfigError) as exc:
         log.error("daemon.failed", error=str(exc))
         raise

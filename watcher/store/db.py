@@ -179,6 +179,16 @@ def _quick_check(conn: sqlite3.Connection, path: Path) -> None:
         raise StoreCorruptError(path, first)
 
 
+def refuses_writes(exc: BaseException | None) -> bool:
+    """True for SQLite's "cannot write now" errors: a full disk (SQLITE_FULL) or a failed write
+    (SQLITE_IOERR_*: EFBIG past a file-size limit, ENOSPC on the -shm file). They pass when
+    space returns, unlike a permission or a damaged file."""
+    if not isinstance(exc, sqlite3.Error):
+        return False
+    name = str(getattr(exc, "sqlite_errorname", ""))
+    return name == "SQLITE_FULL" or name.startswith("SQLITE_IOERR")
+
+
 @contextmanager
 def write(conn: sqlite3.Connection) -> Iterator[sqlite3.Connection]:
     """One short write transaction (``BEGIN IMMEDIATE`` ... ``COMMIT``, rolled back on error)."""
