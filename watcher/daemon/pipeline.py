@@ -248,6 +248,10 @@ class Pipeline:
     child: MeasuringChild = field(default_factory=MeasuringChild)
     health_failing: bool = False  # the last try at the owed health lines failed
     _health_retry_at: float = 0.0  # time.monotonic() of the next try while failing
+    # Lines written whose note is not struck off yet: that rides on the next run's commit (or an
+    # idle moment), not a transaction of its own, which would add an fsync to every run. A kill
+    # before it only re-offers lines the health log already holds (idempotent by run_key).
+    _written: list[int] = field(default_factory=list)
 
     def reconfigure(self, config: Config, notifier: Notifier) -> None:
         """Use a reloaded config and its notifier from the next job on (the job in flight keeps
@@ -361,7 +365,8 @@ class Pipeline:
                 run_id=run_id,
                 sha256=sha256,
             )
-            jobs.add_health_pending(self.conn, run_id)
+            jobs.update_health_pending(self.conn, add=run_id, written=self._written)
+        self._written = []
         structlog.contextvars.bind_contextvars(run_id=run_id)
         self.flush_health()
         self.last_file = shown(job.path.name)
@@ -387,9 +392,9 @@ class Pipeline:
             self.notifier.write_stored_health(row)
 
     def flush_health(self) -> int:
-        """Write the owed health lines, oldest first, and strike off the ones written; returns
+        """Write the owed health lines, oldest first (struck off later: ``_written``); returns
         how many are still owed. Stops at the first that fails: the folder refuses them all."""
-        pending = jobs.health_pending(self.conn)
+        pending = [r for r in jobs.health_pending(self.conn) if r not in self._written]
         written: list[int] = []
         error: OSError | None = None
         for run_id in pending:
@@ -399,9 +404,7 @@ class Pipeline:
                 error = exc
                 break
             written.append(run_id)
-        if written:
-            with db.write(self.conn):
-                jobs.clear_health_pending(self.conn, written)
+        self._written.extend(written)
         owed = len(pending) - len(written)
         if error is not None:
             self._health_retry_at = time.monotonic() + HEALTH_RETRY_S
@@ -419,9 +422,18 @@ class Pipeline:
         return owed
 
     def flush_health_due(self) -> None:
-        """From the worker's idle loop: try the owed lines again once the retry wait passed."""
+        """From the worker's idle loop: try the owed lines again once the retry wait passed,
+        and strike off the lines written since the last commit."""
         if self.health_failing and time.monotonic() >= self._health_retry_at:
             self.flush_health()
+        self.strike_written()
+
+    def strike_written(self) -> None:
+        """Strike the written lines off the note now (idle, start-up), in one transaction."""
+        if self._written:
+            with db.write(self.conn):
+                jobs.update_health_pending(self.conn, written=self._written)
+            self._written = []
 
     def _judge(self, config: Config, run_file: RunFile, result: ChildResult) -> Verdict:
         judged_at = datetime.fromtimestamp(self.clock(), UTC)
@@ -475,4 +487,6 @@ class Pipeline:
                 self.write_health(run_id)
             except OSError:
                 break  # flush_health below reports the folder and keeps what is owed
-        return self.flush_health()
+        owed = self.flush_health()
+        self.strike_written()
+        return owed

@@ -286,16 +286,14 @@ def health_pending(conn: sqlite3.Connection) -> list[int]:
     return [int(v) for v in json.loads(text)] if text else []
 
 
-def add_health_pending(conn: sqlite3.Connection, run_id: int) -> None:
-    """Note a run's line as owed, in the transaction that commits the run: the note survives a
-    health folder that cannot be written, a full disk and a kill, until ``clear_health_pending``."""
-    pending = health_pending(conn)
-    if run_id not in pending:
-        set_state(conn, HEALTH_PENDING_KEY, json.dumps([*pending, run_id]))
-
-
-def clear_health_pending(conn: sqlite3.Connection, run_ids: Sequence[int]) -> None:
-    """The lines of these runs are written (or their runs are gone): no longer owed."""
-    done = set(run_ids)
+def update_health_pending(
+    conn: sqlite3.Connection, *, add: int | None = None, written: Sequence[int] = ()
+) -> None:
+    """Note a run's line as owed (``add``, in the transaction that commits the run: the note
+    survives a health folder that cannot be written, a full disk and a kill) and strike off the
+    runs whose lines are ``written``; one read and one write of the note."""
+    done = set(written)
     pending = [r for r in health_pending(conn) if r not in done]
+    if add is not None and add not in pending:
+        pending.append(add)
     set_state(conn, HEALTH_PENDING_KEY, json.dumps(pending))
