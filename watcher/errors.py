@@ -9,11 +9,13 @@ Tree::
     ├── StoreTooNewError  the database was written by a newer ionwarden (exit 2: a restart of
     │                   this version cannot fix it)
     ├── DaemonRunningError  another daemon holds the state folder's lock (exit 2)
+    ├── StoreCorruptError the database file is damaged or not SQLite (exit 2; never touched)
     └── DeliveryError   an alert channel cannot be set up (apprise refused the URL)
 """
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -67,7 +69,9 @@ class ReadError(IonwardenError):
         self.path = Path(path)
         self.reason = reason
         self.kind = kind
-        super().__init__(f"{self.path.name}: unreadable: {reason}")
+        # A name that is not UTF-8 shows its bytes as \\xNN: the message must encode anywhere.
+        name = os.fsencode(self.path.name).decode("utf-8", "backslashreplace")
+        super().__init__(f"{name}: unreadable: {reason}")
 
 
 class StoreError(IonwardenError):
@@ -103,6 +107,29 @@ class DaemonRunningError(IonwardenError):
 
     Exit 2 like a bad config: restarting this one cannot help while the other runs.
     """
+
+
+class StoreCorruptError(IonwardenError):
+    """The state database file is damaged or is not an SQLite database at all.
+
+    Not a ``StoreError``: a restart reads the same damaged file, so the commands exit 2 and
+    systemd does not restart into it. Nothing is deleted or overwritten: the file may still hold
+    the run history someone wants to recover, so the person decides (the message says how).
+
+    Attributes:
+        path: the database file.
+        detail: what SQLite reported (the first problem ``PRAGMA quick_check`` found, or the
+            open error).
+    """
+
+    def __init__(self, path: Path, detail: str) -> None:
+        self.path = path
+        self.detail = detail
+        super().__init__(
+            f"state database {path} is damaged ({detail}): stop the daemon, move the file aside "
+            f"(with its -wal and -shm files, e.g. mv {path} {path}.damaged), and start again; "
+            "the daemon then starts a new, empty store (the run history stays in the moved file)"
+        )
 
 
 class DeliveryError(IonwardenError):

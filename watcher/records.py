@@ -8,6 +8,7 @@ paths that checks, the store and the health log use, e.g. ``calibrant.siloxane-4
 from __future__ import annotations
 
 import dataclasses
+import os
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from enum import StrEnum
@@ -329,6 +330,9 @@ class DaemonEvent(StrEnum):
     CONFIG_REJECTED = "config.rejected"  # a reload that failed validation: a warning message
     NORUN_MISSED = "heartbeat.missed"  # no run arrived in time: raises the no-run alert
     NORUN_RESUMED = "heartbeat.resumed"  # runs arrive again: clears it
+    STORE_UNWRITABLE = "store.unwritable"  # the state database refuses writes (full disk...)
+    STORE_RECOVERED = "store.recovered"  # it takes writes again: an info message via the outbox
+    DUPLICATE = "run.duplicate"  # a copy of a run already judged arrived: no alert, a line
 
 
 class AlertAction(StrEnum):
@@ -371,3 +375,13 @@ def _jsonable(value: Any) -> Any:
     if isinstance(value, float) and value != value:  # NaN is not JSON
         return None
     return value
+
+
+def shown(text: str | Path) -> str:
+    """A file name, path or message as text any log line, JSON, alert or terminal can carry.
+
+    Names that are not valid UTF-8 (common on shares written by other systems) reach Python with
+    the undecodable bytes as surrogates (``os.fsdecode``); written as ``\\xNN`` here, so that
+    ``latin1_\\xe9.mzML`` shows which byte it was, and encoding to UTF-8 never fails.
+    """
+    return os.fsencode(str(text)).decode("utf-8", "backslashreplace")

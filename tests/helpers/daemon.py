@@ -10,6 +10,8 @@ from __future__ import annotations
 
 import itertools
 import json
+import os
+import resource
 import signal
 import socket
 import sqlite3
@@ -72,8 +74,16 @@ class Lab:
         path.write_bytes(self.run_bytes(n))
         return path
 
-    def start(self, *, env: dict[str, str] | None = None, ready: bool = True) -> Daemon:
-        d = Daemon(self, env or {})
+    def start(
+        self,
+        *,
+        env: dict[str, str] | None = None,
+        ready: bool = True,
+        file_size_limit: int | None = None,
+    ) -> Daemon:
+        """Run the daemon; ``file_size_limit`` (bytes) starts it under that RLIMIT_FSIZE, 0
+        making every write to a regular file fail as on a full disk (``set_file_size_limit``)."""
+        d = Daemon(self, env or {}, file_size_limit)
         self.procs.append(d)
         if ready:
             d.wait_ready()
@@ -95,9 +105,8 @@ class Lab:
 
     def runs(self) -> list[tuple[str, str, str | None]]:
         """(file name, status, error) of every row in the run history."""
-        return [
-            (r[0], r[1], r[2]) for r in self._query("SELECT file_name, status, error FROM runs")
-        ]
+        rows = self._query("SELECT file_name, status, error FROM runs")
+        return [(_name(r[0]), r[1], r[2]) for r in rows]
 
     def runs_by_name(self) -> dict[str, int]:
         out: dict[str, int] = {}
@@ -107,7 +116,12 @@ class Lab:
 
     def jobs(self) -> list[tuple[str, str, str | None]]:
         rows = self._query("SELECT path, state, outcome FROM jobs ORDER BY id")
-        return [(Path(r[0]).name, r[1], r[2]) for r in rows]
+        return [(Path(_name(r[0])).name, r[1], r[2]) for r in rows]
+
+    def attempts(self, name: str) -> int:
+        """How often the job of the file called ``name`` was claimed for measuring."""
+        rows = self._query("SELECT path, attempts FROM jobs")
+        return sum(r[1] for r in rows if Path(_name(r[0])).name == name)
 
     def health(self) -> list[dict[str, Any]]:
         out = []
@@ -126,7 +140,9 @@ class Lab:
 class Daemon:
     """``python -m watcher run -c CONFIG`` with stderr in a file and a notify socket of our own."""
 
-    def __init__(self, lab: Lab, extra_env: dict[str, str]) -> None:
+    def __init__(
+        self, lab: Lab, extra_env: dict[str, str], file_size_limit: int | None = None
+    ) -> None:
         self.lab = lab
         index = len(lab.procs)
         self.log_path = lab.root / f"daemon{index}.stderr"
@@ -147,6 +163,9 @@ class Daemon:
             env=env,
             stdout=self._log,
             stderr=subprocess.STDOUT,
+            preexec_fn=None
+            if file_size_limit is None
+            else lambda: set_file_size_limit(os.getpid(), file_size_limit),
         )
 
     def notes(self) -> list[str]:
@@ -214,6 +233,18 @@ class Daemon:
             self.proc.wait(timeout=10)
         self._log.close()
         self.sock.close()
+
+
+def set_file_size_limit(pid: int, limit_bytes: int) -> None:
+    """RLIMIT_FSIZE of a process (prlimit(2)): at 0 every write to a regular file fails with
+    EFBIG, as on a full disk, while sockets (sd_notify, HTTP) still work; the hard limit stays
+    unlimited, so ``resource.RLIM_INFINITY`` lifts it again."""
+    resource.prlimit(pid, resource.RLIMIT_FSIZE, (limit_bytes, resource.RLIM_INFINITY))
+
+
+def _name(value: str | bytes) -> str:
+    """A stored path or name as Python names it: names that are not UTF-8 are stored as bytes."""
+    return os.fsdecode(value) if isinstance(value, bytes) else value
 
 
 def write_lab_config(root: Path, **overrides: Any) -> Path:

@@ -21,7 +21,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any, TextIO
 
 from watcher.cli.exitcodes import ExitCode
-from watcher.records import ReadFailure, RunFile, RunMetrics, Status, Verdict, run_time
+from watcher.records import ReadFailure, RunFile, RunMetrics, Status, Verdict, run_time, shown
 
 if TYPE_CHECKING:
     import argparse
@@ -159,7 +159,7 @@ def _check_one(
         from watcher.store.history import StoreHistory
 
         history = StoreHistory(conn)
-    with ProgressBar(path.name, enabled=None if show_progress else False) as bar:
+    with ProgressBar(shown(path.name), enabled=None if show_progress else False) as bar:
         verdict = check_file(path, config, history=history, progress=bar)
     if record and conn is not None:
         verdict = _record(conn, verdict)
@@ -210,7 +210,7 @@ def _unreadable(run_file: RunFile, reason: str, kind: str, judged_at: datetime) 
         run_file=run_file,
         status=Status.UNREADABLE,
         acquired_at=run_time(None, run_file, judged_at),
-        error=f"{run_file.path.name}: unreadable: {reason}",
+        error=f"{shown(run_file.path.name)}: unreadable: {reason}",
         error_kind=kind,
         judged_at=judged_at,
     )
@@ -247,7 +247,7 @@ def run_to_dict(verdict: Verdict) -> dict[str, Any]:
         metrics.to_dict()
         if metrics is not None
         else {
-            "file": verdict.run_file.path.name,
+            "file": shown(verdict.run_file.path.name),
             "format": _sniffed_format(verdict.run_file.path),
             "acquired_at": None,
             "signal": None,
@@ -259,7 +259,7 @@ def run_to_dict(verdict: Verdict) -> dict[str, Any]:
     )
     out = {
         "file": body["file"],
-        "path": str(verdict.run_file.path),
+        "path": shown(verdict.run_file.path),
         "format": body["format"],
         "status": str(verdict.status),
         "error": verdict.error,
@@ -339,7 +339,7 @@ def render_text(verdict: Verdict, out: TextIO, *, colour: bool = False) -> None:
     metrics = verdict.metrics
     fmt = metrics.format if metrics is not None else (_sniffed_format(verdict.run_file.path) or "?")
     status = _paint(str(verdict.status).upper(), _COLOURS.get(verdict.status), colour)
-    out.write(f"{verdict.run_file.path.name}  {fmt}  {status}\n")
+    out.write(f"{shown(verdict.run_file.path.name)}  {fmt}  {status}\n")
     if metrics is None:
         out.write(f"  {verdict.error}\n\n")
         return

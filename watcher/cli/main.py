@@ -4,8 +4,8 @@ Exit codes (every command):
     0    all good (for ``check``: every run ``ok`` or ``notice``)
     1    ``check``: at least one run is ``warning``, ``critical`` or ``unreadable``;
          ``status``: the daemon has open alerts or undelivered messages
-    2    usage or configuration error, or a state database written by a newer ionwarden: a
-         restart cannot fix it (systemd RestartPreventExitStatus=2)
+    2    usage or configuration error, a state database written by a newer ionwarden, or a
+         damaged state database: a restart cannot fix it (systemd RestartPreventExitStatus=2)
     3    runtime failure (state folder unusable, alert channel refused, ...)
     130  interrupted (Ctrl-C)
 """
@@ -19,7 +19,13 @@ from typing import TYPE_CHECKING
 
 from watcher import __version__
 from watcher.cli.exitcodes import ExitCode
-from watcher.errors import ConfigError, DaemonRunningError, IonwardenError, StoreTooNewError
+from watcher.errors import (
+    ConfigError,
+    DaemonRunningError,
+    IonwardenError,
+    StoreCorruptError,
+    StoreTooNewError,
+)
 
 if TYPE_CHECKING:
     from collections.abc import Sequence
@@ -114,9 +120,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     except ConfigError as exc:
         print(str(exc), file=sys.stderr)
         return ExitCode.USAGE
-    except (StoreTooNewError, DaemonRunningError) as exc:
-        # Like a bad config, a restart cannot cure it (a newer store; another daemon on the same
-        # state folder): systemd must not loop.
+    except (StoreTooNewError, StoreCorruptError, DaemonRunningError) as exc:
+        # Like a bad config, a restart cannot cure it (a newer or damaged store; another daemon
+        # on the same state folder): systemd must not loop.
         print(f"ionwarden: {exc}", file=sys.stderr)
         return ExitCode.USAGE
     except IonwardenError as exc:

@@ -17,6 +17,7 @@ from zoneinfo import ZoneInfo
 from watcher.cli.exitcodes import ExitCode
 from watcher.config import Config, load, state_dir_of
 from watcher.errors import StoreError
+from watcher.records import shown
 
 if TYPE_CHECKING:
     import argparse
@@ -29,12 +30,13 @@ LAST_RUNS = 10
 def collect(config: Config, state_dir: Path, *, now_s: float) -> dict[str, Any]:
     """Everything ``status`` shows, as plain data (the ``--json`` shape)."""
     from watcher.notify.deliver import masked_url
-    from watcher.store import db, history, outbox
+    from watcher.store import db, history, jobs, outbox
 
     conn = db.connect(state_dir, readonly=True)
     try:
         with db.read(conn):
             runs = history.recent_runs(conn, limit=LAST_RUNS)
+            files = jobs.recent(conn, limit=LAST_RUNS)
             alerts = outbox.load_alerts(conn)
             waiting = outbox.messages(
                 conn, statuses=(outbox.DeliveryStatus.PENDING, outbox.DeliveryStatus.ABANDONED)
@@ -55,13 +57,25 @@ def collect(config: Config, state_dir: Path, *, now_s: float) -> dict[str, Any]:
         "last_runs": [
             {
                 "run_id": r.run_id,
-                "file": r.file_name,
+                "file": shown(r.file_name),
                 "judged_at": r.judged_at.astimezone(tz).isoformat(timespec="seconds"),
                 "status": str(r.status),
                 "findings": len(r.findings),
                 "error": r.error,
             }
             for r in runs
+        ],
+        # Every file that arrived, judged or not: a copy of a judged run has no run of its own
+        # (and no alert, by design), so this is where an operator sees that it came.
+        "recent_files": [
+            {
+                "file": shown(job.path.name),
+                "state": str(job.state),
+                "outcome": None if job.outcome is None else shown(job.outcome),
+                "seen": local(job.first_seen_s),
+                "note": None if twin is None else f"duplicate of {shown(twin.name)}",
+            }
+            for job, twin in files
         ],
         "open_alerts": [
             {
@@ -107,6 +121,12 @@ def render(state: dict[str, Any]) -> str:
         lines.append(
             f"  {r['judged_at']}  {r['status']:<10} {r['file']}  findings {r['findings']}{extra}"
         )
+    lines += ["", "recent files:"]
+    if not state["recent_files"]:
+        lines.append("  (none yet)")
+    for f in state["recent_files"]:
+        what = f["note"] or f["outcome"] or f["state"]
+        lines.append(f"  {f['seen']}  {f['file']}  {what}")
     lines += ["", f"open alerts: {len(state['open_alerts'])}"]
     for a in state["open_alerts"]:
         lines.append(

@@ -29,13 +29,14 @@ from watcher.daemon.pipeline import JobOutcome, Pipeline, time_limit_s
 from watcher.errors import (
     ConfigError,
     IonwardenError,
+    StoreCorruptError,
     StoreError,
     StoreTooNewError,
 )
 from watcher.intake import watch
 from watcher.intake.pending import Settled, Settler
 from watcher.notify.notifier import Notifier
-from watcher.records import DaemonEvent
+from watcher.records import DaemonEvent, shown
 from watcher.store import db, jobs
 
 if TYPE_CHECKING:
@@ -53,6 +54,11 @@ NOTIFY_TICK_EVERY_S = 1.0
 CHECKPOINT_EVERY_S = 3600.0
 PRUNE_EVERY_S = 86400.0  # store retention is in days: once at start-up, then daily
 STATE_CHECK_EVERY_S = 2.0  # two stat calls: cheap enough to notice a deleted store within seconds
+# A store that refuses writes (a full disk) is tried again with a doubling wait: soon enough to
+# resume minutes after space returns, rare enough not to fill the journal meanwhile.
+STORE_RETRY_FIRST_S = 1.0
+STORE_RETRY_MAX_S = 60.0
+STORE_PROBE_KEY = "store_probe_s"  # a real write: an empty transaction proves nothing
 
 
 class Daemon:
@@ -85,6 +91,10 @@ class Daemon:
         self.state_lost: str | None = None
         self.lock_fd: int | None = None
         self.conn: sqlite3.Connection | None = None
+        # Why the state store refuses writes, while it does (set by any thread, cleared only by
+        # the worker's probe write): shown in STATUS=, reported once per outage.
+        self.store_fault: str | None = None
+        self._fault_lock = threading.Lock()
         self.notifier: Notifier | None = None
         self.pipeline: Pipeline | None = None
 
@@ -109,7 +119,12 @@ class Daemon:
         """
         now_s = self.clock()
         self.conn = db.connect(self.state_dir, daemon=True)
-        worker_conn = db.connect(self.state_dir, daemon=True)
+        try:
+            worker_conn = db.connect(self.state_dir, daemon=True)
+        except BaseException:
+            self.conn.close()  # start() may be tried again (``start_when_writable``)
+            self.conn = None
+            raise
         for folder in self.config.watch.folders:
             if not Path(folder).is_dir():
                 raise StoreError(f"watch folder {folder} does not exist or is not a folder")
@@ -120,17 +135,29 @@ class Daemon:
                     advice="inotify sees nothing on network shares; set watch.polling: true",
                 )
         notifier = self.notifier = self._make_notifier(self.config)
-        with db.write(self.conn):
-            requeued = jobs.requeue_interrupted(self.conn, now_s)
-            notifier.record_event(self.conn, DaemonEvent.STARTED, now_s)
+        # A store that refuses writes at start-up (a full disk after a restart) is reported and
+        # retried by the worker like one that fails later: exiting would only loop under systemd.
+        start_fault: sqlite3.Error | None = None
+        requeued = 0
+        try:
+            with db.write(self.conn):
+                requeued = jobs.requeue_interrupted(self.conn, now_s)
+                notifier.record_event(self.conn, DaemonEvent.STARTED, now_s)
+        except sqlite3.Error as exc:
+            start_fault = exc
         notifier.write_event(DaemonEvent.STARTED)
         notifier.start_delivery()
         self._last_arrival_s = max(now_s, jobs.last_arrival_s(self.conn) or 0.0)
         self._state_ids = self._state_identity()
         self._last_state_check = time.monotonic()
         self.pipeline = Pipeline(self.config, worker_conn, notifier, self.stop_event, self.clock)
-        self.pipeline.resume_health_lines()
-        self._prune_store(now_s)
+        try:
+            self.pipeline.resume_health_lines()
+            self._prune_store(now_s)
+        except sqlite3.Error as exc:
+            start_fault = start_fault or exc
+        if start_fault is not None:
+            self.store_failed(start_fault)
         self._observer, self._overflow = watch.start_watching(
             self.config.watch, self.hints, self.rescan
         )
@@ -147,12 +174,54 @@ class Daemon:
         sdnotify.notify("READY=1")
         log.info("daemon.ready")
 
+    def start_when_writable(self) -> bool:
+        """``start()``, waiting while the store cannot even be opened for want of space (a full
+        disk after a restart: SQLite cannot create its -shm/-wal files); False when asked to stop
+        meanwhile. Exiting instead would burn systemd's start limit within seconds and leave
+        nothing watching; so it tells systemd READY=1 with the reason in STATUS=, keeps pinging
+        the watchdog, sends one alert directly, and retries with back-off."""
+        retry_s = STORE_RETRY_FIRST_S
+        reported = False
+        watchdog_every_s = sdnotify.watchdog_interval_s()
+        while True:
+            try:
+                self.start()
+            except StoreError as exc:
+                if not db.refuses_writes(exc.__cause__):
+                    raise
+                if not reported:
+                    reported = True
+                    self.store_failed(sqlite3.OperationalError(str(exc.__cause__)), at_start=True)
+                sdnotify.notify("READY=1")
+                sdnotify.notify(f"STATUS=state store not writable ({exc.__cause__}); waiting")
+            else:
+                if reported:  # the worker's probe write clears it: the outbox says "again"
+                    with self._fault_lock:
+                        self.store_fault = self.store_fault or "could not open it at start-up"
+                return True
+            deadline = time.monotonic() + retry_s
+            while time.monotonic() < deadline:
+                if self._stop_requested.wait(min(watchdog_every_s or 1.0, 1.0)):
+                    sdnotify.notify("STOPPING=1")
+                    return False
+                if watchdog_every_s is not None:
+                    sdnotify.notify("WATCHDOG=1")  # alive and waiting: a restart frees nothing
+            retry_s = min(2 * retry_s, STORE_RETRY_MAX_S)
+
     def run(self) -> int:
         """The main loop until SIGTERM/SIGINT (``request_stop``); returns the exit code."""
         watchdog_every_s = sdnotify.watchdog_interval_s()
         last_ping = 0.0
         while not self._stop_requested.is_set():
-            self.step()
+            try:
+                self.step()
+            except sqlite3.Error as exc:
+                # A full disk must not end the main loop: it keeps watching and pinging, files
+                # not queued now are found by the rescan the recovery asks for.
+                self.store_failed(exc)
+                if self.clock() - self._last_status >= STATUS_EVERY_S:
+                    self._last_status = self.clock()
+                    self._status()
             due = watchdog_every_s is not None and time.monotonic() - last_ping >= watchdog_every_s
             if due and self.is_healthy():
                 sdnotify.notify("WATCHDOG=1")
@@ -182,8 +251,11 @@ class Daemon:
         if self.pipeline is not None:
             self.pipeline.close()
         if self.notifier is not None and self.conn is not None and self.state_lost is None:
-            with db.write(self.conn):
-                self.notifier.record_event(self.conn, DaemonEvent.STOPPED, self.clock())
+            try:
+                with db.write(self.conn):
+                    self.notifier.record_event(self.conn, DaemonEvent.STOPPED, self.clock())
+            except sqlite3.Error as exc:  # the store refuses writes: stop all the same
+                log.warning("store.unwritable", error=str(exc), during="stop")
             self.notifier.write_event(DaemonEvent.STOPPED)
             self.notifier.stop_delivery(2.0)
         for conn in (self.conn, self.pipeline.conn if self.pipeline else None):
@@ -262,7 +334,10 @@ class Daemon:
         return True
 
     def is_healthy(self) -> bool:
-        """Observer thread alive, and the worker idle or within its run's time limit."""
+        """Observer thread alive, and the worker idle or within its run's time limit.
+
+        A store that refuses writes does not stop the pings: a restart frees no disk space, and
+        the daemon must keep watching (``store_fault`` is in STATUS= instead)."""
         if self._observer is None or not self._observer.is_alive():
             return False
         if self._worker is None or not self._worker.is_alive():
@@ -338,7 +413,7 @@ class Daemon:
                 self._last_arrival_s = now_s
                 resumed = norun_alert.resume(self._conn(), self._notifier(), now_s)
         for job_id, path in added:
-            log.info("run.queued", file=str(path), job_id=job_id)
+            log.info("run.queued", file=shown(path), job_id=job_id)
         if resumed:
             norun_alert.announce_resumed(self._notifier())
         if added:
@@ -350,10 +425,62 @@ class Daemon:
     def _status(self) -> None:
         counts = jobs.counts(self._conn())
         last = self.pipeline.last_file if self.pipeline else None
+        fault = self.store_fault
         sdnotify.notify(
-            f"STATUS=queued {counts['queued']}, settling {len(self.settler.pending)}, "
+            ("STATUS=" if fault is None else f"STATUS=state store not writable ({fault}); ")
+            + f"queued {counts['queued']}, settling {len(self.settler.pending)}, "
             f"done {counts['done']}; last run {last or 'none yet'}"
         )
+
+    # -- a store that refuses writes --------------------------------------------------------------
+
+    def store_failed(self, exc: sqlite3.Error, *, at_start: bool = False) -> None:
+        """A write to the state store failed (full disk, file-size limit, I/O error): report it
+        once per outage (log, STATUS=, one direct alert); the worker retries with back-off.
+        ``at_start``: the store could not be opened; nothing runs yet to clear the fault."""
+        reason = str(exc) or type(exc).__name__
+        with self._fault_lock:
+            first = self.store_fault is None
+            self.store_fault = None if at_start else reason
+        if not first:
+            return
+        path = self.state_dir / db.DB_NAME
+        log.error("store.unwritable", error=reason, database=str(path))
+        sdnotify.notify(f"STATUS=state store not writable ({reason}); retrying")
+        notifier = self.notifier
+        if notifier is None and at_start:
+            # No store yet, but the channels need none: one message straight to apprise.
+            notifier = self.notifier = self._make_notifier(self.config)
+        if notifier is not None:
+            notifier.write_event(DaemonEvent.STORE_UNWRITABLE, error=reason)
+            notifier.send_direct(
+                f"{self.config.instrument.name}: state store not writable",
+                f"ionwarden cannot write its state database {shown(path)}: {reason}. "
+                "Runs are not judged until it can (free space on that disk); the daemon keeps "
+                "watching and retries on its own.",
+            )
+
+    def _store_recovered(self, conn: sqlite3.Connection) -> None:
+        """The worker's probe write went through: clear the fault, say so, look for the files
+        that arrived while nothing could be queued."""
+        with self._fault_lock:
+            reason, self.store_fault = self.store_fault, None
+        if reason is None:
+            return
+        log.info("store.recovered", error_was=reason)
+        notifier = self.notifier
+        if notifier is not None:
+            try:
+                with db.write(conn):
+                    notifier.record_event(
+                        conn, DaemonEvent.STORE_RECOVERED, self.clock(), error=reason
+                    )
+            except sqlite3.Error as exc:
+                self.store_failed(exc)
+                return
+            notifier.write_event(DaemonEvent.STORE_RECOVERED, error_was=reason)
+            notifier.wake()
+        self.rescan.set("state store writable again")
 
     # -- reload ---------------------------------------------------------------------------------
 
@@ -404,9 +531,30 @@ class Daemon:
         pipeline = self.pipeline
         if pipeline is None:
             return
+        retry_s = STORE_RETRY_FIRST_S
         while not self.stop_event.is_set():
-            with db.write(pipeline.conn):
-                job = jobs.claim_next(pipeline.conn, self.clock())
+            if self.store_fault is not None:
+                try:
+                    with db.write(pipeline.conn):
+                        # Nothing is being measured here, so every "measuring" row is one whose
+                        # commit (or a start-up's re-queue) was refused: back to the queue.
+                        jobs.requeue_interrupted(pipeline.conn, self.clock())
+                        jobs.set_state(pipeline.conn, STORE_PROBE_KEY, f"{self.clock():.3f}")
+                except sqlite3.Error as exc:
+                    self.store_failed(exc)
+                    self.stop_event.wait(retry_s)
+                    retry_s = min(2 * retry_s, STORE_RETRY_MAX_S)
+                    continue
+                retry_s = STORE_RETRY_FIRST_S
+                self._store_recovered(pipeline.conn)
+            try:
+                with db.write(pipeline.conn):
+                    job = jobs.claim_next(pipeline.conn, self.clock())
+                if job is None:
+                    pipeline.flush_health_due()
+            except sqlite3.Error as exc:
+                self.store_failed(exc)
+                continue
             if job is None:
                 self.wake_worker.wait(0.5)
                 self.wake_worker.clear()
@@ -416,19 +564,24 @@ class Daemon:
             try:
                 if pipeline.process(job) is JobOutcome.REQUEUED and not self.stop_event.is_set():
                     self.stop_event.wait(5.0)  # the child could not start: do not spin
+            except sqlite3.Error as exc:
+                # The run's commit (or any write of the job) was refused: nothing of it is
+                # stored, so it is measured again once the store takes writes.
+                self.store_failed(exc)
             except Exception:
-                log.exception("run.failed", file=str(job.path))
+                log.exception("run.failed", file=shown(job.path))
                 try:
                     pipeline.fail(job, "internal error (see the daemon log)")
                 except sqlite3.Error:
-                    log.exception("run.failed", file=str(job.path))
+                    log.exception("run.failed", file=shown(job.path))
             finally:
                 self._busy_since = None
 
 
 def main(args: argparse.Namespace) -> int:
     """``ionwarden run -c CONFIG``: 0 after SIGTERM/SIGINT, 2 bad config, a store written by a
-    newer version or another daemon on the same state_dir, 3 unusable or lost store."""
+    newer version, a damaged store or another daemon on the same state_dir, 3 unusable or lost
+    store."""
     config = config_mod.load(Path(args.config))  # ConfigError -> exit 2 in cli.main
     found = preflight.problems(config)
     if found:
@@ -455,8 +608,9 @@ def main(args: argparse.Namespace) -> int:
     signal.signal(signal.SIGINT, on_stop)
     signal.signal(signal.SIGHUP, on_hup)
     try:
-        daemon.start()
-    except (StoreError, StoreTooNewError, ConfigError) as exc:
+        if not daemon.start_when_writable():
+            return 0
+    except (StoreError, StoreTooNewError, StoreCorruptError, ConfigError) as exc:
         log.error("daemon.failed", error=str(exc))
         raise
     return daemon.run()

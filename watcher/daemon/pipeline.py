@@ -1,8 +1,10 @@
 """One run through the daemon: hash, measure in a child with limits, judge, record, notify.
 
 The final write for a run is ONE transaction (verdict in the history, the alert step, job
-``done``), so a kill at any moment leaves the run either wholly unjudged (measured again after
-restart) or wholly judged; the health-log line is written after the commit and is idempotent.
+``done``, and the note that its health-log line is owed), so a kill at any moment leaves the run
+either wholly unjudged (measured again after restart) or wholly judged; the health-log line is
+written after the commit, idempotent, and stays owed until it is written: a health folder that
+cannot be written (permissions, a full disk) delays the line, it never loses it nor fails the job.
 Nothing slow happens inside a transaction: hashing, the child and judging come first.
 """
 
@@ -26,7 +28,7 @@ import structlog
 
 from watcher.daemon.child import HEADER, READY, frame
 from watcher.intake import folderwalk
-from watcher.records import RunFile, RunMetrics, Status, Verdict, run_time
+from watcher.records import DaemonEvent, RunFile, RunMetrics, Status, Verdict, run_time, shown
 from watcher.store import db, history, jobs
 
 if TYPE_CHECKING:
@@ -41,6 +43,7 @@ if TYPE_CHECKING:
 log = structlog.get_logger("watcher.daemon.pipeline")
 
 _HASH_CHUNK = 1 << 20
+HEALTH_RETRY_S = 5.0  # owed health lines are tried again this often while the folder refuses
 
 
 class JobOutcome(StrEnum):
@@ -244,6 +247,12 @@ class Pipeline:
     clock: Callable[[], float] = time.time
     last_file: str | None = None
     child: MeasuringChild = field(default_factory=MeasuringChild)
+    health_failing: bool = False  # the last try at the owed health lines failed
+    _health_retry_at: float = 0.0  # time.monotonic() of the next try while failing
+    # Lines written whose note is not struck off yet: that rides on the next run's commit (or an
+    # idle moment), not a transaction of its own, which would add an fsync to every run. A kill
+    # before it only re-offers lines the health log already holds (idempotent by run_key).
+    _written: list[int] = field(default_factory=list)
 
     def reconfigure(self, config: Config, notifier: Notifier) -> None:
         """Use a reloaded config and its notifier from the next job on (the job in flight keeps
@@ -258,7 +267,7 @@ class Pipeline:
     def process(self, job: jobs.Job) -> JobOutcome:
         """Take a claimed job to ``done`` (back to ``queued`` when stopping); returns outcome."""
         config = self.config
-        structlog.contextvars.bind_contextvars(job_id=job.id, file=str(job.path))
+        structlog.contextvars.bind_contextvars(job_id=job.id, file=shown(job.path))
         try:
             return self._process(config, job)
         except (Stopped, ChildStartError) as exc:
@@ -316,7 +325,15 @@ class Pipeline:
                 duplicate_of=twin.id,
                 sha256=sha256,
             )
-        log.info("run.duplicate", same_as=str(twin.path), run_id=twin.run_id)
+        log.info("run.duplicate", same_as=shown(twin.path), run_id=twin.run_id)
+        # Silent for alerts by design, but the health log shows that the file arrived.
+        self.notifier.write_event(
+            DaemonEvent.DUPLICATE,
+            file=shown(path.name),
+            path=shown(path),
+            duplicate_of=shown(twin.path.name),
+            run_id=twin.run_id,
+        )
         return JobOutcome.DUPLICATE
 
     def _measure(self, config: Config, job: jobs.Job) -> ChildResult:
@@ -353,9 +370,11 @@ class Pipeline:
                 run_id=run_id,
                 sha256=sha256,
             )
+            jobs.update_health_pending(self.conn, add=run_id, written=self._written)
+        self._written = []
         structlog.contextvars.bind_contextvars(run_id=run_id)
-        self.write_health(run_id)
-        self.last_file = job.path.name
+        self.flush_health()
+        self.last_file = shown(job.path.name)
         log.info(
             "run.judged",
             status=str(verdict.status),
@@ -365,14 +384,61 @@ class Pipeline:
         return JobOutcome.JUDGED
 
     def write_health(self, run_id: int) -> None:
-        """The health-log line, after the commit; idempotent by run_id.
+        """The health-log line, after the commit; idempotent by the run's file identity.
 
         Built from the run as stored, not from the verdict in memory, so that the line written
         now and the one re-offered after a restart (``resume_health_lines``) are the same.
+
+        Raises:
+            OSError: the health folder or the day's file cannot be written.
         """
         row = history.get_run(self.conn, run_id)
         if row is not None:
             self.notifier.write_stored_health(row)
+
+    def flush_health(self) -> int:
+        """Write the owed health lines, oldest first (struck off later: ``_written``); returns
+        how many are still owed. Stops at the first that fails: the folder refuses them all."""
+        pending = [r for r in jobs.health_pending(self.conn) if r not in self._written]
+        written: list[int] = []
+        error: OSError | None = None
+        for run_id in pending:
+            try:
+                self.write_health(run_id)
+            except OSError as exc:
+                error = exc
+                break
+            written.append(run_id)
+        self._written.extend(written)
+        owed = len(pending) - len(written)
+        if error is not None:
+            self._health_retry_at = time.monotonic() + HEALTH_RETRY_S
+            if not self.health_failing:  # once per outage, not every retry
+                log.warning(
+                    "healthlog.write_failed",
+                    error=shown(f"{error.strerror or error}: {error.filename or ''}"),
+                    owed=owed,
+                    retry_every_s=HEALTH_RETRY_S,
+                )
+            self.health_failing = True
+        elif self.health_failing:
+            log.info("healthlog.caught_up", lines=len(written))
+            self.health_failing = False
+        return owed
+
+    def flush_health_due(self) -> None:
+        """From the worker's idle loop: try the owed lines again once the retry wait passed,
+        and strike off the lines written since the last commit."""
+        if self.health_failing and time.monotonic() >= self._health_retry_at:
+            self.flush_health()
+        self.strike_written()
+
+    def strike_written(self) -> None:
+        """Strike the written lines off the note now (idle, start-up), in one transaction."""
+        if self._written:
+            with db.write(self.conn):
+                jobs.update_health_pending(self.conn, written=self._written)
+            self._written = []
 
     def _judge(self, config: Config, run_file: RunFile, result: ChildResult) -> Verdict:
         judged_at = datetime.fromtimestamp(self.clock(), UTC)
@@ -420,8 +486,13 @@ class Pipeline:
         return JobOutcome.SKIPPED
 
     def resume_health_lines(self) -> int:
-        """Start-up: re-offer the newest health lines (a kill may have cut one off)."""
-        run_ids = jobs.recent_judged(self.conn)
-        for run_id in reversed(run_ids):
-            self.write_health(run_id)
-        return len(run_ids)
+        """Start-up: write the owed health lines, and re-offer the newest ones (a store from
+        before the owed-lines note: a kill may have cut one off); returns how many are owed."""
+        for run_id in reversed(jobs.recent_judged(self.conn)):
+            try:
+                self.write_health(run_id)
+            except OSError:
+                break  # flush_health below reports the folder and keeps what is owed
+        owed = self.flush_health()
+        self.strike_written()
+        return owed

@@ -119,13 +119,30 @@ def send(
             path = Path(tmp) / (message.attachment_name or "attachment.bin")
             path.write_bytes(message.attachment)
             attach = str(path)
-        result = target.apobj.notify(
-            body=message.body,
+        return send_text(
+            target,
             title=message.title,
+            body=message.body,
             notify_type=message.notify_type,
+            timeout_s=timeout_s,
             attach=attach,
-            timeout=timeout_s,
         )
+
+
+def send_text(
+    target: Target,
+    *,
+    title: str,
+    body: str,
+    notify_type: str,
+    timeout_s: float,
+    attach: str | None = None,
+) -> tuple[bool, str]:
+    """One notify() call of a message that is not in the outbox (the store cannot be written:
+    ``Notifier.send_direct``); returns (delivered, outcome word)."""
+    result = target.apobj.notify(
+        body=body, title=title, notify_type=notify_type, attach=attach, timeout=timeout_s
+    )
     status = getattr(result, "status", None)
     word = getattr(status, "name", None) or ("SUCCESS" if result else "FAILURE")
     return bool(result), str(word)

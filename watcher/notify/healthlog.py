@@ -1,14 +1,17 @@
 """The health log: one JSON-lines file per day (instrument time zone), written only by the daemon.
 
 Each record is one whole line appended with a single ``os.write`` on an ``O_APPEND`` descriptor
-and fsynced, so a crash leaves whole lines only. Run records are idempotent by ``run_id``: the
-day's file is read once for the ids it holds, then a small in-memory set answers. A run record
-is built by ``run_record`` from a stored run (``history.RunRow``) or from a fresh ``Verdict``
-with the same result, so a line re-offered after a restart equals the one it stands for.
+and fsynced, so a crash leaves whole lines only. Run records are idempotent by ``run_key``, a hash
+of the run's file identity and content (path, size, mtime_ns, sha256): the day's file is read
+once for the keys it holds, then a small in-memory set answers. Not by ``run_id``: run ids start
+again at 1 in a re-created store, and a new run must not be taken for an old one's line. A run
+record is built by ``run_record`` from a stored run (``history.RunRow``) or from a fresh
+``Verdict`` with the same result, so a line re-offered after a restart equals the one it stands for.
 """
 
 from __future__ import annotations
 
+import hashlib
 import json
 import math
 import os
@@ -19,6 +22,8 @@ from datetime import date, datetime, timedelta
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 from zoneinfo import ZoneInfo
+
+from watcher.records import shown
 
 if TYPE_CHECKING:
     from collections.abc import Callable
@@ -33,9 +38,20 @@ def file_name(day: date) -> str:
     return f"health-{day.isoformat()}.jsonl"
 
 
+def run_key(path: str, size: int, mtime_ns: int, sha256: str | None) -> str:
+    """What identifies a run's health-log line across stores: the file identity and content.
+
+    The same file judged again (a restart, a re-created store) gives the same key, so its line
+    is not repeated; any other file gives another key, whatever run id a new store hands out.
+    """
+    identity = f"{path}\0{size}\0{mtime_ns}\0{sha256 or ''}"
+    return hashlib.sha256(identity.encode("utf-8", "surrogateescape")).hexdigest()[:32]
+
+
 def run_record(
     *,
     run_id: int,
+    key: str,
     path: str,
     judged_at: datetime,
     status: Status,
@@ -51,8 +67,9 @@ def run_record(
     return {
         "type": "run",
         "run_id": run_id,
-        "file": Path(path).name,
-        "path": path,
+        "run_key": key,
+        "file": shown(Path(path).name),  # undecodable bytes as \\xNN: the line stays ASCII JSON
+        "path": shown(path),
         "time": judged_at.isoformat(),
         "status": str(status),
         "error": error,
@@ -65,6 +82,7 @@ def stored_run_record(row: RunRow) -> dict[str, Any]:
     """The record of a run as the store holds it (the start-up replay after a kill)."""
     return run_record(
         run_id=row.run_id,
+        key=run_key(row.path, row.size, row.mtime_ns, row.sha256),
         path=row.path,
         judged_at=row.judged_at,
         status=row.status,
@@ -103,7 +121,8 @@ class HealthLog:
         self.keep_days = keep_days
         self._clock = clock
         self._lock = threading.Lock()  # the delivery worker logs events too
-        self._run_ids: dict[date, set[int]] = {}
+        # Per day: the run keys written, and (run_id, path) of lines written before run_key was.
+        self._seen: dict[date, tuple[set[str], set[tuple[int, str]]]] = {}
 
     def path_for(self, day: date) -> Path:
         return self.directory / file_name(day)
@@ -112,14 +131,16 @@ class HealthLog:
         return at.astimezone(self._tz).date()
 
     def write_run(self, verdict: Verdict, run_id: int) -> bool:
-        """Append the run's record unless its ``run_id`` is already in that day's file.
+        """Append the run's record unless its ``run_key`` is already in that day's file.
 
         Returns:
             True when a line was written.
         """
         judged = verdict.judged_at or datetime.fromtimestamp(self._clock()).astimezone()
+        run_file = verdict.run_file
         record = run_record(
             run_id=run_id,
+            key=run_key(str(run_file.path), run_file.size, run_file.mtime_ns, run_file.sha256),
             path=str(verdict.run_file.path),
             judged_at=judged,
             status=verdict.status,
@@ -127,19 +148,19 @@ class HealthLog:
             metrics=verdict.metrics.flat() if verdict.metrics is not None else {},
             findings=verdict.findings,
         )
-        return self._write_run_record(self._day(judged), run_id, record)
+        return self._write_run_record(self._day(judged), record)
 
     def write_stored_run(self, row: RunRow) -> bool:
         """``write_run`` for a run read back from the store; True when a line was written."""
-        return self._write_run_record(self._day(row.judged_at), row.run_id, stored_run_record(row))
+        return self._write_run_record(self._day(row.judged_at), stored_run_record(row))
 
-    def _write_run_record(self, day: date, run_id: int, record: dict[str, Any]) -> bool:
+    def _write_run_record(self, day: date, record: dict[str, Any]) -> bool:
         with self._lock:
-            seen = self._ids_of(day)
-            if run_id in seen:
+            keys, legacy = self._keys_of(day)
+            if record["run_key"] in keys or (record["run_id"], record["path"]) in legacy:
                 return False
             self._append(day, record)
-            seen.add(run_id)
+            keys.add(record["run_key"])
         return True
 
     def write_event(self, kind: str, **fields: object) -> None:
@@ -167,13 +188,14 @@ class HealthLog:
                 path.unlink(missing_ok=True)
                 removed.append(path)
         with self._lock:
-            for day in [d for d in self._run_ids if d < oldest_kept]:
-                del self._run_ids[day]
+            for day in [d for d in self._seen if d < oldest_kept]:
+                del self._seen[day]
         return removed
 
-    def _ids_of(self, day: date) -> set[int]:
-        if day not in self._run_ids:
-            ids: set[int] = set()
+    def _keys_of(self, day: date) -> tuple[set[str], set[tuple[int, str]]]:
+        if day not in self._seen:
+            keys: set[str] = set()
+            legacy: set[tuple[int, str]] = set()
             path = self.path_for(day)
             if path.exists():
                 for line in path.read_text(encoding="utf-8").splitlines():
@@ -181,10 +203,16 @@ class HealthLog:
                         record = json.loads(line)
                     except json.JSONDecodeError:
                         continue  # a line cut by a full disk; whole-line appends make it rare
-                    if record.get("type") == "run" and isinstance(record.get("run_id"), int):
-                        ids.add(record["run_id"])
-            self._run_ids[day] = ids
-        return self._run_ids[day]
+                    if record.get("type") != "run":
+                        continue
+                    if isinstance(record.get("run_key"), str):
+                        keys.add(record["run_key"])
+                    elif isinstance(record.get("run_id"), int):
+                        # Written before run_key: the run id alone repeats in a new store, the
+                        # path with it does not for the runs a restart re-offers.
+                        legacy.add((record["run_id"], str(record.get("path"))))
+            self._seen[day] = (keys, legacy)
+        return self._seen[day]
 
     def _append(self, day: date, record: dict[str, Any]) -> None:
         self.directory.mkdir(parents=True, exist_ok=True)

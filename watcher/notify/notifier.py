@@ -18,7 +18,7 @@ import structlog
 from watcher.notify import alert_state as machine
 from watcher.notify.alert_text import Item, Text, compose
 from watcher.notify.healthlog import HealthLog
-from watcher.records import AlertAction, DaemonEvent, Finding, Severity, Status, Verdict
+from watcher.records import AlertAction, DaemonEvent, Finding, Severity, Status, Verdict, shown
 from watcher.store import db, jobs, outbox
 
 if TYPE_CHECKING:
@@ -139,7 +139,7 @@ class Notifier:
         findings = list(verdict.findings)
         if not readable:
             findings.append(unreadable_finding(verdict))
-        file_name = verdict.run_file.path.name
+        file_name = shown(verdict.run_file.path.name)  # alert text and the alert row
         configured = {c.name for c in self.config.checks}
         # The verdict's time is the acquisition time, else the file's mtime, else the judgement
         # (``watcher.records.run_time``); the message says which one it shows.
@@ -219,6 +219,25 @@ class Notifier:
                         items=items,
                     )
                     self._enqueue(conn, channel, "event", f"{kind}:{now_s:.3f}", now_s, text, items)
+        elif kind == DaemonEvent.STORE_RECOVERED:
+            title = f"{self.config.instrument.name}: state store writable again"
+            body = (
+                "The state database can be written again; runs that arrived meanwhile are "
+                f"judged now. It had failed with: {fields.get('error') or 'see the daemon log'}"
+            )
+            for channel in self.config.alerts.channels:
+                if Severity.CRITICAL.rank < channel.min_severity.rank:
+                    continue  # the channels that got the direct "not writable" alert
+                outbox.enqueue(
+                    conn,
+                    channel=channel.name,
+                    kind="event",
+                    ref=f"{kind}:{now_s:.3f}",
+                    created_at_s=now_s,
+                    title=title,
+                    body=body[:1000],
+                    notify_type="success",
+                )
         elif kind == DaemonEvent.CONFIG_REJECTED:
             problem = str(fields.get("error") or fields.get("problems") or "see the daemon log")
             title = f"{self.config.instrument.name}: config reload rejected"
@@ -249,9 +268,52 @@ class Notifier:
         self.health.write_stored_run(row)
         self.wake()
 
-    def write_event(self, kind: DaemonEvent, **fields: object) -> None:
-        """One daemon event in the health log."""
-        self.health.write_event(kind, **fields)
+    def write_event(self, kind: DaemonEvent | str, **fields: object) -> None:
+        """One daemon event in the health log, best effort: a health folder that cannot be
+        written (permissions, a full disk) must not stop a start, a stop or a delivery; the
+        runs' own lines are owed and retried by the pipeline instead."""
+        try:
+            self.health.write_event(kind, **fields)
+        except OSError as exc:
+            log.warning(
+                "healthlog.write_failed",
+                event_kind=str(kind),
+                error=shown(f"{exc.strerror or exc}: {exc.filename or ''}"),
+            )
+
+    def send_direct(self, title: str, body: str, *, notify_type: str = "failure") -> None:
+        """Send one message to every channel now, past the outbox, in a thread of its own.
+
+        For the one alert the outbox cannot carry: "the state store is not writable" (a full
+        disk, a file-size limit). Queuing it would need the very write that fails, so it goes
+        straight to apprise, once, without retries; the daemon log and the systemd STATUS=
+        line say the same, and the outbox carries the "writable again" message once it works.
+        """
+        from watcher.notify import deliver
+
+        channels = [
+            c for c in self.config.alerts.channels if Severity.CRITICAL.rank >= c.min_severity.rank
+        ]
+
+        def run() -> None:
+            for channel in channels:
+                try:
+                    target = deliver.make_target(channel, self.config.alerts)
+                    ok, word = deliver.send_text(
+                        target,
+                        title=title,
+                        body=body,
+                        notify_type=notify_type,
+                        timeout_s=self.config.alerts.timeout_s,
+                    )
+                except Exception as exc:  # a failed direct send must not take a thread down
+                    ok, word = False, repr(exc)
+                if ok:
+                    log.info("message.delivered", channel=channel.name, message_kind="direct")
+                else:
+                    log.warning("message.failed", channel=channel.name, error=f"direct: {word}")
+
+        threading.Thread(target=run, name="ionwarden-direct-alert", daemon=True).start()
 
     def wake(self) -> None:
         """Tell the delivery worker that new messages were committed."""

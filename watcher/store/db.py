@@ -7,12 +7,13 @@ a read snapshot to a write fails at once with "database is locked", whatever the
 
 from __future__ import annotations
 
+import os
 import sqlite3
-from contextlib import contextmanager
+from contextlib import contextmanager, suppress
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-from watcher.errors import StoreError, StoreTooNewError
+from watcher.errors import StoreCorruptError, StoreError, StoreTooNewError
 from watcher.store import migrations
 
 if TYPE_CHECKING:
@@ -32,6 +33,26 @@ SCHEMAS: dict[str, str] = {}
 def register_schema(owner: str, sql: str) -> None:
     """Declare the version-1 tables a store module owns; a new database is created with them."""
     SCHEMAS[owner] = sql
+
+
+def path_value(path: Path | str) -> str | bytes:
+    """How a file path is stored: text when it is valid UTF-8, else its bytes (``os.fsencode``).
+
+    sqlite3 binds text as strict UTF-8, so a name with undecodable bytes (surrogates in Python)
+    is bound as a BLOB instead: lossless, and the same path always gives the same value, so the
+    identity lookups (``path = ?``, UNIQUE) still match. Valid names stay TEXT, as before.
+    """
+    text = str(path)
+    try:
+        text.encode("utf-8")
+    except UnicodeEncodeError:
+        return os.fsencode(text)
+    return text
+
+
+def path_text(value: str | bytes) -> str:
+    """The inverse of ``path_value``: the path as Python names it (``os.fsdecode`` of bytes)."""
+    return os.fsdecode(value) if isinstance(value, bytes) else value
 
 
 MOUNTINFO = Path("/proc/self/mountinfo")  # Linux; proc(5) gives the line format
@@ -87,6 +108,8 @@ def connect(state_dir: Path, *, daemon: bool = False, readonly: bool = False) ->
             a reader, also a database not yet upgraded by the daemon.
         StoreTooNewError: the database was written by a newer ionwarden (its schema version is
             above ``SCHEMA_VERSION``).
+        StoreCorruptError: the file is not an SQLite database, or ``PRAGMA quick_check`` finds
+            it damaged (checked at every open, before anything is written to it).
     """
     fs_type = filesystem_type(state_dir if state_dir.exists() else state_dir.parent)
     if is_network_fs(fs_type):
@@ -118,13 +141,15 @@ def connect(state_dir: Path, *, daemon: bool = False, readonly: bool = False) ->
         conn.row_factory = sqlite3.Row
         conn.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS}")
         conn.execute("PRAGMA foreign_keys = ON")
+        # Before journal_mode or an upgrade writes anything: a damaged file is left as found.
+        _quick_check(conn, path)
         if not readonly:
             conn.execute("PRAGMA journal_mode = WAL")
             conn.execute(f"PRAGMA synchronous = {'FULL' if daemon else 'NORMAL'}")
             upgrade(conn, path)
         else:
             _check_readable(conn, path)
-    except (StoreError, StoreTooNewError):
+    except (StoreError, StoreTooNewError, StoreCorruptError):
         if conn is not None:
             conn.close()
         raise
@@ -137,7 +162,31 @@ def connect(state_dir: Path, *, daemon: bool = False, readonly: bool = False) ->
                 "make the folder group-writable for readers)"
             ) from exc
         raise StoreError(f"state database {path}: {exc}") from exc
+    except sqlite3.DatabaseError as exc:  # "file is not a database", "disk image is malformed"
+        if conn is not None:
+            conn.close()
+        raise StoreCorruptError(path, str(exc)) from exc
     return conn
+
+
+def _quick_check(conn: sqlite3.Connection, path: Path) -> None:
+    """``PRAGMA quick_check``: the b-tree structure of every page, without the index contents
+    that ``integrity_check`` compares (linear in the file size, a fraction of a second for a
+    year of runs). A new, empty file passes."""
+    rows = conn.execute("PRAGMA quick_check(1)").fetchall()
+    first = str(rows[0][0]) if rows else "no answer from quick_check"
+    if first != "ok":
+        raise StoreCorruptError(path, first)
+
+
+def refuses_writes(exc: BaseException | None) -> bool:
+    """True for SQLite's "cannot write now" errors: a full disk (SQLITE_FULL) or a failed write
+    (SQLITE_IOERR_*: EFBIG past a file-size limit, ENOSPC on the -shm file). They pass when
+    space returns, unlike a permission or a damaged file."""
+    if not isinstance(exc, sqlite3.Error):
+        return False
+    name = str(getattr(exc, "sqlite_errorname", ""))
+    return name == "SQLITE_FULL" or name.startswith("SQLITE_IOERR")
 
 
 @contextmanager
@@ -146,10 +195,14 @@ def write(conn: sqlite3.Connection) -> Iterator[sqlite3.Connection]:
     conn.execute("BEGIN IMMEDIATE")
     try:
         yield conn
+        # Inside the try: COMMIT is where a full disk shows (the WAL frames are written then),
+        # and a transaction left open would refuse every later BEGIN on this connection.
+        conn.execute("COMMIT")
     except BaseException:
-        conn.execute("ROLLBACK")
+        if conn.in_transaction:  # SQLite may have rolled back already (an I/O error)
+            with suppress(sqlite3.Error):
+                conn.execute("ROLLBACK")
         raise
-    conn.execute("COMMIT")
 
 
 @contextmanager

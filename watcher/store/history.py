@@ -24,8 +24,8 @@ from datetime import UTC, datetime
 from typing import TYPE_CHECKING, Any
 
 from watcher.config import matches_applies_to
-from watcher.records import Finding, HistoryPoint, Severity, Status, TrendState, Verdict
-from watcher.store.db import register_schema
+from watcher.records import Finding, HistoryPoint, Severity, Status, TrendState, Verdict, shown
+from watcher.store.db import path_text, path_value, register_schema
 
 if TYPE_CHECKING:
     import sqlite3
@@ -85,6 +85,9 @@ class RunRow:
     run_id: int
     file_name: str
     path: str
+    size: int
+    mtime_ns: int
+    sha256: str  # '' when the file could not be hashed
     acquired_at: datetime
     judged_at: datetime
     status: Status
@@ -125,8 +128,8 @@ def record_verdict(conn: sqlite3.Connection, verdict: Verdict) -> int:
         RETURNING run_id
         """,
         (
-            str(run_file.path),
-            run_file.path.name,
+            path_value(run_file.path),
+            path_value(run_file.path.name),
             run_file.size,
             run_file.mtime_ns,
             run_file.sha256 or "",
@@ -134,7 +137,7 @@ def record_verdict(conn: sqlite3.Connection, verdict: Verdict) -> int:
             acquired_text,
             to_text(judged_at),
             str(verdict.status),
-            verdict.error,
+            None if verdict.error is None else shown(verdict.error),  # may quote the file name
             verdict.error_kind,
             json.dumps([f.to_dict() for f in verdict.findings]),
             json.dumps(flat),
@@ -187,21 +190,25 @@ def _finding(d: dict[str, Any]) -> Finding:
 
 
 _RUN_COLUMNS = (
-    "run_id, file_name, path, acquired_at, judged_at, status, error, findings_json, metrics_json"
+    "run_id, file_name, path, acquired_at, judged_at, status, error, findings_json, metrics_json,"
+    " size, mtime_ns, sha256"
 )
 
 
 def _run_row(r: sqlite3.Row | tuple[Any, ...]) -> RunRow:
     return RunRow(
         run_id=int(r[0]),
-        file_name=r[1],
-        path=r[2],
+        file_name=path_text(r[1]),
+        path=path_text(r[2]),
         acquired_at=from_text(r[3]),
         judged_at=from_text(r[4]),
         status=Status(r[5]),
         error=r[6],
         findings=tuple(_finding(d) for d in json.loads(r[7])),
         metrics=json.loads(r[8]),
+        size=int(r[9]),
+        mtime_ns=int(r[10]),
+        sha256=r[11],
     )
 
 
@@ -238,7 +245,7 @@ def _point(r: sqlite3.Row | tuple[Any, ...]) -> HistoryPoint:
     if value is not None and r[3]:
         value = bool(value)
     return HistoryPoint(
-        file_name=r[0], acquired_at=from_text(r[1]), value=value, status=Status(r[4])
+        file_name=path_text(r[0]), acquired_at=from_text(r[1]), value=value, status=Status(r[4])
     )
 
 

@@ -9,12 +9,13 @@ parses, hashes or sends anything.
 
 from __future__ import annotations
 
+import json
 from dataclasses import dataclass
 from enum import StrEnum
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-from watcher.store.db import register_schema
+from watcher.store.db import path_text, path_value, register_schema
 from watcher.store.rows import columns, from_row
 
 if TYPE_CHECKING:
@@ -77,7 +78,7 @@ class Job:
 
 
 def _job(row: sqlite3.Row) -> Job:
-    return from_row(Job, row, path=Path(row["path"]), state=JobState(row["state"]))
+    return from_row(Job, row, path=Path(path_text(row["path"])), state=JobState(row["state"]))
 
 
 _COLUMNS = columns(Job)
@@ -101,7 +102,7 @@ def enqueue(
         "INSERT OR IGNORE INTO jobs"
         " (path, size, mtime_ns, state, first_seen_s, updated_s, incomplete)"
         " VALUES (?, ?, ?, 'queued', ?, ?, ?)",
-        (str(path), size, mtime_ns, now_s, now_s, incomplete),
+        (path_value(path), size, mtime_ns, now_s, now_s, incomplete),
     )
     return cur.lastrowid if cur.rowcount == 1 else None
 
@@ -110,7 +111,7 @@ def known(conn: sqlite3.Connection, path: Path, size: int, mtime_ns: int) -> boo
     """True when this exact identity already has a row (any state)."""
     row = conn.execute(
         "SELECT 1 FROM jobs WHERE path = ? AND size = ? AND mtime_ns = ?",
-        (str(path), size, mtime_ns),
+        (path_value(path), size, mtime_ns),
     ).fetchone()
     return row is not None
 
@@ -118,7 +119,7 @@ def known(conn: sqlite3.Connection, path: Path, size: int, mtime_ns: int) -> boo
 def known_identities(conn: sqlite3.Connection) -> set[tuple[str, int, int]]:
     """Every (path, size, mtime_ns) in the table, for reconciling a folder scan in one query."""
     rows = conn.execute("SELECT path, size, mtime_ns FROM jobs").fetchall()
-    return {(r[0], r[1], r[2]) for r in rows}
+    return {(path_text(r[0]), r[1], r[2]) for r in rows}
 
 
 def requeue_interrupted(conn: sqlite3.Connection, now_s: float) -> int:
@@ -195,6 +196,21 @@ def recent_judged(conn: sqlite3.Connection, limit: int = 3) -> list[int]:
     return [int(r[0]) for r in rows]
 
 
+def recent(conn: sqlite3.Connection, *, limit: int = 10) -> list[tuple[Job, Path | None]]:
+    """The last ``limit`` jobs changed, newest first, each with the path of the job it
+    duplicates (None when it is no copy): what ``status`` shows as files that arrived."""
+    prefixed = ", ".join(f"j.{name.strip()}" for name in _COLUMNS.split(","))
+    rows = conn.execute(
+        f"SELECT {prefixed}, t.path AS twin_path FROM jobs AS j"  # noqa: S608 - constant columns
+        " LEFT JOIN jobs AS t ON t.id = j.duplicate_of"
+        " ORDER BY j.updated_s DESC, j.id DESC LIMIT ?",
+        (limit,),
+    ).fetchall()
+    return [
+        (_job(r), None if r["twin_path"] is None else Path(path_text(r["twin_path"]))) for r in rows
+    ]
+
+
 def finished_before(conn: sqlite3.Connection, before_s: float) -> list[Job]:
     """Jobs ``done`` or ``failed`` whose last change is older than ``before_s``, oldest first
     (the candidates for pruning; read by the index on ``updated_s`` of schema version 2)."""
@@ -259,3 +275,25 @@ def set_state(conn: sqlite3.Connection, key: str, value: str) -> None:
         " ON CONFLICT (key) DO UPDATE SET value = excluded.value",
         (key, value),
     )
+
+
+HEALTH_PENDING_KEY = "health_pending"
+
+
+def health_pending(conn: sqlite3.Connection) -> list[int]:
+    """Run ids whose health-log line is committed to be written but not yet known written."""
+    text = get_state(conn, HEALTH_PENDING_KEY)
+    return [int(v) for v in json.loads(text)] if text else []
+
+
+def update_health_pending(
+    conn: sqlite3.Connection, *, add: int | None = None, written: Sequence[int] = ()
+) -> None:
+    """Note a run's line as owed (``add``, in the transaction that commits the run: the note
+    survives a health folder that cannot be written, a full disk and a kill) and strike off the
+    runs whose lines are ``written``; one read and one write of the note."""
+    done = set(written)
+    pending = [r for r in health_pending(conn) if r not in done]
+    if add is not None and add not in pending:
+        pending.append(add)
+    set_state(conn, HEALTH_PENDING_KEY, json.dumps(pending))
