@@ -143,12 +143,14 @@ def bench_slow_copy(root: Path, template: bytes, runs: int, settle_s: float) -> 
         name = f"QC_slow_{i:03d}.mzML"
         data = _variant(template, 1000 + i)
         step = len(data) // 8 + 1
+        last_write = time.monotonic()
         with (exports / name).open("wb") as out:
             for k in range(0, len(data), step):
+                if k:
+                    time.sleep(0.2)
                 out.write(data[k : k + step])
                 out.flush()
-                time.sleep(0.2)
-        last_write = time.monotonic()
+                last_write = time.monotonic()
         _wait(lambda n=name: _health_has(root, n), 60, f"health line of {name}")
         latencies.append(time.monotonic() - last_write)
     measured = [
