@@ -35,7 +35,7 @@ def test_status_exit_0_when_quiet_and_1_with_open_alert(tmp_path: Path) -> None:
     db.connect(state).close()
     quiet = _status(cfg)
     assert quiet.returncode == 0, quiet.stderr
-    assert "open alerts: 0" in quiet.stdout
+    assert "open problems: 0" in quiet.stdout
 
     conn = db.connect(state)
     finding = Finding(

@@ -6,6 +6,7 @@ failure modes measured on this machine); run files come from the project's synth
 
 from __future__ import annotations
 
+import json
 import os
 import random
 import re
@@ -13,10 +14,11 @@ import shutil
 import signal
 import time
 from collections import Counter
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import pytest
 
+from tests.helpers.cli import run_cli
 from tests.helpers.daemon import SETTLE_S, Lab
 from tests.helpers.wait import wait_for
 
@@ -280,4 +282,50 @@ def test_heartbeat_missed_once_then_resumed(lab: Lab, receiver: Receiver) -> Non
     lab.drop("QC_back.mzML", 1)
     wait_for(lambda: "heartbeat.resumed" in kinds(), 10, "heartbeat.resumed")
     assert kinds().count("heartbeat.missed") == 1
+    assert d.stop() == 0
+
+
+def test_status_lists_waiting_files_and_one_line_per_open_problem(
+    lab: Lab, receiver: Receiver
+) -> None:
+    """A cut-off export waiting to be called stalled shows under 'waiting files' with how long it
+    has been unchanged; a bad run alerted on two channels is one open problem naming both."""
+    lab.write_config(
+        watch={"stall_s": 600},
+        calibrants=[{"name": "siloxane-445", "mz": 445.120025, "search_ppm": 30}],
+        checks=[
+            {
+                "name": "signal present",
+                "metric": "signal.tic_median",
+                "critical": {"above": 0},
+            }
+        ],
+        alerts={
+            "channels": [
+                {"name": "lab-chat", "url": receiver.url()},
+                {"name": "manager", "url": receiver.url("manager")},
+            ]
+        },
+    )
+    d = lab.start()
+    data = lab.run_bytes(1)
+    (lab.exports / "QC_cut.mzML").write_bytes(data[: len(data) // 2])
+    lab.drop("QC_bad.mzML", 2)
+    lab.wait_runs(1)
+
+    def status() -> dict[str, Any]:
+        out = run_cli("status", "--json", "-c", lab.config, cwd=lab.root)
+        return json.loads(out.stdout)
+
+    wait_for(lambda: status()["waiting_files"], 15, "the cut file among the waiting files")
+    state = status()
+    (waiting,) = state["waiting_files"]
+    assert waiting["file"].endswith("QC_cut.mzML")
+    assert waiting["why"].startswith("incomplete:")
+    (problem,) = state["open_problems"]
+    assert problem["check"] == "signal present"
+    assert sorted(problem["channels"]) == ["lab-chat", "manager"]
+    text = run_cli("status", "-c", lab.config, cwd=lab.root).stdout
+    assert "QC_cut.mzML  incomplete:" in text
+    assert text.count("signal present, ") == 1
     assert d.stop() == 0

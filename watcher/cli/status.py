@@ -38,6 +38,7 @@ def collect(config: Config, state_dir: Path, *, now_s: float) -> dict[str, Any]:
             runs = history.recent_runs(conn, limit=LAST_RUNS)
             files = jobs.recent(conn, limit=LAST_RUNS)
             alerts = outbox.load_alerts(conn)
+            waiting_text = jobs.get_state(conn, "intake.waiting")
             waiting = outbox.messages(
                 conn, statuses=(outbox.DeliveryStatus.PENDING, outbox.DeliveryStatus.ABANDONED)
             )
@@ -77,6 +78,8 @@ def collect(config: Config, state_dir: Path, *, now_s: float) -> dict[str, Any]:
             }
             for job, twin in files
         ],
+        "open_problems": _open_problems(alerts, local),
+        "waiting_files": _waiting(waiting_text, now_s),
         "open_alerts": [
             {
                 "channel": a.channel,
@@ -111,6 +114,63 @@ def collect(config: Config, state_dir: Path, *, now_s: float) -> dict[str, Any]:
     }
 
 
+def _open_problems(alerts: list[Any], local: Any) -> list[dict[str, Any]]:
+    """One entry per open (check, subject), whichever channels hold it: what, how bad, since
+    when, the run that raised it, and the value it was at."""
+    from watcher.notify.alert_text import format_value
+
+    merged: dict[tuple[str, str], dict[str, Any]] = {}
+    for a in alerts:
+        key = (a.check, a.subject)
+        finding = a.state.finding
+        entry = merged.get(key)
+        if entry is None:
+            subject = a.subject.split(".")[1] if a.subject.count(".") >= 2 else a.subject
+            entry = merged[key] = {
+                "check": a.check,
+                "subject": subject,
+                "severity": str(a.state.severity),
+                "value": format_value(finding.value),
+                "since": local(a.state.raised_at_s),
+                "since_s": a.state.raised_at_s,
+                "run_file": None if a.run_file is None else shown(a.run_file),
+                "channels": [],
+            }
+        entry["channels"].append(a.channel)
+        if a.state.raised_at_s < entry["since_s"]:
+            entry["since"], entry["since_s"] = local(a.state.raised_at_s), a.state.raised_at_s
+    return [{k: v for k, v in e.items() if k != "since_s"} for e in merged.values()]
+
+
+def _waiting(text: str | None, now_s: float) -> list[dict[str, Any]]:
+    """The daemon's list of files still settling, with ages in seconds from now."""
+    if not text:
+        return []
+    try:
+        items = json.loads(text)
+    except ValueError:
+        return []
+    return [
+        {
+            "file": shown(str(i.get("file", "?"))),
+            "size": i.get("size"),
+            "why": str(i.get("why", "settling")),
+            "unchanged_s": max(0.0, now_s - float(i.get("last_change_s", now_s))),
+            "seen_s": max(0.0, now_s - float(i.get("first_seen_s", now_s))),
+        }
+        for i in items
+        if isinstance(i, dict)
+    ]
+
+
+def _age(seconds: float) -> str:
+    if seconds < 120:
+        return f"{seconds:.0f} s"
+    if seconds < 7200:
+        return f"{seconds / 60:.0f} min"
+    return f"{seconds / 3600:.1f} h"
+
+
 def render(state: dict[str, Any]) -> str:
     """The human view of ``collect()``."""
     lines = [f"{state['instrument']} (state: {state['state_dir']})", "", "last runs:"]
@@ -127,11 +187,20 @@ def render(state: dict[str, Any]) -> str:
     for f in state["recent_files"]:
         what = f["note"] or f["outcome"] or f["state"]
         lines.append(f"  {f['seen']}  {f['file']}  {what}")
-    lines += ["", f"open alerts: {len(state['open_alerts'])}"]
-    for a in state["open_alerts"]:
+    lines += ["", "waiting files:"]
+    if not state["waiting_files"]:
+        lines.append("  (none)")
+    for w in state["waiting_files"]:
         lines.append(
-            f"  [{a['channel']}] {a['severity']:<8} {a['check']} ({a['subject']}) "
-            f"since {a['since']}"
+            f"  {w['file']}  {w['why']}, unchanged for {_age(w['unchanged_s'])}"
+            f" (seen {_age(w['seen_s'])} ago)"
+        )
+    lines += ["", f"open problems: {len(state['open_problems'])}"]
+    for p in state["open_problems"]:
+        run = f", {p['run_file']}" if p["run_file"] else ""
+        lines.append(
+            f"  {p['severity']:<8} {p['check']}, {p['subject']}: {p['value']} since {p['since']}"
+            f"{run} [{', '.join(p['channels'])}]"
         )
     lines += ["", f"undelivered messages: {len(state['undelivered'])}"]
     for m in state["undelivered"]:

@@ -11,6 +11,7 @@ watchdog, and only while the observer lives and the worker makes progress.
 from __future__ import annotations
 
 import contextlib
+import json
 import os
 import queue
 import signal
@@ -50,6 +51,7 @@ log = structlog.get_logger("watcher.daemon")
 
 TICK_S = 0.1
 STATUS_EVERY_S = 2.0
+WAITING_KEY = "intake.waiting"  # JSON list of the files still settling (``Settler.waiting``)
 NOTIFY_TICK_EVERY_S = 1.0
 CHECKPOINT_EVERY_S = 3600.0
 PRUNE_EVERY_S = 86400.0  # store retention is in days: once at start-up, then daily
@@ -82,6 +84,7 @@ class Daemon:
         self._busy_limit_s = 0.0
         self._last_scan = 0.0
         self._last_status = 0.0
+        self._waiting_published: str | None = None
         self._last_notify_tick = 0.0
         self._last_checkpoint = 0.0
         self._last_prune_s: float | None = None
@@ -423,6 +426,7 @@ class Daemon:
         norun_alert.check(self._conn(), self._notifier(), self.config, now_s, self._last_arrival_s)
 
     def _status(self) -> None:
+        self._publish_waiting()
         counts = jobs.counts(self._conn())
         last = self.pipeline.last_file if self.pipeline else None
         fault = self.store_fault
@@ -431,6 +435,19 @@ class Daemon:
             + f"queued {counts['queued']}, settling {len(self.settler.pending)}, "
             f"done {counts['done']}; last run {last or 'none yet'}"
         )
+
+    def _publish_waiting(self) -> None:
+        """The settling files, for ``ionwarden status`` (a state row, written when it changes)."""
+        text = json.dumps(self.settler.waiting(), sort_keys=True)
+        if text == self._waiting_published:
+            return
+        try:
+            with db.write(self._conn()):
+                jobs.set_state(self._conn(), WAITING_KEY, text)
+        except sqlite3.Error as exc:  # a full disk: status shows the last list; nothing is lost
+            log.warning("store.unwritable", error=str(exc), during="status")
+            return
+        self._waiting_published = text
 
     # -- a store that refuses writes --------------------------------------------------------------
 

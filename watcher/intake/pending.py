@@ -60,6 +60,24 @@ class Settler:
                 added += 1
         return len(seen), added
 
+    def waiting(self) -> list[dict[str, object]]:
+        """The files still settling, for ``status``: name, size, since when, and why they wait.
+
+        ``last_change_s`` is the file's own last write (its mtime), so the age ``status`` shows
+        is how long the file has been unchanged, across daemon restarts too."""
+        out: list[dict[str, object]] = []
+        for path, p in sorted(self.pending.items()):
+            out.append(
+                {
+                    "file": str(path),
+                    "size": None if p.last_stat is None else p.last_stat.size,
+                    "first_seen_s": round(p.first_seen_s, 3),
+                    "last_change_s": round(p.last_change_s, 3),
+                    "why": f"incomplete: {p.reason}" if p.reason else "settling",
+                }
+            )
+        return out
+
     def take_hint(self, hint: watch.Hint, now_s: float) -> None:
         """Start settling what a watcher event names (a folder moved in: every run file in it)."""
         if not hint.is_dir:
