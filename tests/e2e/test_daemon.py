@@ -329,3 +329,13 @@ def test_status_lists_waiting_files_and_one_line_per_open_problem(
     assert "QC_cut.mzML  incomplete:" in text
     assert text.count("signal present, ") == 1
     assert d.stop() == 0
+
+
+def test_ctrl_c_exits_130_and_sigterm_0(lab: Lab) -> None:
+    """SIGINT (Ctrl-C in a terminal) ends the daemon with 130 as every command does; SIGTERM,
+    systemd's stop, with 0."""
+    d = lab.start()
+    d.signal(signal.SIGINT)
+    assert d.proc.wait(timeout=15) == 130
+    d2 = lab.start()
+    assert d2.stop() == 0

@@ -615,7 +615,10 @@ def main(args: argparse.Namespace) -> int:
     daemon = Daemon(config)
     daemon.lock_fd = lock_fd  # held (open) for the process's lifetime
 
+    stopped_by: list[int] = []
+
     def on_stop(signum: int, frame: FrameType | None) -> None:
+        stopped_by.append(signum)
         daemon.request_stop()
 
     def on_hup(signum: int, frame: FrameType | None) -> None:
@@ -630,4 +633,9 @@ def main(args: argparse.Namespace) -> int:
     except (StoreError, StoreTooNewError, StoreCorruptError, ConfigError) as exc:
         log.error("daemon.failed", error=str(exc))
         raise
-    return daemon.run()
+    code = daemon.run()
+    # SIGTERM (systemd's stop) is a clean stop, 0; Ctrl-C is an interruption, 130, as for every
+    # command (the shell's 128 + SIGINT).
+    if code == 0 and stopped_by and stopped_by[0] == signal.SIGINT:
+        return 130
+    return code
