@@ -48,8 +48,14 @@ def acquire(state_dir: Path) -> int:
             f"another ionwarden daemon ({who}) is already running on state_dir {state_dir} "
             f"(it holds {path}); stop it first, or give this config another state_dir"
         ) from None
-    os.ftruncate(fd, 0)
-    os.pwrite(fd, f"{os.getpid()}\n".encode(), 0)
+    try:
+        os.ftruncate(fd, 0)
+        os.pwrite(fd, f"{os.getpid()}\n".encode(), 0)
+    except OSError:
+        # A full disk or a file-size limit: the lock holds without the pid in it (a second
+        # daemon is still refused, it names "another process"), and the daemon must still start
+        # and wait for its store rather than exit.
+        pass
     return fd
 
 
