@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import dataclasses
 import datetime as dt
+import math
 import time
 from pathlib import Path
 
@@ -15,6 +16,8 @@ from hypothesis import strategies as st
 from watcher import config as cfg
 from watcher.config.keys import KEYS
 from watcher.config.load import load_config, load_config_text
+from watcher.config.model import Range
+from watcher.config.values import Values
 from watcher.config.yamllines import MAX_NODES, format_path, read_yaml, resolve_plain
 from watcher.errors import ConfigError, ConfigProblem
 from watcher.records import CalibrantDrift, ExpectedIonResult, Severity, SignalMetrics
@@ -431,9 +434,11 @@ def test_duration_is_sum_of_its_parts(parts: list[tuple[int, str]]) -> None:
     seconds_per_unit = {"s": 1, "min": 60, "h": 3600, "d": 86400}  # common practice
     expected = sum(n * seconds_per_unit[unit] for n, unit in parts)
     text = "".join(f"{n}{unit}" for n, unit in parts)
-    yaml_text = f"limits: {{parse_timeout_s_per_gb: {text}}}\n"
-    config = load_config_text(yaml_text, source="lab.yaml")
-    assert config.limits.parse_timeout_s_per_gb == expected
+    # The parser itself, under a Range wide enough for every sum drawn (up to 30 000 d): each
+    # config key's own Range is tested by BAD_CONFIG_CASES.
+    values = Values("lab.yaml", {}, Path("."))
+    assert values.duration(("x",), text, Range(0, math.inf)) == expected
+    assert values.problems == []
 
 
 @pytest.mark.parametrize(
@@ -531,3 +536,21 @@ def test_allowed_keys_are_the_model_fields() -> None:
     assert config.alerts.retry_max_wait_s == 90.0
     assert config.checks[0].ewma is not None
     assert config.checks[0].ewma.lam == 0.3
+
+
+def test_every_number_in_the_config_has_a_range() -> None:
+    """Each int or float field of the config records carries its Range (the one table of allowed
+    values that validation reads), so no number can pass validation unbounded."""
+    from watcher.config import model
+    from watcher.config.keys import _SECTIONS
+
+    records = {record for group in _SECTIONS.values() for record in group}
+    missing = [
+        f"{record.__name__}.{f.name}"
+        for record in records
+        for f in dataclasses.fields(record)
+        if any(t in str(f.type) for t in ("int", "float"))
+        and f.metadata.get(model.YAML_KEY, f.name) is not None  # None: set by the loader
+        and not isinstance(f.metadata.get(model.RANGE), model.Range)
+    ]
+    assert missing == []
