@@ -53,6 +53,41 @@ def test_applies_to_bad_regex_in_code_is_a_config_error() -> None:
         cfg.matches_applies_to(("re:QC_(",), "QC_1.mzML")
 
 
+@pytest.mark.parametrize(
+    "pattern",
+    [
+        "(a+)+$",  # nested quantifier: the textbook exponential case (OWASP, "ReDoS")
+        "(a*)*b",
+        "([a-z]+_)*x",
+        "(\\d{2,4})+",  # a variable bounded repeat inside a repeat
+        "(a|ab)+$",  # alternation whose branches start alike
+        "(x|)*y",  # an empty branch under a repeat
+    ],
+)
+def test_backtracking_regex_in_code_is_a_config_error(pattern: str) -> None:
+    """A check built in code with an exponential-time regex is refused before it is matched."""
+    with pytest.raises(ConfigError, match="exponential time"):
+        cfg.matches_applies_to((f"re:{pattern}",), "a" * 40 + "!")
+
+
+@pytest.mark.parametrize(
+    "pattern",
+    ["QC_\\d+\\.mzML", "(QC|Blank)_.*\\.mzML", "(a|b)+", "(\\d{2})+", "(?:a++)+", "(?>a+)+"],
+)
+def test_plain_regexes_are_accepted(pattern: str) -> None:
+    """Fixed repeats, disjoint alternatives, possessive and atomic groups cannot blow up."""
+    cfg.matches_applies_to((f"re:{pattern}",), "QC_12.mzML")
+
+
+def test_regex_is_not_matched_against_a_name_longer_than_a_file_name() -> None:
+    """Names over 255 characters (NAME_MAX) are never given to the regex matcher; globs still
+    apply to them."""
+    long_name = "QC_" + "1" * 300 + ".mzML"
+    assert not cfg.matches_applies_to(("re:QC_\\d+\\.mzML",), long_name)
+    assert cfg.matches_applies_to(("QC_*.mzML",), long_name)
+    assert cfg.matches_applies_to(("re:QC_\\d+\\.mzML",), "QC_" + "1" * 240 + ".mzML")
+
+
 # -- YAML scalars ------------------------------------------------------------------------------
 
 # YAML 1.2.2 core schema, section 10.3.2 (tag resolution): ints, floats with or without a dot or

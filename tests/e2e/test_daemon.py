@@ -260,6 +260,30 @@ def test_bad_config_at_start_exits_2(lab: Lab) -> None:
     assert "settle_s" in d.stderr()
 
 
+def test_backtracking_regex_in_config_does_not_start_the_daemon(lab: Lab) -> None:
+    """applies_to 're:(a+)+$' is refused at start: exit 2 naming the line, never READY=1, and the
+    file whose name would make it spin is never matched."""
+    lab.write_config(
+        checks=[
+            {
+                "name": "calibration drift",
+                "metric": "calibrant.*.median_ppm",
+                "applies_to": "re:(a+)+$",
+                "warning": {"outside": [-3, 3]},
+            }
+        ]
+    )
+    line = next(
+        i for i, text in enumerate(lab.config.read_text().splitlines(), 1) if "(a+)+" in text
+    )
+    lab.drop("a" * 60 + "!.mzML", 1)
+    d = lab.start(ready=False)
+    assert d.proc.wait(timeout=20) == 2
+    assert "Traceback" not in d.stderr()
+    assert f"lab.yaml:{line}: checks[0].applies_to: regular expression '(a+)+$'" in d.stderr()
+    assert "READY=1" not in d.notes()
+
+
 def test_heartbeat_missed_once_then_resumed(lab: Lab, receiver: Receiver) -> None:
     """No run for expect_run_every: one 'heartbeat.missed' alert; a new run clears it."""
     lab.write_config(

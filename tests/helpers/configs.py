@@ -166,6 +166,45 @@ BAD_CONFIG_CASES = [
         "bad regular expression 'QC_('",  # Python re syntax: unbalanced parenthesis
     ),
     _case(
+        "regex-nested-quantifier",
+        """\
+        checks:
+          - name: ions
+            metric: expected_ion.*.found
+            applies_to: "re:(a+)+$"  #<
+            critical: {is: false}
+        """,
+        "checks[0].applies_to",
+        # the classic exponential-backtracking shape (OWASP, "ReDoS")
+        "regular expression '(a+)+$' can take exponential time (a quantified group contains",
+    ),
+    _case(
+        "regex-overlapping-alternation",
+        """\
+        checks:
+          - name: ions
+            metric: expected_ion.*.found
+            applies_to:
+              - QC_*.mzML
+              - "re:(QC|Q.)*_run.mzML"  #<
+            critical: {is: false}
+        """,
+        "checks[0].applies_to[1]",
+        "a quantified alternation has branches that match the same text",
+    ),
+    _case(
+        "regex-too-long",
+        f"""\
+        checks:
+          - name: ions
+            metric: expected_ion.*.found
+            applies_to: "re:{"a" * 201}"  #<
+            critical: {{is: false}}
+        """,
+        "checks[0].applies_to",
+        "regular expression is 201 characters long (at most 200)",
+    ),
+    _case(
         "queue-max-zero",
         "checks: []\nlimits:\n  queue_max: 0  #<\n",
         "limits.queue_max",

@@ -26,10 +26,10 @@ if TYPE_CHECKING:
 REGEX_PREFIX = "re:"  # an applies_to entry starting so is a regular expression, not a glob
 YAML_KEY = "yaml_key"  # field metadata: the YAML key, where it is not the field's name
 RANGE = "range"  # field metadata: the Range of values validation accepts for a number
-# Longest applies_to regex and longest file name a regex is matched against: Python's re has no
-# time limit, so a bound on both keeps even a slow pattern's worst case short.
-MAX_REGEX_CHARS = 200
-MAX_MATCHED_NAME_CHARS = 255  # NAME_MAX on Linux file systems: longer names are not file names
+# Longest file name a regex is matched against: Python's re has no time limit, so together with
+# the shapes refused at validation (watcher.config.regexes) this bounds a match's worst case.
+# 255 is NAME_MAX on Linux file systems: no run file has a longer name.
+MAX_MATCHED_NAME_CHARS = 255
 
 _HOUR_S = 3600.0
 _DAY_S = 86400.0
@@ -254,6 +254,9 @@ def matches_applies_to(applies_to: Sequence[str], file_name: str) -> bool:
         return True
     for pattern in applies_to:
         if pattern.startswith(REGEX_PREFIX):
+            # Longer than a file name can be: never handed to the unbounded regex matcher.
+            if len(file_name) > MAX_MATCHED_NAME_CHARS:
+                continue
             if _compiled(pattern[len(REGEX_PREFIX) :]).fullmatch(file_name):
                 return True
         elif fnmatchcase(file_name, pattern):
@@ -263,13 +266,19 @@ def matches_applies_to(applies_to: Sequence[str], file_name: str) -> bool:
 
 @functools.lru_cache(maxsize=256)
 def _compiled(pattern: str) -> re.Pattern[str]:
-    # Loaded configs have valid regexes already; this guards checks built in code.
+    # Loaded configs have valid, safe regexes already; this guards checks built in code.
+    from watcher.config.regexes import regex_problem
+
     try:
-        return re.compile(pattern)
+        compiled = re.compile(pattern)
     except re.error as exc:
         raise ConfigError(
             [ConfigProblem("", None, "applies_to", f"invalid regex {pattern!r}: {exc}")]
         ) from exc
+    problem = regex_problem(pattern)
+    if problem is not None:
+        raise ConfigError([ConfigProblem("", None, "applies_to", problem)])
+    return compiled
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

@@ -17,7 +17,8 @@ from datetime import time
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from watcher.config.model import WESTGARD_RULES, Range, metric_path_problem
+from watcher.config.model import REGEX_PREFIX, WESTGARD_RULES, Range, metric_path_problem
+from watcher.config.regexes import regex_problem
 from watcher.config.yamllines import KeyPath, format_path
 from watcher.errors import ConfigProblem
 from watcher.records import Severity
@@ -394,12 +395,11 @@ class Values:
         """File-name globs, or ``re:<regex>``."""
         patterns = self.texts(path, x)
         for i, pattern in enumerate(patterns):
-            if pattern.startswith("re:"):
-                try:
-                    re.compile(pattern[3:])
-                except re.error as exc:
+            if pattern.startswith(REGEX_PREFIX):
+                message = regex_problem(pattern[len(REGEX_PREFIX) :])
+                if message is not None:
                     where = (*path, i) if isinstance(x, list) else path
-                    self.problem(where, f"bad regular expression {pattern[3:]!r}: {exc}")
+                    self.problem(where, message)
         return patterns
 
     def westgard(self, path: KeyPath, x: Any) -> tuple[str, ...]:
