@@ -251,6 +251,32 @@ def test_notify_protocol_and_clean_stop(lab: Lab) -> None:
     assert "STOPPING=1" in d.notes()
 
 
+def test_file_name_cannot_inject_notify_commands(lab: Lab) -> None:
+    """A run named 'inj\\nWATCHDOG=trigger\\nMAINPID=1\\nx.mzML' is judged and shown in STATUS=
+    escaped: every datagram line on the test's notify socket is one of the daemon's own
+    commands (sd_notify(3): newline-separated KEY=VALUE assignments)."""
+    d = lab.start(env={"WATCHDOG_USEC": "400000"})
+    name = "inj\nWATCHDOG=trigger\nMAINPID=1\nx.mzML"
+    lab.drop(name, 1)
+    assert lab.wait_runs(1)[0][:2] == (name, "ok")
+    shown = "inj\\nWATCHDOG=trigger\\nMAINPID=1\\nx.mzML"
+    wait_for(lambda: any(shown in m for m in d.notes()), 10, "STATUS= naming the run, escaped")
+    assert d.stop() == 0
+    lines = [line for m in d.notes() for line in m.split("\n")]
+    assert {line.split("=", 1)[0] for line in lines} <= {
+        "READY",
+        "STATUS",
+        "WATCHDOG",
+        "STOPPING",
+    }, lines
+    assert "WATCHDOG=trigger" not in lines
+    assert not any(line.startswith("MAINPID=") for line in lines)
+    # the daemon's own log lines stay one per record too
+    assert not any(
+        line.startswith(("WATCHDOG=trigger", "MAINPID=1")) for line in d.stderr().splitlines()
+    )
+
+
 def test_bad_config_at_start_exits_2(lab: Lab) -> None:
     """A config error at start exits 2 (RestartPreventExitStatus=2) with a one-line reason."""
     lab.config.write_text("watch: {settle_s: -1}\n")

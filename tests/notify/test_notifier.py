@@ -215,3 +215,19 @@ def test_validate_channels_names_channel_not_url(tmp_path: Path) -> None:
         Notifier(config, tmp_path).validate_channels()
     assert "alert channel 'lab-chat'" in str(info.value)
     assert "s3cr3t" not in str(info.value)
+
+
+def test_control_characters_in_a_run_name_are_escaped_in_the_alert(
+    harness: Harness, receiver: Receiver
+) -> None:
+    """A run named with a newline and ESC: the alert's title and each body line show them as
+    escapes, so no forged line or terminal code reaches the chat or the phone."""
+    name = "QC_\x1b[31m\nFORGED: all ok\n.mzML"
+    harness.run(name, make_finding(Severity.WARNING, value=3.4))
+    body = receiver.wait_for(1)[0]
+    shown = "QC_\\x1b[31m\\nFORGED: all ok\\n.mzML"
+    assert body["title"] == f"Kestrel-2 Q-TOF: WARNING {shown}"
+    assert "\x1b" not in body["title"] + body["message"]
+    lines = body["message"].splitlines()
+    assert lines[0].startswith(f"{shown} | ")
+    assert not any(line.startswith("FORGED") for line in lines)
