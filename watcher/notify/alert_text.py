@@ -6,6 +6,7 @@ Pure: takes the run's facts and the list of (action, finding) pairs, returns tex
 from __future__ import annotations
 
 import dataclasses
+import re
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 from zoneinfo import ZoneInfo
@@ -129,3 +130,18 @@ def compose(
         head = f"{run_file} | {at_what} {local_time(at, timezone)} | status {status}"
     body = "\n".join([head, *(item_line(i, run_file) for i in items)])
     return Text(title=title, body=body, notify_type=notify_type)
+
+
+def short_name(instrument: str) -> str:
+    """The instrument's name as a token: ``Kestrel-2 Q-TOF`` -> ``kestrel-2-q-tof``."""
+    token = re.sub(r"[^a-z0-9]+", "-", instrument.lower()).strip("-")
+    return token or "instrument"
+
+
+def with_message_id(body: str, instrument: str, message_id: int) -> str:
+    """The body with a last line ``id: <instrument>-<message id>``, the same on every attempt.
+
+    A receiver slower than the read timeout still takes the message, and the retry sends it
+    again; the stable id lets a receiver (or a person) see that two copies are one message.
+    """
+    return f"{body}\nid: {short_name(instrument)}-{message_id}"
