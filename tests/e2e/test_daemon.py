@@ -17,7 +17,7 @@ from typing import TYPE_CHECKING
 
 import pytest
 
-from tests.helpers.daemon import SETTLE_S, Lab
+from tests.helpers.daemon import SETTLE_S, Daemon, Lab
 from tests.helpers.wait import wait_for
 
 if TYPE_CHECKING:
@@ -155,6 +155,48 @@ def test_kill9_during_measurement_then_restart(lab: Lab, big_run: Path) -> None:
     assert d2.stop() == 0
     _assert_once(lab, {"QC_big.mzML"})
     assert lab.runs()[0][1] != "unreadable"
+
+
+def _kill_measuring_child(lab: Lab, d: Daemon, name: str, not_pid: int | None = None) -> int:
+    """SIGKILL the daemon's child while it has the run open (as a person or a cgroup would)."""
+    found: list[int] = []
+
+    def measuring() -> bool:
+        pid = d.child_reading(name)
+        if pid is not None and pid != not_pid:
+            found.append(pid)
+        return bool(found)
+
+    wait_for(measuring, 30, f"a measuring child reading {name}")
+    os.kill(found[0], signal.SIGKILL)
+    return found[0]
+
+
+def test_killed_measuring_child_measures_the_run_again(lab: Lab, big_run: Path) -> None:
+    """SIGKILL of the measuring child mid-run (not its memory limit, no OOM kill counted): the
+    run is measured once more in a fresh child and judged normally, exactly once."""
+    d = lab.start()
+    shutil.copy(big_run, lab.exports / "QC_big.mzML")
+    _kill_measuring_child(lab, d, "QC_big.mzML")
+    (run,) = lab.wait_runs(1, timeout_s=60)
+    assert d.stop() == 0
+    assert run[:2] == ("QC_big.mzML", "ok"), run
+    _assert_once(lab, {"QC_big.mzML"})
+    killed = [e for e in d.events() if e["event"] == "child.killed"]
+    assert [e["reason"] for e in killed] == ["measuring process was killed (signal 9)"]
+
+
+def test_measuring_child_killed_twice_is_unreadable_killed(lab: Lab, big_run: Path) -> None:
+    """Killed again while measuring the run a second time: unreadable 'killed', not memory."""
+    d = lab.start()
+    shutil.copy(big_run, lab.exports / "QC_big.mzML")
+    first = _kill_measuring_child(lab, d, "QC_big.mzML")
+    _kill_measuring_child(lab, d, "QC_big.mzML", not_pid=first)
+    (run,) = lab.wait_runs(1, timeout_s=60)
+    assert d.stop() == 0
+    assert run == ("QC_big.mzML", "unreadable", "measuring process was killed (signal 9)")
+    assert "out of memory" not in d.stderr()
+    assert lab._query("SELECT error_kind FROM runs") == [("killed",)]
 
 
 def test_random_kill_loop_over_100_runs(lab: Lab) -> None:

@@ -9,6 +9,7 @@ health log, datagrams on a notify socket); nothing sleeps for a fixed time longe
 from __future__ import annotations
 
 import json
+import os
 import signal
 import socket
 import sqlite3
@@ -177,6 +178,25 @@ class Daemon:
 
     def signal(self, sig: int) -> None:
         self.proc.send_signal(sig)
+
+    def child_reading(self, file_name: str) -> int | None:
+        """The pid of the daemon's child process that has ``file_name`` open (the measuring
+        child while it measures that run), from /proc; None when there is none right now."""
+        for entry in os.listdir("/proc"):
+            if not entry.isdigit():
+                continue
+            try:
+                stat = Path(f"/proc/{entry}/stat").read_text()
+                ppid = int(stat.rsplit(")", 1)[1].split()[1])
+                if ppid != self.proc.pid:
+                    continue
+                fds = os.listdir(f"/proc/{entry}/fd")
+                targets = [os.readlink(f"/proc/{entry}/fd/{fd}") for fd in fds]
+            except (OSError, IndexError, ValueError):
+                continue  # gone meanwhile, or not ours to look at
+            if any(Path(t).name == file_name for t in targets):
+                return int(entry)
+        return None
 
     def stop(self, timeout_s: float = 10.0) -> int:
         """SIGTERM and wait; returns the exit code."""

@@ -25,6 +25,7 @@ EVENTS: frozenset[str] = frozenset(
         "run.measured",
         "run.unreadable",
         "run.judged",
+        "child.killed",
         # daemon life
         "daemon.started",
         "daemon.ready",
