@@ -130,7 +130,8 @@ class IonSpec:
     adduct: str | None = None
     # signed by the adduct's sign for formula ions; peptides: [M+zH]z+
     charge: int = field(default=1, metadata=_magnitude(100))
-    search_ppm: float = field(default=20.0, metadata=_positive(1000.0))
+    # 1e6 ppm is a window as wide as the m/z itself: beyond it the window reaches below zero
+    search_ppm: float = field(default=20.0, metadata=_positive(1e6))
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
