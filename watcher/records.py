@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import dataclasses
 import os
+import re
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from enum import StrEnum
@@ -265,6 +266,36 @@ def run_time(metrics: RunMetrics | None, run_file: RunFile, judged_at: datetime)
     return judged_at
 
 
+_SHORT_ESCAPES = {"\n": "\\n", "\r": "\\r", "\t": "\\t"}
+
+
+def _escape(ch: str) -> str:
+    code = ord(ch)
+    if ch in _SHORT_ESCAPES:
+        return _SHORT_ESCAPES[ch]
+    return f"\\x{code:02x}" if code < 0x100 else f"\\u{code:04x}"
+
+
+# C0 and C1 controls, DEL, and the Unicode line breaks and direction overrides that rearrange
+# or split what a terminal or a line protocol shows.
+_CONTROL = re.compile("[\x00-\x1f\x7f-\x9f\u2028\u2029\u200e\u200f\u202a-\u202e\u2066-\u2069]")
+
+
+def printable(text: str) -> str:
+    """``text`` with every control character shown as its escape (newline as ``\\n``, ESC as
+    ``\\x1b``), so that it stays one line of plain characters.
+
+    Run files are named by whoever exports them: a name holding a newline and ``WATCHDOG=1``
+    would become a second sd_notify command, and one holding ESC sequences would drive the
+    terminal that ``check`` or ``status`` prints to. Every text from outside (file names,
+    reasons, finding messages) passes through this before a log line, a terminal, a
+    notify datagram or an alert. Backslashes are kept as they are: a name is still recognisable.
+    """
+    if _CONTROL.search(text) is None:
+        return text
+    return _CONTROL.sub(lambda m: _escape(m.group()), text)
+
+
 @dataclass(frozen=True, slots=True, kw_only=True)
 class ReadFailure:
     """Why a run file gave no metrics (``watcher.measure.run.measure_or_failure``).
@@ -382,6 +413,7 @@ def shown(text: str | Path) -> str:
 
     Names that are not valid UTF-8 (common on shares written by other systems) reach Python with
     the undecodable bytes as surrogates (``os.fsdecode``); written as ``\\xNN`` here, so that
-    ``latin1_\\xe9.mzML`` shows which byte it was, and encoding to UTF-8 never fails.
+    ``latin1_\\xe9.mzML`` shows which byte it was, and encoding to UTF-8 never fails. Control
+    characters are escaped as well (``printable``): one function for every outside text.
     """
-    return os.fsencode(str(text)).decode("utf-8", "backslashreplace")
+    return printable(os.fsencode(str(text)).decode("utf-8", "backslashreplace"))

@@ -234,3 +234,18 @@ def test_mzqc_to_stdout_and_the_config_in_use_is_named(tmp_path: Path) -> None:
     assert "embedded demo config" in proc.stderr
     both = _check("--mzqc", "-", "--json", run)
     assert both.returncode == 2
+
+
+def test_escape_sequences_in_a_file_name_never_reach_the_terminal(tmp_path: Path) -> None:
+    """A run named with ESC[31m (and a newline) prints its name escaped: no raw ESC, one line."""
+    good = _run(tmp_path, "QC_plain.mzML", 0.0)
+    hostile = tmp_path / "QC_\x1b[31mred\nWATCHDOG=1.mzML"
+    hostile.write_bytes(good.read_bytes())
+    cut = tmp_path / "QC_\x1b]0;title\x07cut.mzML"  # unreadable: the name is in the error too
+    cut.write_bytes(good.read_bytes()[: good.stat().st_size // 2])
+    proc = _check("--no-progress", "-c", _config(tmp_path), hostile, cut)
+    assert "\x1b" not in proc.stdout
+    assert "\x1b" not in proc.stderr
+    assert "\x07" not in proc.stdout
+    assert "QC_\\x1b[31mred\\nWATCHDOG=1.mzML  mzML  OK" in proc.stdout.splitlines()
+    assert "QC_\\x1b]0;title\\x07cut.mzML" in proc.stdout

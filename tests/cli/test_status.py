@@ -85,3 +85,28 @@ def test_status_without_state_database_says_so(tmp_path: Path) -> None:
     assert result.returncode == 3
     assert "no state database" in result.stderr
     assert "Traceback" not in result.stderr
+
+
+def test_control_characters_in_stored_names_are_shown_escaped(tmp_path: Path) -> None:
+    """A message title holding a file name with ESC and a newline prints as one escaped line."""
+    state = tmp_path / "state"
+    cfg = _config(tmp_path, state)
+    conn = db.connect(state)
+    with db.write(conn):
+        outbox.enqueue(
+            conn,
+            channel="lab-chat",
+            kind="alert",
+            ref="run:1",
+            created_at_s=1e9,
+            title="Kestrel-2 Q-TOF: WARNING QC_\x1b[2Jwipe\nforged.mzML",
+            body="b",
+        )
+    conn.close()
+    result = _status(cfg)
+    assert result.returncode == 1, result.stderr
+    assert "\x1b" not in result.stdout
+    assert any(
+        line.endswith("WARNING QC_\\x1b[2Jwipe\\nforged.mzML")
+        for line in result.stdout.splitlines()
+    )

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import dataclasses
 import datetime as dt
+import math
 import time
 from pathlib import Path
 
@@ -15,6 +16,8 @@ from hypothesis import strategies as st
 from watcher import config as cfg
 from watcher.config.keys import KEYS
 from watcher.config.load import load_config, load_config_text
+from watcher.config.model import Range
+from watcher.config.values import Values
 from watcher.config.yamllines import MAX_NODES, format_path, read_yaml, resolve_plain
 from watcher.errors import ConfigError, ConfigProblem
 from watcher.records import CalibrantDrift, ExpectedIonResult, Severity, SignalMetrics
@@ -48,6 +51,41 @@ def test_applies_to_bad_regex_in_code_is_a_config_error() -> None:
     """A check built in code with a broken re: pattern raises ConfigError, not re.error."""
     with pytest.raises(ConfigError, match="invalid regex"):
         cfg.matches_applies_to(("re:QC_(",), "QC_1.mzML")
+
+
+@pytest.mark.parametrize(
+    "pattern",
+    [
+        "(a+)+$",  # nested quantifier: the textbook exponential case (OWASP, "ReDoS")
+        "(a*)*b",
+        "([a-z]+_)*x",
+        "(\\d{2,4})+",  # a variable bounded repeat inside a repeat
+        "(a|ab)+$",  # alternation whose branches start alike
+        "(x|)*y",  # an empty branch under a repeat
+    ],
+)
+def test_backtracking_regex_in_code_is_a_config_error(pattern: str) -> None:
+    """A check built in code with an exponential-time regex is refused before it is matched."""
+    with pytest.raises(ConfigError, match="exponential time"):
+        cfg.matches_applies_to((f"re:{pattern}",), "a" * 40 + "!")
+
+
+@pytest.mark.parametrize(
+    "pattern",
+    ["QC_\\d+\\.mzML", "(QC|Blank)_.*\\.mzML", "(a|b)+", "(\\d{2})+", "(?:a++)+", "(?>a+)+"],
+)
+def test_plain_regexes_are_accepted(pattern: str) -> None:
+    """Fixed repeats, disjoint alternatives, possessive and atomic groups cannot blow up."""
+    cfg.matches_applies_to((f"re:{pattern}",), "QC_12.mzML")
+
+
+def test_regex_is_not_matched_against_a_name_longer_than_a_file_name() -> None:
+    """Names over 255 characters (NAME_MAX) are never given to the regex matcher; globs still
+    apply to them."""
+    long_name = "QC_" + "1" * 300 + ".mzML"
+    assert not cfg.matches_applies_to(("re:QC_\\d+\\.mzML",), long_name)
+    assert cfg.matches_applies_to(("QC_*.mzML",), long_name)
+    assert cfg.matches_applies_to(("re:QC_\\d+\\.mzML",), "QC_" + "1" * 240 + ".mzML")
 
 
 # -- YAML scalars ------------------------------------------------------------------------------
@@ -431,9 +469,11 @@ def test_duration_is_sum_of_its_parts(parts: list[tuple[int, str]]) -> None:
     seconds_per_unit = {"s": 1, "min": 60, "h": 3600, "d": 86400}  # common practice
     expected = sum(n * seconds_per_unit[unit] for n, unit in parts)
     text = "".join(f"{n}{unit}" for n, unit in parts)
-    yaml_text = f"limits: {{parse_timeout_s_per_gb: {text}}}\n"
-    config = load_config_text(yaml_text, source="lab.yaml")
-    assert config.limits.parse_timeout_s_per_gb == expected
+    # The parser itself, under a Range wide enough for every sum drawn (up to 30 000 d): each
+    # config key's own Range is tested by BAD_CONFIG_CASES.
+    values = Values("lab.yaml", {}, Path("."))
+    assert values.duration(("x",), text, Range(0, math.inf)) == expected
+    assert values.problems == []
 
 
 @pytest.mark.parametrize(
@@ -531,3 +571,21 @@ def test_allowed_keys_are_the_model_fields() -> None:
     assert config.alerts.retry_max_wait_s == 90.0
     assert config.checks[0].ewma is not None
     assert config.checks[0].ewma.lam == 0.3
+
+
+def test_every_number_in_the_config_has_a_range() -> None:
+    """Each int or float field of the config records carries its Range (the one table of allowed
+    values that validation reads), so no number can pass validation unbounded."""
+    from watcher.config import model
+    from watcher.config.keys import _SECTIONS
+
+    records = {record for group in _SECTIONS.values() for record in group}
+    missing = [
+        f"{record.__name__}.{f.name}"
+        for record in records
+        for f in dataclasses.fields(record)
+        if any(t in str(f.type) for t in ("int", "float"))
+        and f.metadata.get(model.YAML_KEY, f.name) is not None  # None: set by the loader
+        and not isinstance(f.metadata.get(model.RANGE), model.Range)
+    ]
+    assert missing == []

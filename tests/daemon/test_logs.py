@@ -119,3 +119,26 @@ def test_cli_logs_to_stderr_only(tmp_path, monkeypatch):
     assert "config.rejected" in stream.getvalue()
     assert not any(isinstance(h, logging.FileHandler) for h in logging.getLogger().handlers)
     assert list(tmp_path.iterdir()) == []
+
+
+def test_console_log_shows_control_characters_escaped(tmp_path, monkeypatch):
+    """A file name with ESC and a newline logs as one console line with both escaped; the JSON
+    file keeps JSON's own escaping (the value reads back unchanged)."""
+    monkeypatch.chdir(tmp_path)
+    stream = io.StringIO()
+    logs.configure_cli(stream=stream)
+    # no space or quote: the console renderer prints such a value as it is, without repr()
+    name = "QC_\x1b[2J\x1b]0;title\x07.mzML"
+    structlog.get_logger("watcher.cli").warning("run.unreadable", file=name)
+    structlog.get_logger("watcher.cli").warning("run.unreadable", file="QC_a\nrun.failed b.mzML")
+    out = stream.getvalue()
+    assert "\x1b" not in out
+    assert "\x07" not in out
+    assert out.count("\n") == 2
+    assert "file=QC_\\x1b[2J\\x1b]0;title\\x07.mzML" in out
+
+    path = logs.configure_daemon(tmp_path / "logs", keep_days=3, stream=io.StringIO())
+    structlog.get_logger("watcher.daemon").warning("run.unreadable", file=name)
+    logging.getLogger().handlers[1].flush()
+    (line,) = path.read_text().splitlines()
+    assert json.loads(line)["file"] == name

@@ -57,3 +57,17 @@ def test_watchdog_interval_is_half_the_period():
     assert watchdog_interval_s(env) == 1.0
     assert watchdog_interval_s({"WATCHDOG_USEC": "2000000", "WATCHDOG_PID": "1"}) is None
     assert watchdog_interval_s({}) is None
+
+
+def test_a_value_with_newlines_stays_one_assignment(tmp_path):
+    """sd_notify(3) reads newline-separated assignments: a run name with '\\nWATCHDOG=trigger'
+    in STATUS= arrives as one STATUS line with the newlines escaped."""
+    path = tmp_path / "notify.sock"
+    with socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM) as server:
+        server.bind(str(path))
+        server.settimeout(2)
+        message = "STATUS=last run inj\nWATCHDOG=trigger\nMAINPID=1\nx\x1b[31m.mzML"
+        assert notify(message, env={"NOTIFY_SOCKET": str(path)}) is True
+        assert server.recv(4096) == (
+            b"STATUS=last run inj\\nWATCHDOG=trigger\\nMAINPID=1\\nx\\x1b[31m.mzML"
+        )

@@ -19,7 +19,7 @@ from typing import TYPE_CHECKING, Any
 import pytest
 
 from tests.helpers.cli import run_cli
-from tests.helpers.daemon import SETTLE_S, Lab
+from tests.helpers.daemon import SETTLE_S, Daemon, Lab
 from tests.helpers.wait import wait_for
 
 if TYPE_CHECKING:
@@ -159,6 +159,48 @@ def test_kill9_during_measurement_then_restart(lab: Lab, big_run: Path) -> None:
     assert lab.runs()[0][1] != "unreadable"
 
 
+def _kill_measuring_child(lab: Lab, d: Daemon, name: str, not_pid: int | None = None) -> int:
+    """SIGKILL the daemon's child while it has the run open (as a person or a cgroup would)."""
+    found: list[int] = []
+
+    def measuring() -> bool:
+        pid = d.child_reading(name)
+        if pid is not None and pid != not_pid:
+            found.append(pid)
+        return bool(found)
+
+    wait_for(measuring, 30, f"a measuring child reading {name}")
+    os.kill(found[0], signal.SIGKILL)
+    return found[0]
+
+
+def test_killed_measuring_child_measures_the_run_again(lab: Lab, big_run: Path) -> None:
+    """SIGKILL of the measuring child mid-run (not its memory limit, no OOM kill counted): the
+    run is measured once more in a fresh child and judged normally, exactly once."""
+    d = lab.start()
+    shutil.copy(big_run, lab.exports / "QC_big.mzML")
+    _kill_measuring_child(lab, d, "QC_big.mzML")
+    (run,) = lab.wait_runs(1, timeout_s=60)
+    assert d.stop() == 0
+    assert run[:2] == ("QC_big.mzML", "ok"), run
+    _assert_once(lab, {"QC_big.mzML"})
+    killed = [e for e in d.events() if e["event"] == "child.killed"]
+    assert [e["reason"] for e in killed] == ["measuring process was killed (signal 9)"]
+
+
+def test_measuring_child_killed_twice_is_unreadable_killed(lab: Lab, big_run: Path) -> None:
+    """Killed again while measuring the run a second time: unreadable 'killed', not memory."""
+    d = lab.start()
+    shutil.copy(big_run, lab.exports / "QC_big.mzML")
+    first = _kill_measuring_child(lab, d, "QC_big.mzML")
+    _kill_measuring_child(lab, d, "QC_big.mzML", not_pid=first)
+    (run,) = lab.wait_runs(1, timeout_s=60)
+    assert d.stop() == 0
+    assert run == ("QC_big.mzML", "unreadable", "measuring process was killed (signal 9)")
+    assert "out of memory" not in d.stderr()
+    assert lab._query("SELECT error_kind FROM runs") == [("killed",)]
+
+
 def test_random_kill_loop_over_100_runs(lab: Lab) -> None:
     """kill -9 at random moments over 100 runs: none ends with zero or two records (RELIAB. 5)."""
     rng = random.Random(20261201)
@@ -258,6 +300,32 @@ def test_notify_protocol_and_clean_stop(lab: Lab) -> None:
     assert "STOPPING=1" in d.notes()
 
 
+def test_file_name_cannot_inject_notify_commands(lab: Lab) -> None:
+    """A run named 'inj\\nWATCHDOG=trigger\\nMAINPID=1\\nx.mzML' is judged and shown in STATUS=
+    escaped: every datagram line on the test's notify socket is one of the daemon's own
+    commands (sd_notify(3): newline-separated KEY=VALUE assignments)."""
+    d = lab.start(env={"WATCHDOG_USEC": "400000"})
+    name = "inj\nWATCHDOG=trigger\nMAINPID=1\nx.mzML"
+    lab.drop(name, 1)
+    assert lab.wait_runs(1)[0][:2] == (name, "ok")
+    shown = "inj\\nWATCHDOG=trigger\\nMAINPID=1\\nx.mzML"
+    wait_for(lambda: any(shown in m for m in d.notes()), 10, "STATUS= naming the run, escaped")
+    assert d.stop() == 0
+    lines = [line for m in d.notes() for line in m.split("\n")]
+    assert {line.split("=", 1)[0] for line in lines} <= {
+        "READY",
+        "STATUS",
+        "WATCHDOG",
+        "STOPPING",
+    }, lines
+    assert "WATCHDOG=trigger" not in lines
+    assert not any(line.startswith("MAINPID=") for line in lines)
+    # the daemon's own log lines stay one per record too
+    assert not any(
+        line.startswith(("WATCHDOG=trigger", "MAINPID=1")) for line in d.stderr().splitlines()
+    )
+
+
 def test_bad_config_at_start_exits_2(lab: Lab) -> None:
     """A config error at start exits 2 (RestartPreventExitStatus=2) with a one-line reason."""
     lab.config.write_text("watch: {settle_s: -1}\n")
@@ -265,6 +333,30 @@ def test_bad_config_at_start_exits_2(lab: Lab) -> None:
     assert d.proc.wait(timeout=20) == 2
     assert "Traceback" not in d.stderr()
     assert "settle_s" in d.stderr()
+
+
+def test_backtracking_regex_in_config_does_not_start_the_daemon(lab: Lab) -> None:
+    """applies_to 're:(a+)+$' is refused at start: exit 2 naming the line, never READY=1, and the
+    file whose name would make it spin is never matched."""
+    lab.write_config(
+        checks=[
+            {
+                "name": "calibration drift",
+                "metric": "calibrant.*.median_ppm",
+                "applies_to": "re:(a+)+$",
+                "warning": {"outside": [-3, 3]},
+            }
+        ]
+    )
+    line = next(
+        i for i, text in enumerate(lab.config.read_text().splitlines(), 1) if "(a+)+" in text
+    )
+    lab.drop("a" * 60 + "!.mzML", 1)
+    d = lab.start(ready=False)
+    assert d.proc.wait(timeout=20) == 2
+    assert "Traceback" not in d.stderr()
+    assert f"lab.yaml:{line}: checks[0].applies_to: regular expression '(a+)+$'" in d.stderr()
+    assert "READY=1" not in d.notes()
 
 
 def test_heartbeat_missed_once_then_resumed(lab: Lab, receiver: Receiver) -> None:

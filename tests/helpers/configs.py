@@ -166,6 +166,45 @@ BAD_CONFIG_CASES = [
         "bad regular expression 'QC_('",  # Python re syntax: unbalanced parenthesis
     ),
     _case(
+        "regex-nested-quantifier",
+        """\
+        checks:
+          - name: ions
+            metric: expected_ion.*.found
+            applies_to: "re:(a+)+$"  #<
+            critical: {is: false}
+        """,
+        "checks[0].applies_to",
+        # the classic exponential-backtracking shape (OWASP, "ReDoS")
+        "regular expression '(a+)+$' can take exponential time (a quantified group contains",
+    ),
+    _case(
+        "regex-overlapping-alternation",
+        """\
+        checks:
+          - name: ions
+            metric: expected_ion.*.found
+            applies_to:
+              - QC_*.mzML
+              - "re:(QC|Q.)*_run.mzML"  #<
+            critical: {is: false}
+        """,
+        "checks[0].applies_to[1]",
+        "a quantified alternation has branches that match the same text",
+    ),
+    _case(
+        "regex-too-long",
+        f"""\
+        checks:
+          - name: ions
+            metric: expected_ion.*.found
+            applies_to: "re:{"a" * 201}"  #<
+            critical: {{is: false}}
+        """,
+        "checks[0].applies_to",
+        "regular expression is 201 characters long (at most 200)",
+    ),
+    _case(
         "queue-max-zero",
         "checks: []\nlimits:\n  queue_max: 0  #<\n",
         "limits.queue_max",
@@ -334,6 +373,71 @@ BAD_CONFIG_CASES = [
     ),
 ]
 
+# A number 26 digits long: each key has a Range (watcher.config.model) and validation names it.
+HUGE = "1" + "0" * 26
+BAD_CONFIG_CASES += [
+    _case(
+        "huge-settle",
+        f"watch: {{settle_s: {HUGE}}}  #<\n",
+        "watch.settle_s",
+        f"expected a duration > 0 and at most 1d (86400 s), got {HUGE}",
+    ),
+    _case(
+        "huge-alert-timeout",
+        f"alerts: {{timeout_s: {HUGE}}}  #<\n",
+        "alerts.timeout_s",
+        f"expected a duration > 0 and at most 1h (3600 s), got {HUGE}",
+    ),
+    _case(
+        "huge-read-timeout",
+        f"alerts: {{read_timeout_s: {HUGE}}}  #<\n",
+        "alerts.read_timeout_s",
+        "at most 5min (300 s)",
+    ),
+    _case(
+        "huge-retry-for",
+        f"alerts: {{retry_for: {HUGE}}}  #<\n",
+        "alerts.retry_for",
+        "at most 30d (2.592e+06 s)",
+    ),
+    _case(
+        "huge-parse-memory",
+        f"limits: {{parse_memory_mb: {HUGE}}}  #<\n",
+        "limits.parse_memory_mb",
+        f"expected an integer >= 64 and <= 1048576, got {HUGE}",
+    ),
+    _case(
+        "huge-parse-timeout",
+        "limits: {parse_timeout_s: 1e26}  #<\n",
+        "limits.parse_timeout_s",
+        "expected a duration > 0 and at most 1d (86400 s), got 1e+26",
+    ),
+    _case(
+        "huge-baseline-runs",
+        f"""\
+        checks:
+          - name: drift
+            metric: calibrant.siloxane-445.median_ppm
+            against: baseline
+            baseline: {{runs: {HUGE}}}  #<
+            warning: {{z_outside: [-3, 3]}}
+        """,
+        "checks[0].baseline.runs",
+        "expected an integer >= 1 and <= 10000",
+    ),
+    _case(
+        "huge-threshold",
+        """\
+        checks:
+          - name: drift
+            metric: calibrant.siloxane-445.median_ppm
+            critical: {above: 1.0e+26}  #<
+        """,
+        "checks[0].critical.above",
+        "expected a number between -1e+15 and 1e+15, got 1e+26",
+    ),
+]
+
 # Ion cases replace the ion block itself, so the markers sit on their own lines.
 ION_CASES = [
     pytest.param(
@@ -410,6 +514,15 @@ ION_CASES = [
         id="ion-typo",
     ),
 ]
+
+ION_CASES.append(
+    pytest.param(
+        f"calibrants:\n  - {{name: a, mz: 445.12, search_ppm: {HUGE}}}  #<\n",
+        "calibrants[0].search_ppm",
+        f"expected a number > 0 and <= 1000000, got {HUGE}",
+        id="huge-search-ppm",
+    )
+)
 
 BAD_CONFIG_CASES += ION_CASES
 

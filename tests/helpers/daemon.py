@@ -209,6 +209,25 @@ class Daemon:
     def signal(self, sig: int) -> None:
         self.proc.send_signal(sig)
 
+    def child_reading(self, file_name: str) -> int | None:
+        """The pid of the daemon's child process that has ``file_name`` open (the measuring
+        child while it measures that run), from /proc; None when there is none right now."""
+        for entry in os.listdir("/proc"):
+            if not entry.isdigit():
+                continue
+            try:
+                stat = Path(f"/proc/{entry}/stat").read_text()
+                ppid = int(stat.rsplit(")", 1)[1].split()[1])
+                if ppid != self.proc.pid:
+                    continue
+                fds = os.listdir(f"/proc/{entry}/fd")
+                targets = [os.readlink(f"/proc/{entry}/fd/{fd}") for fd in fds]
+            except (OSError, IndexError, ValueError):
+                continue  # gone meanwhile, or not ours to look at
+            if any(Path(t).name == file_name for t in targets):
+                return int(entry)
+        return None
+
     def stop(self, timeout_s: float = 10.0) -> int:
         """SIGTERM and wait; returns the exit code."""
         if self.proc.poll() is None:

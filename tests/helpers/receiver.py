@@ -19,10 +19,12 @@ HANG_S = 10.0  # longest a ``hang`` answer holds a request
 
 
 class Receiver:
-    """Records the JSON bodies POSTed to it (``bodies``) and counts every request (``hits``)."""
+    """Records the JSON bodies it answered 200 (``bodies``), every request's JSON whatever the
+    answer (``requests``: a hung request still carried a message), and counts them (``hits``)."""
 
     def __init__(self) -> None:
         self.bodies: list[dict[str, Any]] = []
+        self.requests: list[dict[str, Any]] = []
         self.hits = 0
         self.mode = "ok"  # ok | fail | hang
         self._release = threading.Event()
@@ -40,8 +42,13 @@ class Receiver:
             def do_POST(self) -> None:
                 length = int(self.headers.get("Content-Length", "0"))
                 raw = self.rfile.read(length)
+                try:
+                    body = json.loads(raw)
+                except json.JSONDecodeError:
+                    body = {"raw": raw.decode(errors="replace")}
                 with receiver._lock:
                     receiver.hits += 1
+                    receiver.requests.append(body)
                     mode = receiver.mode
                 if mode == "hang":
                     receiver._release.wait(HANG_S)
@@ -50,10 +57,6 @@ class Receiver:
                     self.send_response(500)
                     self.end_headers()
                     return
-                try:
-                    body = json.loads(raw)
-                except json.JSONDecodeError:
-                    body = {"raw": raw.decode(errors="replace")}
                 with receiver._lock:
                     receiver.bodies.append(body)
                 self.send_response(200)

@@ -241,3 +241,51 @@ def test_status_main_exit_codes(tmp_path: Path) -> None:
         code = cmd_status.main(argparse.Namespace(config=str(cfg), json=False))
     assert code == 3
     assert "no state database" in err.getvalue()
+
+
+def test_a_hanging_receiver_gets_one_message_on_the_back_off_schedule_with_one_id(
+    tmp_path: Path, receiver: Receiver
+) -> None:
+    """A receiver slower than read_timeout_s: each attempt waits the doubling back-off first, so
+    in a 4 s hang there are at most as many attempts as the schedule allows, and every copy
+    (the hung ones and the delivered one) ends in the same 'id: <instrument>-<message id>'."""
+    config = lab_config(receiver.url(), read_timeout_s=0.3, timeout_s=2.0)
+    state = tmp_path / "s"
+    h = Harness(config, state, time.time)  # type: ignore[arg-type]
+    h.run("QC_000.mzML", make_finding())
+    with db.read(h.conn):
+        (message,) = outbox.messages(h.conn)
+    base_s, max_s, hang_s = 0.4, 3.2, 4.0
+    worker = deliver.DeliveryWorker(
+        [deliver.make_target(c, config.alerts) for c in config.alerts.channels],
+        config.alerts,
+        state,
+        backoff_base_s=base_s,
+        backoff_max_s=max_s,
+        poll_s=0.02,
+        instrument=config.instrument.name,
+    )
+    # Attempt start times if sending took no time at all: the most the schedule allows.
+    starts_s = [0.0]
+    while starts_s[-1] <= hang_s:
+        wait_s = deliver.retry_wait_s(len(starts_s), base_s=base_s, max_s=max_s)
+        starts_s.append(starts_s[-1] + wait_s)
+    allowed = len(starts_s) - 1  # 4 here: at 0, 0.4, 1.2 and 2.8 s
+    receiver.mode = "hang"
+    started = time.monotonic()
+    worker.start()
+    try:
+        time.sleep(hang_s - (time.monotonic() - started))
+        hung = receiver.hits
+        assert 2 <= hung <= allowed, receiver.hits
+        receiver.mode = "ok"
+        (body,) = receiver.wait_for(1, timeout_s=2 * max_s + 5)
+    finally:
+        worker.stop()
+        h.close()
+    expected_id = f"id: kestrel-2-q-tof-{message.message_id}"
+    assert body["message"].splitlines()[-1] == expected_id
+    assert [r["message"].splitlines()[-1] for r in receiver.requests] == [expected_id] * len(
+        receiver.requests
+    )
+    assert len(receiver.requests) == hung + 1

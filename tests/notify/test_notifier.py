@@ -99,7 +99,8 @@ def test_one_message_per_run_gathers_all_findings(harness: Harness, receiver: Re
     )
     harness.run("QC_010.mzML", drift, missing)
     (body,) = receiver.wait_for(1)
-    lines = body["message"].splitlines()
+    *lines, id_line = body["message"].splitlines()  # the last line is the message's id
+    assert id_line.startswith("id: kestrel-2-q-tof-")
     assert len(lines) == 3
     assert lines[1].startswith("NEW critical: expected_ion.caffeine.found is False")
     assert lines[2].startswith("NEW warning: calibrant.siloxane-445")
@@ -246,3 +247,19 @@ def test_no_digest_for_a_day_the_daemon_never_watched(tmp_path: Path, receiver: 
             ]
     finally:
         h.close()
+
+
+def test_control_characters_in_a_run_name_are_escaped_in_the_alert(
+    harness: Harness, receiver: Receiver
+) -> None:
+    """A run named with a newline and ESC: the alert's title and each body line show them as
+    escapes, so no forged line or terminal code reaches the chat or the phone."""
+    name = "QC_\x1b[31m\nFORGED: all ok\n.mzML"
+    harness.run(name, make_finding(Severity.WARNING, value=3.4))
+    body = receiver.wait_for(1)[0]
+    shown = "QC_\\x1b[31m\\nFORGED: all ok\\n.mzML"
+    assert body["title"] == f"Kestrel-2 Q-TOF: WARNING {shown}"
+    assert "\x1b" not in body["title"] + body["message"]
+    lines = body["message"].splitlines()
+    assert lines[0].startswith(f"{shown} | ")
+    assert not any(line.startswith("FORGED") for line in lines)

@@ -21,7 +21,16 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any, TextIO
 
 from watcher.cli.exitcodes import ExitCode
-from watcher.records import ReadFailure, RunFile, RunMetrics, Status, Verdict, run_time, shown
+from watcher.records import (
+    ReadFailure,
+    RunFile,
+    RunMetrics,
+    Status,
+    Verdict,
+    printable,
+    run_time,
+    shown,
+)
 
 if TYPE_CHECKING:
     import argparse
@@ -189,7 +198,7 @@ def _silence_stdout() -> None:
 
 
 def _warn(message: str) -> None:
-    sys.stderr.write(f"ionwarden check: {message}\n")
+    sys.stderr.write(f"ionwarden check: {printable(message)}\n")
 
 
 def _open_store(config: Config, *, record: bool) -> sqlite3.Connection | None:
@@ -339,15 +348,17 @@ def render_text(verdict: Verdict, out: TextIO, *, colour: bool = False) -> None:
     metrics = verdict.metrics
     fmt = metrics.format if metrics is not None else (_sniffed_format(verdict.run_file.path) or "?")
     status = _paint(str(verdict.status).upper(), _COLOURS.get(verdict.status), colour)
-    out.write(f"{shown(verdict.run_file.path.name)}  {fmt}  {status}\n")
+    # Names, reasons and messages come from outside (the file's name, its content, the config):
+    # printable() keeps their control characters from reaching the terminal.
+    out.write(f"{shown(verdict.run_file.path.name)}  {printable(fmt)}  {status}\n")
     if metrics is None:
-        out.write(f"  {verdict.error}\n\n")
+        out.write(f"  {printable(str(verdict.error))}\n\n")
         return
     _render_signal(metrics, out)
     if metrics.calibrants:
         rows = [
             [
-                c.name,
+                printable(c.name),
                 f"{c.mz:.6f}",
                 _num(c.median_ppm, ".2f", signed=True),
                 _num(c.mad_ppm, ".2f"),
@@ -370,7 +381,7 @@ def render_text(verdict: Verdict, out: TextIO, *, colour: bool = False) -> None:
     if metrics.expected_ions:
         rows = [
             [
-                i.name,
+                printable(i.name),
                 f"{i.mz:.6f}",
                 "n/a" if i.found is None else "yes" if i.found else "NO",
                 _num(None if i.apex_rt_s is None else i.apex_rt_s / 60.0, ".2f"),
@@ -397,9 +408,9 @@ def render_text(verdict: Verdict, out: TextIO, *, colour: bool = False) -> None:
         out.write("  findings\n")
         for f in verdict.findings:
             sev = _paint(f"{f.severity!s:<8}", _SEVERITY_COLOURS.get(str(f.severity)), colour)
-            out.write(f"    {sev}  {f.check}: {f.message}\n")
+            out.write(f"    {sev}  {printable(f.check)}: {printable(f.message)}\n")
     for note in metrics.notes:
-        out.write(f"  note: {note}\n")
+        out.write(f"  note: {printable(note)}\n")
     out.write("\n")
 
 

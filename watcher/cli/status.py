@@ -17,7 +17,7 @@ from zoneinfo import ZoneInfo
 from watcher.cli.exitcodes import ExitCode
 from watcher.config import Config, load, state_dir_of
 from watcher.errors import StoreError
-from watcher.records import shown
+from watcher.records import printable, shown
 
 if TYPE_CHECKING:
     import argparse
@@ -210,7 +210,8 @@ def render(state: dict[str, Any]) -> str:
         )
         if m["last_error"]:
             lines.append(f"      last error: {m['last_error']}")
-    return "\n".join(lines)
+    # File names, errors and titles come from outside: one escaped line each on the terminal.
+    return "\n".join(printable(line) for line in lines)
 
 
 def main(args: argparse.Namespace) -> int:

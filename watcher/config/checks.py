@@ -20,11 +20,17 @@ from watcher.config.model import (
     ForecastSpec,
     IonSpec,
     is_yes_no_metric,
+    range_of,
 )
 from watcher.config.values import SEVERITIES, Bad, Values
 
 if TYPE_CHECKING:
+    from collections.abc import Callable
+
+    from watcher.config.model import Range
     from watcher.config.yamllines import KeyPath
+
+    Converter = Callable[[KeyPath, Any], Any]
 
 _CONDITION_FIELDS = {"is": "is_"}  # YAML key -> dataclass field where they differ
 _BASELINE_ONLY = frozenset(
@@ -68,7 +74,7 @@ def _check(
     is_baseline = kw.get("against") == "baseline"
     for severity in SEVERITIES:
         v.put(kw, m, path, severity, lambda p, x: _condition(v, p, x, is_baseline=is_baseline))
-    v.put(kw, m, path, "for_runs", lambda p, x: v.integer(p, x, ge=1))
+    v.put(kw, m, path, "for_runs", lambda p, x: v.integer(p, x, range_of(Check, "for_runs")))
     v.put(kw, m, path, "westgard", lambda p, x: v.westgard(p, x))
     v.put(kw, m, path, "westgard_severity", lambda p, x: v.severity(p, x))
     v.put(kw, m, path, "ewma", lambda p, x: _small(v, p, x, "ewma"))
@@ -123,21 +129,24 @@ def _condition(v: Values, path: KeyPath, data: Any, *, is_baseline: bool) -> Con
         if key == "is":
             v.put(kw, m, path, key, lambda p, x: v.boolean(p, x), field=field)
         elif key.endswith(("outside", "inside")):
-            v.put(kw, m, path, key, lambda p, x: v.pair(p, x), field=field)
-        elif key.endswith("_ratio"):
-            v.put(kw, m, path, key, lambda p, x: v.number(p, x, gt=0), field=field)
+            v.put(kw, m, path, key, _reader(v.pair, range_of(Condition, field)), field=field)
         else:
-            v.put(kw, m, path, key, lambda p, x: v.number(p, x), field=field)
+            v.put(kw, m, path, key, _reader(v.number, range_of(Condition, field)), field=field)
     return Condition(**kw)
+
+
+def _reader(read: Callable[[KeyPath, Any, Range], Any], within: Range) -> Converter:
+    """``read`` bound to one field's Range (a loop variable must not be captured late)."""
+    return lambda p, x: read(p, x, within)
 
 
 def _baseline(v: Values, path: KeyPath, data: Any) -> BaselineSpec:
     m = v.mapping(path, data, KEYS["baseline"], "baseline keys") or {}
     kw: dict[str, Any] = {}
-    v.put(kw, m, path, "runs", lambda p, x: v.integer(p, x, ge=1))
-    v.put(kw, m, path, "min_runs", lambda p, x: v.integer(p, x, ge=1))
-    v.put(kw, m, path, "mean", lambda p, x: v.number(p, x))
-    v.put(kw, m, path, "sd", lambda p, x: v.number(p, x, gt=0))
+    v.put(kw, m, path, "runs", lambda p, x: v.integer(p, x, range_of(BaselineSpec, "runs")))
+    v.put(kw, m, path, "min_runs", lambda p, x: v.integer(p, x, range_of(BaselineSpec, "min_runs")))
+    v.put(kw, m, path, "mean", lambda p, x: v.number(p, x, range_of(BaselineSpec, "mean")))
+    v.put(kw, m, path, "sd", lambda p, x: v.number(p, x, range_of(BaselineSpec, "sd")))
     spec = BaselineSpec(**kw)
     if "min_runs" in kw and spec.min_runs > spec.runs:
         v.problem(
@@ -156,16 +165,27 @@ def _small(v: Values, path: KeyPath, data: Any, kind: str) -> Any:
         raise Bad
     kw: dict[str, Any] = {}
     if kind == "ewma":
-        v.put(kw, m, path, "lambda", lambda p, x: v.number(p, x, gt=0, le=1), field="lam")
-        v.put(kw, m, path, "L", lambda p, x: v.number(p, x, gt=0))
+        v.put(
+            kw,
+            m,
+            path,
+            "lambda",
+            lambda p, x: v.number(p, x, range_of(EwmaSpec, "lam")),
+            field="lam",
+        )
+        v.put(kw, m, path, "L", lambda p, x: v.number(p, x, range_of(EwmaSpec, "L")))
         return EwmaSpec(**kw)
     if kind == "cusum":
-        v.put(kw, m, path, "k", lambda p, x: v.number(p, x, ge=0))
-        v.put(kw, m, path, "h", lambda p, x: v.number(p, x, gt=0))
+        v.put(kw, m, path, "k", lambda p, x: v.number(p, x, range_of(CusumSpec, "k")))
+        v.put(kw, m, path, "h", lambda p, x: v.number(p, x, range_of(CusumSpec, "h")))
         return CusumSpec(**kw)
+    v.put(kw, m, path, "runs", lambda p, x: v.integer(p, x, range_of(ForecastSpec, "runs")))
     v.put(
-        kw, m, path, "runs", lambda p, x: v.integer(p, x, ge=3)
-    )  # a line through 2 points is no trend
-    v.put(kw, m, path, "warn_within_h", lambda p, x: v.number(p, x, gt=0))
+        kw,
+        m,
+        path,
+        "warn_within_h",
+        lambda p, x: v.number(p, x, range_of(ForecastSpec, "warn_within_h")),
+    )
     v.put(kw, m, path, "severity", lambda p, x: v.severity(p, x))
     return ForecastSpec(**kw)

@@ -25,14 +25,72 @@ if TYPE_CHECKING:
 
 REGEX_PREFIX = "re:"  # an applies_to entry starting so is a regular expression, not a glob
 YAML_KEY = "yaml_key"  # field metadata: the YAML key, where it is not the field's name
+RANGE = "range"  # field metadata: the Range of values validation accepts for a number
+# Longest file name a regex is matched against: Python's re has no time limit, so together with
+# the shapes refused at validation (watcher.config.regexes) this bounds a match's worst case.
+# 255 is NAME_MAX on Linux file systems: no run file has a longer name.
+MAX_MATCHED_NAME_CHARS = 255
+
+_HOUR_S = 3600.0
+_DAY_S = 86400.0
+# Measured values a threshold or lab-set baseline compares with: intensities and TIC sums stay
+# far below this; a larger number is a typing slip (extra digits), not a limit.
+_MAX_MAGNITUDE = 1e15
 
 
-def _key(name: str | None) -> dict[str, str | None]:
+@dataclass(frozen=True, slots=True)
+class Range:
+    """The values a number in the config may take, ``low`` to ``high``.
+
+    Every number has one, so a slip such as 26 extra digits in ``settle_s`` is refused at
+    validation instead of breaking every run later. ``low`` is None for numbers bounded by
+    magnitude only (``-high`` to ``high``).
+    """
+
+    low: float | None
+    high: float
+    low_open: bool = False  # low itself is refused (``> 0``)
+    high_open: bool = False  # high itself is refused (``< 1``)
+
+
+def _key(name: str | None, within: Range | None = None) -> dict[str, object]:
     """Field metadata naming the field's YAML key; None: set by the loader, not a YAML key.
 
     Durations are ``*_s`` numbers in the types but written ``4h`` in YAML without the suffix;
     ``is`` and ``lambda`` are Python keywords. ``watcher.config.keys`` reads this."""
-    return {YAML_KEY: name}
+    meta: dict[str, object] = {YAML_KEY: name}
+    if within is not None:
+        meta[RANGE] = within
+    return meta
+
+
+def _within(
+    low: float | None, high: float, *, low_open: bool = False, high_open: bool = False
+) -> dict[str, object]:
+    """Field metadata: the field's Range (the YAML key is the field's name)."""
+    return {RANGE: Range(low, high, low_open=low_open, high_open=high_open)}
+
+
+def _positive(high: float) -> dict[str, object]:
+    return _within(0, high, low_open=True)
+
+
+def _magnitude(high: float = _MAX_MAGNITUDE) -> dict[str, object]:
+    return _within(None, high)
+
+
+def range_of(record: type, name: str) -> Range:
+    """The Range of a numeric field of a config record (the one table of allowed values).
+
+    Raises:
+        KeyError: the field has no Range (a new number must get one).
+    """
+    for f in dataclasses.fields(record):
+        if f.name == name:
+            within = f.metadata.get(RANGE)
+            if isinstance(within, Range):
+                return within
+    raise KeyError(f"{record.__name__}.{name} has no Range")
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -42,7 +100,7 @@ class Instrument:
     # m/z / FWHM of the MS1 scans, taken as constant over m/z. Set: the expected M+1/M is the
     # height of the resolved 13C peak (the isotopologues a peak of that width merges with it);
     # None: the whole nominal-mass M+1 cluster, right only for a low-resolution instrument.
-    resolving_power: float | None = None
+    resolving_power: float | None = field(default=None, metadata=_within(100, 1e7))
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -51,14 +109,14 @@ class Watch:
     patterns: tuple[str, ...] = ("*.mzML", "*.mzML.gz", "*.mzXML", "*.mgf")
     ignore: tuple[str, ...] = ("*.tmp", "*.part", "~$*", ".*")
     recursive: bool = True
-    settle_s: float = 10.0
+    settle_s: float = field(default=10.0, metadata=_positive(_DAY_S))
     polling: bool = False
-    poll_interval_s: float = 10.0
-    rescan_interval_s: float = 300.0
+    poll_interval_s: float = field(default=10.0, metadata=_positive(_HOUR_S))
+    rescan_interval_s: float = field(default=300.0, metadata=_positive(7 * _DAY_S))
     # a file still changing after this long becomes unreadable (a writer that never finishes)
-    max_wait_s: float = 86400.0
+    max_wait_s: float = field(default=86400.0, metadata=_positive(30 * _DAY_S))
     # a file unchanged this long but still incomplete is reported unreadable (the copy died)
-    stall_s: float = 600.0
+    stall_s: float = field(default=600.0, metadata=_positive(30 * _DAY_S))
     # A link in the export folder to a file elsewhere (/etc/shadow, the config's secrets) is
     # skipped unless this is set: the folder's writers must not choose what the daemon reads.
     follow_symlinks_out: bool = False
@@ -74,26 +132,35 @@ class IonSpec:
     """
 
     name: str
-    mz: float | None = None
+    # m/z of singly charged ions above 100 000 is beyond every mass analyser
+    mz: float | None = field(default=None, metadata=_positive(100_000.0))
     formula: str | None = None
     peptide: str | None = None
     adduct: str | None = None
-    charge: int = 1  # signed by the adduct's sign for formula ions; peptides: [M+zH]z+
-    search_ppm: float = 20.0
+    # signed by the adduct's sign for formula ions; peptides: [M+zH]z+
+    charge: int = field(default=1, metadata=_magnitude(100))
+    # 1e6 ppm is a window as wide as the m/z itself: beyond it the window reaches below zero
+    search_ppm: float = field(default=20.0, metadata=_positive(1e6))
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class ExpectedIon:
     ion: IonSpec
-    rt_window_min: tuple[float, float] | None = None  # minutes, as users type them
-    min_intensity: float = 0.0
+    # minutes, as users type them; a week of gradient is far beyond any LC run
+    rt_window_min: tuple[float, float] | None = field(
+        default=None, metadata=_within(0, 7 * 24 * 60.0)
+    )
+    min_intensity: float = field(default=0.0, metadata=_within(0, _MAX_MAGNITUDE))
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class SignalSettings:
     # an MS1 scan is a dropout when TIC < this x the working TIC (measure.signal.working_tic)
-    dropout_fraction: float = 0.1
-    dropout_min_scans: int = 1  # shortest run of low scans that counts as a dropout
+    dropout_fraction: float = field(
+        default=0.1, metadata=_within(0, 1, low_open=True, high_open=True)
+    )
+    # shortest run of low scans that counts as a dropout
+    dropout_min_scans: int = field(default=1, metadata=_within(1, 1_000_000))
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -106,19 +173,19 @@ class Condition:
     ((value - centre) / sd).
     """
 
-    above: float | None = None
-    below: float | None = None
-    outside: tuple[float, float] | None = None
-    inside: tuple[float, float] | None = None
+    above: float | None = field(default=None, metadata=_magnitude())
+    below: float | None = field(default=None, metadata=_magnitude())
+    outside: tuple[float, float] | None = field(default=None, metadata=_magnitude())
+    inside: tuple[float, float] | None = field(default=None, metadata=_magnitude())
     is_: bool | None = field(default=None, metadata=_key("is"))
-    below_ratio: float | None = None
-    above_ratio: float | None = None
-    diff_above: float | None = None
-    diff_below: float | None = None
-    diff_outside: tuple[float, float] | None = None
-    z_above: float | None = None
-    z_below: float | None = None
-    z_outside: tuple[float, float] | None = None
+    below_ratio: float | None = field(default=None, metadata=_positive(1e6))
+    above_ratio: float | None = field(default=None, metadata=_positive(1e6))
+    diff_above: float | None = field(default=None, metadata=_magnitude())
+    diff_below: float | None = field(default=None, metadata=_magnitude())
+    diff_outside: tuple[float, float] | None = field(default=None, metadata=_magnitude())
+    z_above: float | None = field(default=None, metadata=_magnitude(1000.0))
+    z_below: float | None = field(default=None, metadata=_magnitude(1000.0))
+    z_outside: tuple[float, float] | None = field(default=None, metadata=_magnitude(1000.0))
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -129,28 +196,33 @@ class BaselineSpec:
     1.4826 x MAD), needing at least ``min_runs``; or fixed ``mean`` and ``sd`` set by the lab.
     """
 
-    runs: int = 20
-    min_runs: int = 5
-    mean: float | None = None
-    sd: float | None = None
+    # the history read per judgement grows with runs: beyond 10 000 it is an archive, not a baseline
+    runs: int = field(default=20, metadata=_within(1, 10_000))
+    min_runs: int = field(default=5, metadata=_within(1, 10_000))
+    mean: float | None = field(default=None, metadata=_magnitude())
+    sd: float | None = field(default=None, metadata=_positive(_MAX_MAGNITUDE))
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class EwmaSpec:
-    lam: float = field(default=0.2, metadata=_key("lambda"))  # weight of the newest run
-    L: float = 3.0  # control-limit width in sigma of the EWMA statistic
+    # weight of the newest run
+    lam: float = field(default=0.2, metadata=_key("lambda", Range(0, 1, low_open=True)))
+    # control-limit width in sigma of the EWMA statistic
+    L: float = field(default=3.0, metadata=_positive(10.0))
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class CusumSpec:
-    k: float = 0.5  # allowance, in SD units
-    h: float = 5.0  # decision interval, in SD units
+    k: float = field(default=0.5, metadata=_within(0, 10.0))  # allowance, in SD units
+    h: float = field(default=5.0, metadata=_positive(100.0))  # decision interval, in SD units
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class ForecastSpec:
-    runs: int = 10  # K: fit over the last K runs (this one included)
-    warn_within_h: float = 12.0  # a finding when the critical limit is reached within this
+    # K: fit over the last K runs (this one included); a line through 2 points is no trend
+    runs: int = field(default=10, metadata=_within(3, 10_000))
+    # a finding when the critical limit is reached within this (a year at most)
+    warn_within_h: float = field(default=12.0, metadata=_positive(366 * 24.0))
     severity: Severity = Severity.NOTICE
 
 
@@ -164,7 +236,8 @@ class Check:
     notice: Condition | None = None
     warning: Condition | None = None
     critical: Condition | None = None
-    for_runs: int = 1  # consecutive runs the condition must hold before it fires
+    # consecutive runs the condition must hold before it fires
+    for_runs: int = field(default=1, metadata=_within(1, 1000))
     westgard: tuple[str, ...] = ()  # e.g. ("1-3s", "2-2s", "R-4s", "10x")
     westgard_severity: Severity = Severity.WARNING
     ewma: EwmaSpec | None = None
@@ -191,6 +264,9 @@ def matches_applies_to(applies_to: Sequence[str], file_name: str) -> bool:
         return True
     for pattern in applies_to:
         if pattern.startswith(REGEX_PREFIX):
+            # Longer than a file name can be: never handed to the unbounded regex matcher.
+            if len(file_name) > MAX_MATCHED_NAME_CHARS:
+                continue
             if _compiled(pattern[len(REGEX_PREFIX) :]).fullmatch(file_name):
                 return True
         elif fnmatchcase(file_name, pattern):
@@ -200,13 +276,19 @@ def matches_applies_to(applies_to: Sequence[str], file_name: str) -> bool:
 
 @functools.lru_cache(maxsize=256)
 def _compiled(pattern: str) -> re.Pattern[str]:
-    # Loaded configs have valid regexes already; this guards checks built in code.
+    # Loaded configs have valid, safe regexes already; this guards checks built in code.
+    from watcher.config.regexes import regex_problem
+
     try:
-        return re.compile(pattern)
+        compiled = re.compile(pattern)
     except re.error as exc:
         raise ConfigError(
             [ConfigProblem("", None, "applies_to", f"invalid regex {pattern!r}: {exc}")]
         ) from exc
+    problem = regex_problem(pattern)
+    if problem is not None:
+        raise ConfigError([ConfigProblem("", None, "applies_to", problem)])
+    return compiled
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -221,40 +303,52 @@ class Channel:
 class Alerts:
     channels: tuple[Channel, ...] = ()
     # None = never remind
-    remind_every_s: float | None = field(default=4 * 3600.0, metadata=_key("remind_every"))
+    remind_every_s: float | None = field(
+        default=4 * 3600.0, metadata=_key("remind_every", Range(0, 30 * _DAY_S, low_open=True))
+    )
     send_cleared: bool = True
     # the no-run alert; None = off
-    expect_run_every_s: float | None = field(default=None, metadata=_key("expect_run_every"))
+    expect_run_every_s: float | None = field(
+        default=None, metadata=_key("expect_run_every", Range(0, 30 * _DAY_S, low_open=True))
+    )
     # local (start, end), e.g. 18:00 to 08:00: the no-run alert watches only then (may wrap)
     active_hours: tuple[time, time] | None = None
-    timeout_s: float = 30.0  # whole notify() call
-    connect_timeout_s: float = 10.0  # per URL (apprise cto)
-    read_timeout_s: float = 10.0  # per URL (apprise rto)
+    # whole notify() call; the delivery worker is blocked for this long at most
+    timeout_s: float = field(default=30.0, metadata=_positive(_HOUR_S))
+    connect_timeout_s: float = field(default=10.0, metadata=_positive(300.0))  # apprise cto
+    read_timeout_s: float = field(default=10.0, metadata=_positive(300.0))  # apprise rto
     # give up on a message older than this
-    retry_for_s: float = field(default=24 * 3600.0, metadata=_key("retry_for"))
+    retry_for_s: float = field(
+        default=24 * 3600.0, metadata=_key("retry_for", Range(0, 30 * _DAY_S, low_open=True))
+    )
     # Wait before the first retry of a failed delivery; it doubles per attempt up to the max.
-    retry_first_wait_s: float = field(default=5.0, metadata=_key("retry_first_wait"))
-    retry_max_wait_s: float = field(default=600.0, metadata=_key("retry_max_wait"))
+    retry_first_wait_s: float = field(
+        default=5.0, metadata=_key("retry_first_wait", Range(0, _DAY_S, low_open=True))
+    )
+    retry_max_wait_s: float = field(
+        default=600.0, metadata=_key("retry_max_wait", Range(0, _DAY_S, low_open=True))
+    )
     plots: bool = False  # attach a PNG of the metric history where the channel takes attachments
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class HealthLog:
     dir: Path | None = None  # default: <state_dir>/health
-    keep_days: int = 90
+    keep_days: int = field(default=90, metadata=_within(1, 36_500))  # a century at most
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class Limits:
     """Per-run measuring limits of the child process; both grow with file size."""
 
-    parse_timeout_s: float = 300.0
-    parse_timeout_s_per_gb: float = 300.0
-    parse_memory_mb: int = 2048
-    queue_max: int = 10000
+    parse_timeout_s: float = field(default=300.0, metadata=_positive(_DAY_S))
+    parse_timeout_s_per_gb: float = field(default=300.0, metadata=_within(0, _DAY_S))
+    # below 64 MB the interpreter and readers do not load; above 1 TB is no machine's RAM
+    parse_memory_mb: int = field(default=2048, metadata=_within(64, 1024 * 1024))
+    queue_max: int = field(default=10000, metadata=_within(1, 10_000_000))
     # Bound on a .mzML.gz's decompressed size: the largest real runs are a few GB inflated, a
     # gzip bomb is 1000 times its file size. Over it, the run is unreadable (kind "too-large").
-    max_inflated_mb: int = 20000
+    max_inflated_mb: int = field(default=20000, metadata=_within(1, 1024 * 1024 * 1024))
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -272,7 +366,7 @@ class Config:
     health_log: HealthLog = field(default_factory=HealthLog)
     limits: Limits = field(default_factory=Limits)
     digest_at: time | None = None  # local time of day (YAML "07:30"): the daemon sends the digest
-    log_keep_days: int = 30
+    log_keep_days: int = field(default=30, metadata=_within(1, 36_500))
 
 
 WESTGARD_RULES: tuple[str, ...] = ("1-2s", "1-3s", "2-2s", "R-4s", "4-1s", "10x")

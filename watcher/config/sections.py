@@ -22,6 +22,7 @@ from watcher.config.model import (
     Limits,
     SignalSettings,
     Watch,
+    range_of,
 )
 from watcher.config.yamllines import KeyPath
 
@@ -54,7 +55,7 @@ def build_config(v: Values, data: Any, source: Path) -> Config:
         HealthLog,
         {
             "dir": lambda p, x: None if x is None else v.path(p, x),
-            "keep_days": lambda p, x: v.integer(p, x, ge=1),
+            "keep_days": lambda p, x: v.integer(p, x, range_of(HealthLog, "keep_days")),
         },
     )
     kw["limits"] = _section(
@@ -63,15 +64,23 @@ def build_config(v: Values, data: Any, source: Path) -> Config:
         ("limits",),
         Limits,
         {
-            "parse_timeout_s": lambda p, x: v.duration(p, x),
-            "parse_timeout_s_per_gb": lambda p, x: v.duration(p, x, allow_zero=True),
-            "parse_memory_mb": lambda p, x: v.integer(p, x, ge=64),
-            "queue_max": lambda p, x: v.integer(p, x, ge=1),
-            "max_inflated_mb": lambda p, x: v.integer(p, x, ge=1),
+            "parse_timeout_s": lambda p, x: v.duration(p, x, range_of(Limits, "parse_timeout_s")),
+            "parse_timeout_s_per_gb": lambda p, x: v.duration(
+                p, x, range_of(Limits, "parse_timeout_s_per_gb")
+            ),
+            "parse_memory_mb": lambda p, x: v.integer(p, x, range_of(Limits, "parse_memory_mb")),
+            "queue_max": lambda p, x: v.integer(p, x, range_of(Limits, "queue_max")),
+            "max_inflated_mb": lambda p, x: v.integer(p, x, range_of(Limits, "max_inflated_mb")),
         },
     )
     v.put(kw, top, (), "digest_at", lambda p, x: None if x is None else v.time_of_day(p, x))
-    v.put(kw, top, (), "log_keep_days", lambda p, x: v.integer(p, x, ge=1))
+    v.put(
+        kw,
+        top,
+        (),
+        "log_keep_days",
+        lambda p, x: v.integer(p, x, range_of(Config, "log_keep_days")),
+    )
     return Config(source=source, **kw)
 
 
@@ -91,8 +100,12 @@ def _section(
 
 def _signal_fields(v: Values) -> dict[str, Converter]:
     return {
-        "dropout_fraction": lambda p, x: v.number(p, x, gt=0, lt=1),
-        "dropout_min_scans": lambda p, x: v.integer(p, x, ge=1),
+        "dropout_fraction": lambda p, x: v.number(
+            p, x, range_of(SignalSettings, "dropout_fraction")
+        ),
+        "dropout_min_scans": lambda p, x: v.integer(
+            p, x, range_of(SignalSettings, "dropout_min_scans")
+        ),
     }
 
 
@@ -105,7 +118,9 @@ def _instrument(v: Values, data: Any) -> Instrument:
         {
             "name": lambda p, x: v.text(p, x),
             "timezone": lambda p, x: v.timezone(p, x),
-            "resolving_power": lambda p, x: None if x is None else v.number(p, x, ge=100, le=1e7),
+            "resolving_power": lambda p, x: (
+                None if x is None else v.number(p, x, range_of(Instrument, "resolving_power"))
+            ),
         },
     )
 
@@ -116,12 +131,12 @@ def _watch(v: Values, data: Any) -> Watch:
         "patterns": lambda p, x: v.texts(p, x),
         "ignore": lambda p, x: v.texts(p, x),
         "recursive": lambda p, x: v.boolean(p, x),
-        "settle_s": lambda p, x: v.duration(p, x),
+        "settle_s": lambda p, x: v.duration(p, x, range_of(Watch, "settle_s")),
         "polling": lambda p, x: v.boolean(p, x),
-        "poll_interval_s": lambda p, x: v.duration(p, x),
-        "rescan_interval_s": lambda p, x: v.duration(p, x),
-        "max_wait_s": lambda p, x: v.duration(p, x),
-        "stall_s": lambda p, x: v.duration(p, x),
+        "poll_interval_s": lambda p, x: v.duration(p, x, range_of(Watch, "poll_interval_s")),
+        "rescan_interval_s": lambda p, x: v.duration(p, x, range_of(Watch, "rescan_interval_s")),
+        "max_wait_s": lambda p, x: v.duration(p, x, range_of(Watch, "max_wait_s")),
+        "stall_s": lambda p, x: v.duration(p, x, range_of(Watch, "stall_s")),
         "follow_symlinks_out": lambda p, x: v.boolean(p, x),
     }
     return _section(v, data, ("watch",), Watch, fields)  # type: ignore[no-any-return]
@@ -145,8 +160,20 @@ def _ions(v: Values, data: Any, key: str, kind: str) -> tuple[Any, ...]:
             out.append(ion)
             continue
         kw: dict[str, Any] = {}
-        v.put(kw, m, path, "rt_window_min", lambda p, x: v.pair(p, x, ge=0))
-        v.put(kw, m, path, "min_intensity", lambda p, x: v.number(p, x, ge=0))
+        v.put(
+            kw,
+            m,
+            path,
+            "rt_window_min",
+            lambda p, x: v.pair(p, x, range_of(ExpectedIon, "rt_window_min")),
+        )
+        v.put(
+            kw,
+            m,
+            path,
+            "min_intensity",
+            lambda p, x: v.number(p, x, range_of(ExpectedIon, "min_intensity")),
+        )
         out.append(ExpectedIon(ion=ion, **kw))
     return tuple(out)
 
@@ -164,12 +191,12 @@ def _ion(v: Values, path: KeyPath, m: dict[str, Any]) -> IonSpec | None:
             (*path, ways[1]), f"give only one of mz, formula or peptide, got {' and '.join(ways)}"
         )
         ok = False
-    v.put(kw, m, path, "mz", lambda p, x: v.number(p, x, gt=0))
+    v.put(kw, m, path, "mz", lambda p, x: v.number(p, x, range_of(IonSpec, "mz")))
     v.put(kw, m, path, "formula", lambda p, x: v.pattern(p, x, "formula"))
     v.put(kw, m, path, "peptide", lambda p, x: v.pattern(p, x, "peptide"))
     v.put(kw, m, path, "adduct", lambda p, x: v.pattern(p, x, "adduct"))
-    v.put(kw, m, path, "charge", lambda p, x: v.integer(p, x, ne=0))
-    v.put(kw, m, path, "search_ppm", lambda p, x: v.number(p, x, gt=0))
+    v.put(kw, m, path, "charge", lambda p, x: v.integer(p, x, range_of(IonSpec, "charge"), ne=0))
+    v.put(kw, m, path, "search_ppm", lambda p, x: v.number(p, x, range_of(IonSpec, "search_ppm")))
     if "adduct" in m and "mz" in m:
         v.problem((*path, "adduct"), "adduct does not apply to an ion given by mz")
         ok = False
@@ -184,20 +211,35 @@ def _alerts(v: Values, data: Any, check_names: set[str]) -> Alerts:
     kw: dict[str, Any] = {}
     v.put(kw, m, path, "channels", lambda p, x: _channels(v, p, x, check_names))
 
-    def seconds_or_never(p: KeyPath, x: Any) -> float | None:
-        return v.duration(p, x, allow_never=True)
+    def seconds(field: str, *, allow_never: bool = False) -> Converter:
+        within = range_of(Alerts, field)
+        return lambda p, x: v.duration(p, x, within, allow_never=allow_never)
 
-    v.put(kw, m, path, "remind_every", seconds_or_never, field="remind_every_s")
+    v.put(
+        kw,
+        m,
+        path,
+        "remind_every",
+        seconds("remind_every_s", allow_never=True),
+        field="remind_every_s",
+    )
     v.put(kw, m, path, "send_cleared", lambda p, x: v.boolean(p, x))
-    v.put(kw, m, path, "expect_run_every", seconds_or_never, field="expect_run_every_s")
+    v.put(
+        kw,
+        m,
+        path,
+        "expect_run_every",
+        seconds("expect_run_every_s", allow_never=True),
+        field="expect_run_every_s",
+    )
     v.put(kw, m, path, "active_hours", lambda p, x: None if x is None else v.hours(p, x))
     for key in ("timeout_s", "connect_timeout_s", "read_timeout_s"):
-        v.put(kw, m, path, key, lambda p, x: v.duration(p, x))
-    v.put(kw, m, path, "retry_for", lambda p, x: v.duration(p, x), field="retry_for_s")
+        v.put(kw, m, path, key, seconds(key))
+    v.put(kw, m, path, "retry_for", seconds("retry_for_s"), field="retry_for_s")
     v.put(
-        kw, m, path, "retry_first_wait", lambda p, x: v.duration(p, x), field="retry_first_wait_s"
+        kw, m, path, "retry_first_wait", seconds("retry_first_wait_s"), field="retry_first_wait_s"
     )
-    v.put(kw, m, path, "retry_max_wait", lambda p, x: v.duration(p, x), field="retry_max_wait_s")
+    v.put(kw, m, path, "retry_max_wait", seconds("retry_max_wait_s"), field="retry_max_wait_s")
     v.put(kw, m, path, "plots", lambda p, x: v.boolean(p, x))
     alerts = Alerts(**kw)
     if alerts.retry_first_wait_s > alerts.retry_max_wait_s:

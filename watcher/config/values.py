@@ -17,7 +17,8 @@ from datetime import time
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from watcher.config.model import WESTGARD_RULES, metric_path_problem
+from watcher.config.model import REGEX_PREFIX, WESTGARD_RULES, Range, metric_path_problem
+from watcher.config.regexes import regex_problem
 from watcher.config.yamllines import KeyPath, format_path
 from watcher.errors import ConfigProblem
 from watcher.records import Severity
@@ -59,6 +60,26 @@ _PATTERNS = {
         "an adduct such as +H, +Na, +NH4, -H, +2H, [M+2H]2+, M+. or M-.",
     ),
 }
+
+
+def _is_finite_number(x: Any) -> bool:
+    """An int or a finite float, not a bool; ints of any size (YAML reads digits exactly)."""
+    if isinstance(x, bool):
+        return False
+    return isinstance(x, int) or (isinstance(x, float) and math.isfinite(x))
+
+
+def _bound(x: float) -> str:
+    """A Range's bound in a message: ``1048576``, ``0.5``, ``1e+15``."""
+    return str(int(x)) if float(x).is_integer() and abs(x) < 1e7 else f"{x:g}"
+
+
+def _duration_text(seconds: float) -> str:
+    """``30d``, ``1h``, ``5min`` or ``300s``: a range's bound the way users write durations."""
+    for unit, size_s in _DURATION_UNIT_S.items():
+        if seconds >= size_s and (seconds / size_s).is_integer():
+            return f"{seconds / size_s:g}{unit}"
+    return f"{seconds:g}s"
 
 
 class Values:
@@ -170,38 +191,56 @@ class Values:
 
     # -- scalars -------------------------------------------------------------------------------
 
-    def number(
-        self,
-        path: KeyPath,
-        x: Any,
-        *,
-        gt: float | None = None,
-        ge: float | None = None,
-        lt: float | None = None,
-        le: float | None = None,
-    ) -> float:
-        bounds = [
-            (op, b) for op, b in ((">", gt), (">=", ge), ("<", lt), ("<=", le)) if b is not None
-        ]
-        wanted = "a number" + " and".join(f" {op} {self.show(b)}" for op, b in bounds)
-        if isinstance(x, bool) or not isinstance(x, int | float) or not math.isfinite(x):
+    @staticmethod
+    def _low_text(within: Range) -> str:
+        """`` > 0`` or `` >= 1``: the lower bound as the messages write it ('' for none)."""
+        if within.low is None:
+            return ""
+        return f" {'>' if within.low_open else '>='} {Values.show(within.low)}"
+
+    @staticmethod
+    def _in_range(x: float, within: Range) -> tuple[bool, bool]:
+        """(above the low bound, below the high bound) of ``within``."""
+        low = -within.high if within.low is None else within.low
+        low_ok = x > low if within.low_open else x >= low
+        high_ok = x < within.high if within.high_open else x <= within.high
+        return low_ok, high_ok
+
+    def _range_fail(self, path: KeyPath, what: str, x: Any, within: Range) -> Bad:
+        """The problem for a value outside ``within``; the message names the whole range."""
+        if within.low is None:
+            span = f"between {_bound(-within.high)} and {_bound(within.high)}"
+            return self.fail(path, f"expected {what} {span}, got {self.show(x)}")
+        high = f"{'<' if within.high_open else '<='} {_bound(within.high)}"
+        return self.fail(
+            path, f"expected {what}{self._low_text(within)} and {high}, got {self.show(x)}"
+        )
+
+    def number(self, path: KeyPath, x: Any, within: Range) -> float:
+        """A finite number in ``within`` (the field's Range in ``watcher.config.model``)."""
+        wanted = "a number" + self._low_text(within)
+        if not _is_finite_number(x):
             raise self.fail(path, f"expected {wanted}, got {self.show(x)}")
-        if not all(_COMPARE[op](x, b) for op, b in bounds):
+        low_ok, high_ok = self._in_range(x, within)
+        if not low_ok and within.low is not None:
             raise self.fail(path, f"expected {wanted}, got {self.show(x)}")
+        if not (low_ok and high_ok):
+            raise self._range_fail(path, "a number", x, within)
         return float(x)
 
-    def integer(
-        self, path: KeyPath, x: Any, *, ge: int | None = None, ne: int | None = None
-    ) -> int:
+    def integer(self, path: KeyPath, x: Any, within: Range, *, ne: int | None = None) -> int:
+        """An integer in ``within``, other than ``ne`` when given."""
+        what = "an integer" + (f" other than {ne}" if ne is not None else "")
         wanted = (
-            "an integer"
-            + (f" >= {ge}" if ge is not None else "")
-            + (f" other than {ne}" if ne is not None else "")
+            "an integer" + self._low_text(within) + (f" other than {ne}" if ne is not None else "")
         )
         if isinstance(x, bool) or not isinstance(x, int):
             raise self.fail(path, f"expected {wanted}, got {self.show(x)}")
-        if (ge is not None and x < ge) or (ne is not None and x == ne):
+        low_ok, high_ok = self._in_range(x, within)
+        if (not low_ok and within.low is not None) or (ne is not None and x == ne):
             raise self.fail(path, f"expected {wanted}, got {x}")
+        if not (low_ok and high_ok):
+            raise self._range_fail(path, what, x, within)
         return x
 
     def boolean(self, path: KeyPath, x: Any) -> bool:
@@ -258,22 +297,31 @@ class Values:
             raise self.fail(path, f"expected {wanted}, got {self.show(x)}")
         return x
 
-    def pair(self, path: KeyPath, x: Any, *, ge: float | None = None) -> tuple[float, float]:
-        wanted = "[low, high] with " + (f"{ge} <= " if ge is not None else "") + "low < high"
+    def pair(self, path: KeyPath, x: Any, within: Range) -> tuple[float, float]:
+        low_text = f"{self.show(within.low)} <= " if within.low is not None else ""
+        wanted = f"[low, high] with {low_text}low < high"
         if not isinstance(x, list) or len(x) != 2:
             raise self.fail(path, f"expected {wanted}, got {self.show(x)}")
         low, high = x
-        is_num = all(isinstance(n, int | float) and not isinstance(n, bool) for n in x)
-        if not is_num or not (math.isfinite(low) and math.isfinite(high)) or not low < high:
+        if not all(_is_finite_number(n) for n in x) or not low < high:
             raise self.fail(path, f"expected {wanted}, got {self.show(x)}")
-        if ge is not None and low < ge:
+        if within.low is not None and low < within.low:
             raise self.fail(path, f"expected {wanted}, got {self.show(x)}")
+        if not all(self._in_range(n, within)[1] and self._in_range(n, within)[0] for n in x):
+            bound = (
+                f"{_bound(within.low)} <= low < high <= {_bound(within.high)}"
+                if within.low is not None
+                else f"both between {_bound(-within.high)} and {_bound(within.high)}"
+            )
+            raise self.fail(path, f"expected [low, high] with {bound}, got {self.show(x)}")
         return (float(low), float(high))
 
     def duration(
-        self, path: KeyPath, x: Any, *, allow_zero: bool = False, allow_never: bool = False
+        self, path: KeyPath, x: Any, within: Range, *, allow_never: bool = False
     ) -> float | None:
-        """Seconds from ``20``, ``20s``, ``30min``, ``4h``, ``2d`` or ``1h30min``."""
+        """Seconds from ``20``, ``20s``, ``30min``, ``4h``, ``2d`` or ``1h30min``, in ``within``
+        (which starts at 0: ``low_open`` says whether 0 itself is allowed)."""
+        allow_zero = not within.low_open
         wanted = (
             f"a duration {'>= 0' if allow_zero else '> 0'} such as 20s, 30min, 4h, 2d or seconds"
         )
@@ -283,12 +331,20 @@ class Values:
                 return None
         if isinstance(x, str) and _DURATION_RE.match(x):
             seconds = sum(float(n) * _DURATION_UNIT_S[u] for n, u in re.findall(_DURATION_PART, x))
-        elif isinstance(x, int | float) and not isinstance(x, bool) and math.isfinite(x):
-            seconds = float(x)
+        elif _is_finite_number(x):
+            # an int too large for a float is beyond every Range: keep it refusable, not an error
+            seconds = float(x) if abs(x) < 1e300 else math.inf
         else:
             raise self.fail(path, f"expected {wanted}, got {self.show(x)}")
         if seconds < 0 or (seconds == 0 and not allow_zero):
             raise self.fail(path, f"expected {wanted}, got {self.show(x)}")
+        if seconds > within.high:
+            most = f"{_duration_text(within.high)} ({within.high:g} s)"
+            raise self.fail(
+                path,
+                f"expected a duration {'>= 0' if allow_zero else '> 0'} and at most {most}, "
+                f"got {self.show(x)}",
+            )
         return seconds
 
     def time_of_day(self, path: KeyPath, x: Any) -> time:
@@ -339,12 +395,11 @@ class Values:
         """File-name globs, or ``re:<regex>``."""
         patterns = self.texts(path, x)
         for i, pattern in enumerate(patterns):
-            if pattern.startswith("re:"):
-                try:
-                    re.compile(pattern[3:])
-                except re.error as exc:
+            if pattern.startswith(REGEX_PREFIX):
+                message = regex_problem(pattern[len(REGEX_PREFIX) :])
+                if message is not None:
                     where = (*path, i) if isinstance(x, list) else path
-                    self.problem(where, f"bad regular expression {pattern[3:]!r}: {exc}")
+                    self.problem(where, message)
         return patterns
 
     def westgard(self, path: KeyPath, x: Any) -> tuple[str, ...]:

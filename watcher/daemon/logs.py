@@ -26,6 +26,7 @@ EVENTS: frozenset[str] = frozenset(
         "run.measured",
         "run.unreadable",
         "run.judged",
+        "child.killed",
         # daemon life
         "daemon.started",
         "daemon.ready",
@@ -63,12 +64,12 @@ EVENTS: frozenset[str] = frozenset(
 import logging  # noqa: E402
 import logging.handlers  # noqa: E402
 import sys  # noqa: E402
-from typing import TYPE_CHECKING, Any, TextIO  # noqa: E402
+from pathlib import Path  # noqa: E402
+from typing import Any, TextIO  # noqa: E402
 
 import structlog  # noqa: E402
 
-if TYPE_CHECKING:
-    from pathlib import Path
+from watcher.records import printable  # noqa: E402
 
 LOG_FILE_NAME = "ionwarden.jsonl"
 
@@ -82,16 +83,34 @@ _SHARED: list[Any] = [
 ]
 
 
+def _printable_values(_logger: Any, _name: str, event_dict: dict[str, Any]) -> dict[str, Any]:
+    """Control characters in logged text shown as escapes, for the console renderer.
+
+    A run file's name is chosen by whoever exports it; on a terminal its ESC sequences would
+    recolour or rewrite the screen and a newline would forge a log line. JSON lines need no such
+    step (JSON escapes control characters itself). A traceback keeps its line breaks.
+    """
+    out: dict[str, Any] = {}
+    for key, value in event_dict.items():
+        if isinstance(value, str):
+            if key == "exception":
+                value = "\n".join(printable(line) for line in value.split("\n"))
+            else:
+                value = printable(value)
+        elif isinstance(value, Path):
+            value = printable(str(value))
+        out[printable(str(key))] = value
+    return out
+
+
 def _formatter(renderer: Any) -> logging.Formatter:
+    if isinstance(renderer, structlog.processors.JSONRenderer):
+        steps = [structlog.processors.dict_tracebacks]
+    else:
+        steps = [structlog.processors.format_exc_info, _printable_values]  # type: ignore[list-item]
     return structlog.stdlib.ProcessorFormatter(
         foreign_pre_chain=_SHARED,
-        processors=[
-            structlog.stdlib.ProcessorFormatter.remove_processors_meta,
-            structlog.processors.dict_tracebacks
-            if isinstance(renderer, structlog.processors.JSONRenderer)
-            else structlog.processors.format_exc_info,
-            renderer,
-        ],
+        processors=[structlog.stdlib.ProcessorFormatter.remove_processors_meta, *steps, renderer],
     )
 
 

@@ -26,6 +26,7 @@ from typing import TYPE_CHECKING, Any
 
 import structlog
 
+from watcher.daemon import cgroup
 from watcher.daemon.child import HEADER, READY, frame
 from watcher.intake import folderwalk
 from watcher.records import DaemonEvent, RunFile, RunMetrics, Status, Verdict, run_time, shown
@@ -114,6 +115,8 @@ class MeasuringChild:
         limit_s = time_limit_s(config.limits, size)
         memory_mb = memory_limit_mb(config.limits, size)
         proc = self._ensure(stop)
+        # Read before the run: a rise by the time the child dies of SIGKILL means the OOM killer.
+        oom_kills_before = cgroup.oom_kills()
         payload = frame(pickle.dumps((config, str(path), memory_mb)))
         try:
             if proc.stdin is None:
@@ -121,14 +124,17 @@ class MeasuringChild:
             proc.stdin.write(payload)
             proc.stdin.flush()
         except (BrokenPipeError, OSError):
-            return self._died(memory_mb, stop)
-        data = self._read_frame(proc, time.monotonic() + limit_s, stop)
+            return self._died(memory_mb, stop, oom_kills_before)
+        deadline = time.monotonic() + limit_s
+        data = self._read_frame(proc, deadline, stop)
         if data is None:
-            if proc.poll() is None:  # still running: the time limit passed
+            # End of output before the deadline is a death even when poll() cannot see it yet:
+            # a killed process closes its pipes before it becomes a zombie.
+            if proc.poll() is None and time.monotonic() >= deadline:
                 self.close()
                 shown = f"{limit_s:.0f}" if limit_s >= 10 else f"{limit_s:.2g}"
                 return ChildResult(None, "timeout", f"timeout after {shown} s")
-            return self._died(memory_mb, stop)
+            return self._died(memory_mb, stop, oom_kills_before)
         self._served += 1
         try:
             result: tuple[Any, ...] = pickle.loads(data)  # noqa: S301 - our own child
@@ -192,14 +198,28 @@ class MeasuringChild:
         (length,) = HEADER.unpack(header)
         return _read_exact(fd, length, deadline, stop)
 
-    def _died(self, memory_mb: int, stop: threading.Event | None) -> ChildResult:
+    def _died(
+        self, memory_mb: int, stop: threading.Event | None, oom_kills_before: int | None
+    ) -> ChildResult:
+        """Why the child died without an answer. Its own RLIMIT_AS MemoryError is answered by
+        the child itself (kind ``memory``), so a silent SIGKILL is the OOM killer only when the
+        cgroup's counter rose; else a person, a supervisor or an unreadable counter: ``killed``,
+        which the pipeline measures once more before calling the run unreadable."""
         proc = self._proc
-        code = proc.wait(timeout=10) if proc is not None else None
+        try:
+            code = proc.wait(timeout=10) if proc is not None else None
+        except subprocess.TimeoutExpired:  # closed its output but lives on: end it
+            code = None
         self.close()
         if stop is not None and stop.is_set():
             raise Stopped  # systemd signals the whole cgroup on stop: not the file's fault
-        if code == -signal.SIGKILL:  # killed by the kernel's OOM killer or the unit's MemoryMax
-            return ChildResult(None, "memory", f"out of memory (limit {memory_mb} MB)")
+        if code == -signal.SIGKILL:
+            after = cgroup.oom_kills()
+            if oom_kills_before is not None and after is not None and after > oom_kills_before:
+                return ChildResult(
+                    None, "memory", f"out of memory (killed by the kernel, limit {memory_mb} MB)"
+                )
+            return ChildResult(None, "killed", "measuring process was killed (signal 9)")
         return ChildResult(None, "corrupt", f"measuring process died (exit {code})")
 
 
@@ -337,9 +357,17 @@ class Pipeline:
         return JobOutcome.DUPLICATE
 
     def _measure(self, config: Config, job: jobs.Job) -> ChildResult:
-        """The run's metrics from the measuring child, or why there are none."""
+        """The run's metrics from the measuring child, or why there are none.
+
+        A child killed for no reason the daemon can see (kind ``killed``: not its own memory
+        limit, not the OOM killer) says nothing about the file, so the run is measured once more
+        in a fresh child; killed again, it is unreadable with that reason.
+        """
         started = time.monotonic()
         result = self.child.measure(config, job.path, job.size, self.stop)
+        if result.error_kind == "killed":
+            log.warning("child.killed", reason=result.error, measuring_again=True)
+            result = self.child.measure(config, job.path, job.size, self.stop)
         if result.metrics is not None:
             log.info(
                 "run.measured",

@@ -10,13 +10,18 @@ from __future__ import annotations
 import os
 import socket
 
+from watcher.records import printable
+
 
 def notify(message: str, *, env: dict[str, str] | None = None) -> bool:
-    """Send ``message`` (e.g. ``READY=1`` or ``STATUS=...``); True when systemd received it.
+    """Send one ``KEY=value`` (e.g. ``READY=1`` or ``STATUS=...``); True when systemd received it.
 
     Returns False when not started by systemd, or when the socket cannot be reached: a failed
     status update must never stop the daemon.
     """
+    # One assignment per call: a newline in a value (a run file's name in STATUS=) would start a
+    # second command such as WATCHDOG=trigger or MAINPID=, so control characters are escaped.
+    message = printable(message)
     address = (env if env is not None else os.environ).get("NOTIFY_SOCKET", "")
     if not address:
         return False

@@ -5,11 +5,13 @@ Pure: takes the run's facts and the list of (action, finding) pairs, returns tex
 
 from __future__ import annotations
 
+import dataclasses
+import re
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 from zoneinfo import ZoneInfo
 
-from watcher.records import AlertAction, Finding, Severity
+from watcher.records import AlertAction, Finding, Severity, printable
 
 if TYPE_CHECKING:
     from collections.abc import Sequence
@@ -54,6 +56,17 @@ def local_time(at: datetime, timezone: str) -> str:
     return at.astimezone(ZoneInfo(timezone)).strftime("%Y-%m-%d %H:%M %Z")
 
 
+def _shown(finding: Finding) -> Finding:
+    """The finding with its texts printable: they carry file names and run contents, which a
+    chat client or a phone would otherwise show as line breaks and terminal codes."""
+    return dataclasses.replace(
+        finding,
+        check=printable(finding.check),
+        subject=printable(finding.subject),
+        message=printable(finding.message),
+    )
+
+
 def item_line(item: Item, run_file: str | None = None) -> str:
     """One line per alert change: action and severity, then the finding's own sentence.
 
@@ -61,7 +74,7 @@ def item_line(item: Item, run_file: str | None = None) -> str:
     the run's name is already in the message head, so a leading ``<file>: `` is dropped. The rule
     is named when it is not a plain limit (a Westgard rule, a trend, a forecast).
     """
-    f = item.finding
+    f = _shown(item.finding)
     if item.action is AlertAction.CLEAR:
         what = f.check if f.subject in (f.check, "file") else f"{f.check} ({f.subject})"
         return f"{_ACTION_WORD[item.action]}: {what}"
@@ -97,6 +110,10 @@ def compose(
         items: the alert changes, in the order they are listed.
         at_what: what ``at`` is the time of (``judged``, or ``acquired`` when the file says).
     """
+    # The layout's own line breaks separate the parts; each part is one printable line.
+    instrument = printable(instrument)
+    status = printable(status)
+    run_file = printable(run_file) if run_file is not None else None
     open_items = [i for i in items if i.action is not AlertAction.CLEAR]
     if open_items:
         worst = max((i.finding.severity for i in open_items), key=lambda s: s.rank)
@@ -113,3 +130,18 @@ def compose(
         head = f"{run_file} | {at_what} {local_time(at, timezone)} | status {status}"
     body = "\n".join([head, *(item_line(i, run_file) for i in items)])
     return Text(title=title, body=body, notify_type=notify_type)
+
+
+def short_name(instrument: str) -> str:
+    """The instrument's name as a token: ``Kestrel-2 Q-TOF`` -> ``kestrel-2-q-tof``."""
+    token = re.sub(r"[^a-z0-9]+", "-", instrument.lower()).strip("-")
+    return token or "instrument"
+
+
+def with_message_id(body: str, instrument: str, message_id: int) -> str:
+    """The body with a last line ``id: <instrument>-<message id>``, the same on every attempt.
+
+    A receiver slower than the read timeout still takes the message, and the retry sends it
+    again; the stable id lets a receiver (or a person) see that two copies are one message.
+    """
+    return f"{body}\nid: {short_name(instrument)}-{message_id}"

@@ -32,6 +32,7 @@ with warnings.catch_warnings():
     NotificationManager().load_modules()  # type: ignore[no-untyped-call]
 
 from watcher.errors import DeliveryError
+from watcher.notify.alert_text import with_message_id
 from watcher.store import db, outbox
 
 if TYPE_CHECKING:
@@ -111,8 +112,12 @@ def send(
     message: outbox.Message,
     *,
     timeout_s: float,
+    instrument: str = "",
 ) -> tuple[bool, str]:
-    """One notify() call; returns (delivered, outcome word such as SUCCESS or FAILURE)."""
+    """One notify() call; returns (delivered, outcome word such as SUCCESS or FAILURE).
+
+    The body ends in the message's stable id (``alert_text.with_message_id``): every attempt of
+    one message carries the same id, so copies a slow receiver took twice can be told apart."""
     with tempfile.TemporaryDirectory(prefix="ionwarden-attach-") as tmp:
         attach = None
         if message.attachment is not None and target.takes_attachments:
@@ -122,7 +127,7 @@ def send(
         return send_text(
             target,
             title=message.title,
-            body=message.body,
+            body=with_message_id(message.body, instrument, message.message_id),
             notify_type=message.notify_type,
             timeout_s=timeout_s,
             attach=attach,
@@ -180,8 +185,10 @@ class DeliveryWorker:
         backoff_base_s: float | None = None,
         backoff_max_s: float | None = None,
         poll_s: float = 1.0,
+        instrument: str = "",
     ) -> None:
         self._targets = {t.name: t for t in targets}
+        self._instrument = instrument  # names the messages' ids
         self._alerts = alerts
         self._state_dir = state_dir
         self._clock = clock
@@ -257,7 +264,9 @@ class DeliveryWorker:
                 self._event("message.abandoned", **fields)
                 continue
             message = self._with_plot(conn, message)
-            ok, word = send(target, message, timeout_s=self._alerts.timeout_s)
+            ok, word = send(
+                target, message, timeout_s=self._alerts.timeout_s, instrument=self._instrument
+            )
             done_s = self._clock()
             if ok:
                 # Marked right after SUCCESS: the window for a duplicate is this one commit.

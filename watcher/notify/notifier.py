@@ -359,6 +359,7 @@ class Notifier:
             backoff_base_s=self._backoff[0],
             backoff_max_s=self._backoff[1],
             poll_s=self._poll_s,
+            instrument=self.config.instrument.name,
         )
         worker.start()
         self._worker = worker
