@@ -124,13 +124,17 @@ def send(
             path = Path(tmp) / (message.attachment_name or "attachment.bin")
             path.write_bytes(message.attachment)
             attach = str(path)
-        result = target.apobj.notify(
-            body=with_message_id(message.body, instrument, message.message_id),
-            title=message.title,
-            notify_type=message.notify_type,
-            attach=attach,
-            timeout=timeout_s,
-        )
+        try:
+            result = target.apobj.notify(
+                body=with_message_id(message.body, instrument, message.message_id),
+                title=message.title,
+                notify_type=message.notify_type,
+                attach=attach,
+                timeout=timeout_s,
+            )
+        except Exception as exc:  # a plugin that raises (a socket timeout, say) is a failure:
+            # counted and backed off like any other, not retried at every poll of the worker
+            return False, type(exc).__name__
     status = getattr(result, "status", None)
     word = getattr(status, "name", None) or ("SUCCESS" if result else "FAILURE")
     return bool(result), str(word)
