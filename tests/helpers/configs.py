@@ -398,7 +398,7 @@ BAD_CONFIG_CASES += [
         "huge-retry-for",
         f"alerts: {{retry_for: {HUGE}}}  #<\n",
         "alerts.retry_for",
-        "at most 30d (2.592e+06 s)",
+        "at most 30d (2592000 s)",
     ),
     _case(
         "huge-parse-memory",

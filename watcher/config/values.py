@@ -10,7 +10,6 @@ from __future__ import annotations
 import contextlib
 import difflib
 import math
-import operator
 import re
 import zoneinfo
 from datetime import time
@@ -36,12 +35,6 @@ class Bad(Exception):
 _DURATION_PART = r"(\d+(?:\.\d*)?|\.\d+)\s*(d|h|min|s)"
 _DURATION_RE = re.compile(rf"^\s*(?:{_DURATION_PART}\s*)+$")
 _DURATION_UNIT_S = {"d": 86400.0, "h": 3600.0, "min": 60.0, "s": 1.0}
-_COMPARE: dict[str, Callable[[float, float], bool]] = {
-    ">": operator.gt,
-    ">=": operator.ge,
-    "<": operator.lt,
-    "<=": operator.le,
-}
 _TIME_RE = re.compile(r"^([01]?[0-9]|2[0-3]):([0-5][0-9])$")
 # Syntax only, as watcher.measure.ions reads them; elements and residues are checked when the
 # ions are resolved (that needs pyteomics, which `validate` does not load).
@@ -70,8 +63,8 @@ def _is_finite_number(x: Any) -> bool:
 
 
 def _bound(x: float) -> str:
-    """A Range's bound in a message: ``1048576``, ``0.5``, ``1e+15``."""
-    return str(int(x)) if float(x).is_integer() and abs(x) < 1e7 else f"{x:g}"
+    """A Range's bound in a message: ``2592000``, ``0.5``, ``1e+15``."""
+    return str(int(x)) if float(x).is_integer() and abs(x) < 1e9 else f"{x:g}"
 
 
 def _duration_text(seconds: float) -> str:
@@ -307,7 +300,7 @@ class Values:
             raise self.fail(path, f"expected {wanted}, got {self.show(x)}")
         if within.low is not None and low < within.low:
             raise self.fail(path, f"expected {wanted}, got {self.show(x)}")
-        if not all(self._in_range(n, within)[1] and self._in_range(n, within)[0] for n in x):
+        if not all(all(self._in_range(n, within)) for n in x):
             bound = (
                 f"{_bound(within.low)} <= low < high <= {_bound(within.high)}"
                 if within.low is not None
@@ -339,7 +332,7 @@ class Values:
         if seconds < 0 or (seconds == 0 and not allow_zero):
             raise self.fail(path, f"expected {wanted}, got {self.show(x)}")
         if seconds > within.high:
-            most = f"{_duration_text(within.high)} ({within.high:g} s)"
+            most = f"{_duration_text(within.high)} ({_bound(within.high)} s)"
             raise self.fail(
                 path,
                 f"expected a duration {'>= 0' if allow_zero else '> 0'} and at most {most}, "

@@ -145,9 +145,13 @@ def send_text(
 ) -> tuple[bool, str]:
     """One notify() call of a message that is not in the outbox (the store cannot be written:
     ``Notifier.send_direct``); returns (delivered, outcome word)."""
-    result = target.apobj.notify(
-        body=body, title=title, notify_type=notify_type, attach=attach, timeout=timeout_s
-    )
+    try:
+        result = target.apobj.notify(
+            body=body, title=title, notify_type=notify_type, attach=attach, timeout=timeout_s
+        )
+    except Exception as exc:  # a plugin that raises (a socket timeout, say) is a failure:
+        # counted and backed off like any other, not retried at every poll of the worker
+        return False, type(exc).__name__
     status = getattr(result, "status", None)
     word = getattr(status, "name", None) or ("SUCCESS" if result else "FAILURE")
     return bool(result), str(word)
