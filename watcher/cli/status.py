@@ -118,6 +118,7 @@ def _open_problems(alerts: list[Any], local: Any) -> list[dict[str, Any]]:
     """One entry per open (check, subject), whichever channels hold it: what, how bad, since
     when, the run that raised it, and the value it was at."""
     from watcher.notify.alert_text import format_value
+    from watcher.rules.finding_text import subject_of
 
     merged: dict[tuple[str, str], dict[str, Any]] = {}
     for a in alerts:
@@ -125,10 +126,9 @@ def _open_problems(alerts: list[Any], local: Any) -> list[dict[str, Any]]:
         finding = a.state.finding
         entry = merged.get(key)
         if entry is None:
-            subject = a.subject.split(".")[1] if a.subject.count(".") >= 2 else a.subject
             entry = merged[key] = {
                 "check": a.check,
-                "subject": subject,
+                "subject": subject_of(a.subject) if "." in a.subject else a.subject,
                 "severity": str(a.state.severity),
                 "value": format_value(finding.value),
                 "since": local(a.state.raised_at_s),

@@ -23,6 +23,7 @@ from watcher.notify.alert_text import format_value
 from watcher.records import STATUS_RANK, Status
 from watcher.rules.baseline import Baseline, from_spec
 from watcher.rules.checks import critical_bounds, matches_metric
+from watcher.rules.finding_text import subject_of
 from watcher.store import history
 
 if TYPE_CHECKING:
@@ -241,14 +242,6 @@ def _finding_rows(runs: Sequence[RunRow], tz: ZoneInfo) -> list[FindingRow]:
                 )
             )
     return rows
-
-
-def subject_of(metric: str) -> str:
-    """What a metric path is about: the calibrant or ion name, else the metric group."""
-    parts = metric.split(".")
-    if len(parts) >= 3 and parts[0] in ("calibrant", "expected_ion"):
-        return parts[1]
-    return parts[0]
 
 
 def _metric_state(run: RunRow, metric: str) -> str:

@@ -225,36 +225,38 @@ class Notifier:
                 "The state database can be written again; runs that arrived meanwhile are "
                 f"judged now. It had failed with: {fields.get('error') or 'see the daemon log'}"
             )
-            for channel in self.config.alerts.channels:
-                if Severity.CRITICAL.rank < channel.min_severity.rank:
-                    continue  # the channels that got the direct "not writable" alert
-                outbox.enqueue(
-                    conn,
-                    channel=channel.name,
-                    kind="event",
-                    ref=f"{kind}:{now_s:.3f}",
-                    created_at_s=now_s,
-                    title=title,
-                    body=body[:1000],
-                    notify_type="success",
-                )
+            # the channels that got the direct "not writable" alert (those taking critical)
+            self._enqueue_event(conn, kind, now_s, title, body, Severity.CRITICAL, "success")
         elif kind == DaemonEvent.CONFIG_REJECTED:
             problem = str(fields.get("error") or fields.get("problems") or "see the daemon log")
             title = f"{self.config.instrument.name}: config reload rejected"
             body = f"The new config was not loaded; the old one stays in force.\n{problem}"
-            for channel in self.config.alerts.channels:
-                if Severity.WARNING.rank < channel.min_severity.rank:
-                    continue
-                outbox.enqueue(
-                    conn,
-                    channel=channel.name,
-                    kind="event",
-                    ref=f"{kind}:{now_s:.3f}",
-                    created_at_s=now_s,
-                    title=title,
-                    body=body[:1000],
-                    notify_type="warning",
-                )
+            self._enqueue_event(conn, kind, now_s, title, body, Severity.WARNING, "warning")
+
+    def _enqueue_event(
+        self,
+        conn: sqlite3.Connection,
+        kind: DaemonEvent,
+        now_s: float,
+        title: str,
+        body: str,
+        severity: Severity,
+        notify_type: str,
+    ) -> None:
+        """One event message (not about a run) to every channel that takes ``severity``."""
+        for channel in self.config.alerts.channels:
+            if severity.rank < channel.min_severity.rank:
+                continue
+            outbox.enqueue(
+                conn,
+                channel=channel.name,
+                kind="event",
+                ref=f"{kind}:{now_s:.3f}",
+                created_at_s=now_s,
+                title=title,
+                body=body[:1000],
+                notify_type=notify_type,
+            )
 
     # -- after commit -------------------------------------------------------------------------
 

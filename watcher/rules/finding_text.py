@@ -62,6 +62,14 @@ def _split(path: str) -> tuple[str, str, str]:
     return family, "", rest
 
 
+def subject_of(metric: str) -> str:
+    """What a metric path is about: the calibrant or ion name, else the metric group."""
+    parts = metric.split(".")
+    if len(parts) >= 3 and parts[0] in ("calibrant", "expected_ion"):
+        return parts[1]
+    return parts[0]
+
+
 def metric_label(path: str) -> str:
     """Words for a metric path."""
     family, name, key = _split(path)
