@@ -5,7 +5,6 @@ from __future__ import annotations
 import dataclasses
 import datetime as dt
 import math
-import time
 from pathlib import Path
 
 import pytest
@@ -168,18 +167,18 @@ def _alias_bomb(levels: int, fan_out: int) -> str:
     return "\n".join(lines) + "\n"
 
 
-def test_small_alias_bomb_is_refused_quickly() -> None:
-    """A 1 kB "billion laughs" file (10^9 values) is refused within a second."""
+@pytest.mark.timeout(60)  # a hang guard (speed is measured in bench/)
+def test_small_alias_bomb_is_refused_by_its_count() -> None:
+    """A 1 kB "billion laughs" file (10^9 values) is refused by counting, not expanding."""
     text = _alias_bomb(9, 10)
     assert len(text) < 2000
-    started = time.monotonic()
     with pytest.raises(ConfigError, match=f"more than {MAX_NODES} values"):
         load_config_text(text, source="lab.yaml")
-    assert time.monotonic() - started < 1.0
 
 
-def test_ten_megabyte_alias_bomb_is_refused_quickly(tmp_path: Path) -> None:
-    """A 10 MB file of anchors and aliases is refused by size before parsing, within a second."""
+@pytest.mark.timeout(60)  # a hang guard (speed is measured in bench/)
+def test_ten_megabyte_alias_bomb_is_refused_by_size(tmp_path: Path) -> None:
+    """A 10 MB file of anchors and aliases is refused by its size before it is parsed."""
     path = tmp_path / "bomb.yaml"
     block = _alias_bomb(9, 10)
     with path.open("w") as fh:
@@ -188,10 +187,8 @@ def test_ten_megabyte_alias_bomb_is_refused_quickly(tmp_path: Path) -> None:
         while fh.tell() < 10 * 1024 * 1024:
             fh.write(f"pad{i}: [{', '.join(['*l8'] * 200)}]\n")
             i += 1
-    started = time.monotonic()
     with pytest.raises(ConfigError, match="too large for a config"):
         load_config(path)
-    assert time.monotonic() - started < 1.0
 
 
 def test_recursive_alias_is_refused() -> None:

@@ -219,7 +219,10 @@ def test_random_kill_loop_over_100_runs(lab: Lab) -> None:
     assert len(health_ids) == len(set(health_ids))
 
 
-@pytest.mark.parametrize("n_files", [2000, pytest.param(10000, marks=pytest.mark.slow, id="10000")])
+@pytest.mark.parametrize(
+    "n_files",
+    [2000, pytest.param(10000, marks=[pytest.mark.slow, pytest.mark.timeout(1200)], id="10000")],
+)
 def test_sigstop_then_many_files(lab: Lab, n_files: int) -> None:
     """SIGSTOP, thousands of new files (inotify may overflow), SIGCONT: each judged exactly once."""
     d = lab.start()
@@ -242,6 +245,11 @@ def test_time_limit_kills_child_and_daemon_goes_on(lab: Lab, big_run: Path) -> N
     d = lab.start()
     shutil.copy(big_run, lab.exports / "QC_slow_parse.mzML")
     lab.wait_runs(1, timeout_s=30)
+    # The daemon goes on: the next run is measured under a limit any machine meets (a 0.2 s
+    # wall-clock limit would also catch the tiny run on a loaded machine), set by a reload.
+    lab.write_config(limits={"parse_timeout_s": 60})
+    d.signal(signal.SIGHUP)
+    wait_for(lambda: any(e["event"] == "config.reloaded" for e in d.events()), 10, "reload")
     lab.drop("QC_after.mzML", 1)
     runs = {name: (status, error) for name, status, error in lab.wait_runs(2, timeout_s=30)}
     assert d.stop() == 0
@@ -294,9 +302,7 @@ def test_notify_protocol_and_clean_stop(lab: Lab) -> None:
     lab.wait_runs(1)
     wait_for(lambda: any(m.startswith("STATUS=") and "QC_1" in m for m in d.notes()), 10, "STATUS")
     wait_for(lambda: d.notes().count("WATCHDOG=1") >= 2, 5, "two watchdog pings")
-    start = time.monotonic()
-    assert d.stop() == 0
-    assert time.monotonic() - start < 5
+    assert d.stop(timeout_s=10) == 0  # a stop that hangs fails inside stop()
     assert "STOPPING=1" in d.notes()
 
 

@@ -177,7 +177,7 @@ def attack_files(tmp: Path) -> Iterator[tuple[str, Path]]:
                 % (root, dtd.as_uri().encode()),
                 b"&leak;",
             ),
-            "billion_laughs": (_laughs(root), b"&l9;"),
+            "billion_laughs": (laughs(root), b"&l9;"),
             "quadratic_blowup": (
                 b'<!DOCTYPE %s [<!ENTITY big "%s">]>' % (root, b"B" * 100_000),
                 b"&big;" * 20_000,
@@ -193,7 +193,7 @@ def attack_files(tmp: Path) -> Iterator[tuple[str, Path]]:
             yield f"{attack}-{fmt}", write(tmp, attack + suffix, decl + b"\n" + doctype + payload)
 
 
-def _laughs(root: bytes) -> bytes:
+def laughs(root: bytes) -> bytes:
     parts = [b'<!ENTITY l0 "lol">']
     for level in range(1, 10):
         parts.append(b'<!ENTITY l%d "%s">' % (level, b"&l%d;" % (level - 1) * 10))

@@ -267,7 +267,9 @@ def run_to_dict(verdict: Verdict) -> dict[str, Any]:
         }
     )
     out = {
-        "file": body["file"],
+        # The name as shown everywhere else: a metrics record keeps the raw name, whose
+        # undecodable bytes would be lone surrogates that strict JSON readers refuse.
+        "file": shown(verdict.run_file.path.name),
         "path": shown(verdict.run_file.path),
         "format": body["format"],
         "status": str(verdict.status),

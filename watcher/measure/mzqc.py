@@ -30,6 +30,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from watcher import __version__
+from watcher.records import shown
 
 if TYPE_CHECKING:
     from collections.abc import Sequence
@@ -145,7 +146,7 @@ def _is_finite(value: Any) -> bool:
 def _input_file(verdict: Verdict, metrics: RunMetrics) -> dict[str, Any]:
     accession, name = _FILE_FORMATS.get(metrics.format, ("MS:1000584", "mzML format"))
     entry: dict[str, Any] = {
-        "name": verdict.run_file.path.name,
+        "name": shown(verdict.run_file.path.name),  # mzQC is UTF-8 JSON: no lone surrogates
         "location": Path(os.path.abspath(verdict.run_file.path)).as_uri(),
         "fileFormat": {"accession": accession, "name": name},
     }
@@ -177,7 +178,7 @@ def build_mzqc(
         metrics = verdict.metrics
         if metrics is None:
             continue
-        label = verdict.run_file.path.name
+        label = shown(verdict.run_file.path.name)
         while label in labels:  # labels must be unique; same name in two folders
             label += "'"
         labels.add(label)

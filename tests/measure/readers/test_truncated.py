@@ -9,7 +9,6 @@ from __future__ import annotations
 import re
 import subprocess
 import sys
-import time
 from collections.abc import Callable
 from pathlib import Path
 
@@ -245,17 +244,16 @@ def test_unclosed_mgf_spectrum_is_named(tmp_path: Path) -> None:
     assert "spectrum 2 has no END IONS" in error.reason  # test.mgf holds 2 spectra
 
 
-def test_stale_index_with_junk_streams_fast(tmp_path: Path) -> None:
-    """A 160 KB no-whitespace run inside a spectrum with a stale index reads in well under 2 s."""
+@pytest.mark.timeout(60)  # a hang guard (speed is measured in bench/)
+def test_stale_index_with_junk_streams(tmp_path: Path) -> None:
+    """A 160 KB no-whitespace run inside a spectrum, stale index: read by streaming."""
     # docs/reliability.md item 1: pyteomics' byte indexer needs >120 s on this input.
     data = bf.TINY.read_bytes()
     at = data.index(b"<spectrum ")
     close = data.index(b">", at) + 1
     path = bf.write(tmp_path, "QC_dos.mzML", data[:close] + b"A" * 160_000 + data[close:])
-    started = time.monotonic()
     with open_run(path) as (_header, scans):
         assert len(list(scans)) == 4  # files.tsv: tiny.pwiz has 4 spectra
-    assert time.monotonic() - started < 2.0
 
 
 def test_bogus_offsets_fall_back_to_streaming(tmp_path: Path) -> None:
