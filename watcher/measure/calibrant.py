@@ -64,6 +64,13 @@ class CalibrantTrace:
         self.intensity.append(hit[1])
         self.rt_s.append(float("nan") if rt_s is None else rt_s)
 
+    def extend(self, later: CalibrantTrace) -> None:
+        """Append the trace of a later block of the same run (see SignalTrace.extend)."""
+        self.scans_seen += later.scans_seen
+        self.ppm.extend(later.ppm)
+        self.intensity.extend(later.intensity)
+        self.rt_s.extend(later.rt_s)
+
     def summary(self) -> CalibrantDrift:
         """The run's drift record for this calibrant."""
         return summarize(

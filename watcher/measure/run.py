@@ -52,29 +52,48 @@ def measure_scans(
     Raises:
         ConfigError: an ion in the config cannot be resolved to an m/z.
     """
-    calibrants = [CalibrantTrace(ion) for ion in _resolve_all(config, "calibrants")]
-    expected_specs = config.expected_ions
-    expected = [
-        XicTrace(
-            ion,
-            rt_window_s=None
-            if spec.rt_window_min is None
-            else (spec.rt_window_min[0] * 60.0, spec.rt_window_min[1] * 60.0),
-            min_intensity=spec.min_intensity,
-        )
-        for ion, spec in zip(_resolve_all(config, "expected_ions"), expected_specs, strict=True)
-    ]
-    signal = SignalTrace()
-    ms1_with_arrays = 0
-    polarities: Counter[int | None] = Counter()  # MS1 scans by polarity (None: not stated)
+    traces = RunTraces(config)
     for scan in scans:
-        signal.add(scan)
+        traces.add(scan)
+    return traces.metrics(header, config, file_name=file_name)
+
+
+class RunTraces:
+    """What one pass over a run's spectra accumulates: the signal, calibrant and expected-ion
+    traces and the MS1 counts. Every trace only appends per scan, so the traces of contiguous
+    blocks of one run, ``extend``ed in file order, are exactly the traces of one pass (the
+    parallel reader of indexed mzML, watcher/measure/blocks.py, relies on it)."""
+
+    __slots__ = ("calibrants", "expected", "ms1_with_arrays", "polarities", "signal")
+
+    def __init__(self, config: Config) -> None:
+        self.calibrants = [CalibrantTrace(ion) for ion in _resolve_all(config, "calibrants")]
+        self.expected = [
+            XicTrace(
+                ion,
+                rt_window_s=None
+                if spec.rt_window_min is None
+                else (spec.rt_window_min[0] * 60.0, spec.rt_window_min[1] * 60.0),
+                min_intensity=spec.min_intensity,
+            )
+            for ion, spec in zip(
+                _resolve_all(config, "expected_ions"), config.expected_ions, strict=True
+            )
+        ]
+        self.signal = SignalTrace()
+        self.ms1_with_arrays = 0
+        self.polarities: Counter[int | None] = Counter()  # MS1 scans by polarity (None: unsaid)
+
+    def add(self, scan: Scan) -> None:
+        """Take one spectrum (in file order)."""
+        self.signal.add(scan)
+        calibrants, expected = self.calibrants, self.expected
         if scan.ms_level != 1 or not (calibrants or expected):
-            continue
+            return
         mz, intensity = scan.mz, scan.intensity
         has_arrays = mz is not None and intensity is not None and mz.size > 0
-        ms1_with_arrays += has_arrays
-        polarities[scan.polarity] += 1
+        self.ms1_with_arrays += has_arrays
+        self.polarities[scan.polarity] += 1
         profile = bool(scan.is_profile)
         if scan.is_profile is None and mz is not None and has_arrays:
             profile = looks_profile(mz)
@@ -85,33 +104,47 @@ def measure_scans(
             rt_s = scan.rt_s
             if rt_s is not None and _polarity_matches(xic.ion, scan) and xic.wants(rt_s):
                 xic.add(rt_s, mz, intensity, profile=profile)
-    signal_metrics = signal.summary(config.signal)
-    notes: list[str] = []
-    drifts: tuple[CalibrantDrift, ...] = tuple(cal.summary() for cal in calibrants)
-    if signal_metrics.ms1_count == 0:
-        if calibrants or expected:
-            notes.append(NO_MS1_NOTE)
-        ions = tuple(absent(xic.ion, searched=False) for xic in expected)
-    elif ms1_with_arrays == 0:
-        if calibrants or expected:
-            notes.append(NO_ARRAYS_NOTE)
-        ions = tuple(absent(xic.ion, searched=False) for xic in expected)
-    else:
-        ions, ion_notes = _searched_ions(expected, polarities, signal_metrics)
-        notes.extend(ion_notes)
-    acquired_at = _parse_acquired_at(header.acquired_at_iso)
-    if header.acquired_at_iso and acquired_at is None:
-        notes.append(f"run start time {header.acquired_at_iso!r} is not ISO-8601; ignored")
-    return RunMetrics(
-        file=file_name,
-        format=header.format,
-        acquired_at=acquired_at,
-        signal=signal_metrics,
-        calibrants=drifts,
-        mass_correction=mass_correction(drifts) if len(drifts) >= 2 else None,
-        expected_ions=ions,
-        notes=tuple(notes),
-    )
+
+    def extend(self, later: RunTraces) -> None:
+        """Append the traces of the block of spectra that follows this one's in the file."""
+        self.signal.extend(later.signal)
+        for mine, theirs in zip(self.calibrants, later.calibrants, strict=True):
+            mine.extend(theirs)
+        for xic, other in zip(self.expected, later.expected, strict=True):
+            xic.extend(other)
+        self.ms1_with_arrays += later.ms1_with_arrays
+        self.polarities.update(later.polarities)
+
+    def metrics(self, header: RunHeader, config: Config, *, file_name: str) -> RunMetrics:
+        """The run's metrics from everything taken so far."""
+        calibrants, expected = self.calibrants, self.expected
+        signal_metrics = self.signal.summary(config.signal)
+        notes: list[str] = []
+        drifts: tuple[CalibrantDrift, ...] = tuple(cal.summary() for cal in calibrants)
+        if signal_metrics.ms1_count == 0:
+            if calibrants or expected:
+                notes.append(NO_MS1_NOTE)
+            ions = tuple(absent(xic.ion, searched=False) for xic in expected)
+        elif self.ms1_with_arrays == 0:
+            if calibrants or expected:
+                notes.append(NO_ARRAYS_NOTE)
+            ions = tuple(absent(xic.ion, searched=False) for xic in expected)
+        else:
+            ions, ion_notes = _searched_ions(expected, self.polarities, signal_metrics)
+            notes.extend(ion_notes)
+        acquired_at = _parse_acquired_at(header.acquired_at_iso)
+        if header.acquired_at_iso and acquired_at is None:
+            notes.append(f"run start time {header.acquired_at_iso!r} is not ISO-8601; ignored")
+        return RunMetrics(
+            file=file_name,
+            format=header.format,
+            acquired_at=acquired_at,
+            signal=signal_metrics,
+            calibrants=drifts,
+            mass_correction=mass_correction(drifts) if len(drifts) >= 2 else None,
+            expected_ions=ions,
+            notes=tuple(notes),
+        )
 
 
 MAX_REASON_CHARS = 240

@@ -66,6 +66,16 @@ class SignalTrace:
             self.ms2_injection_ms.append(scan.injection_time_ms)
         self.precursor_charges[scan.precursor_charge or 0] += 1
 
+    def extend(self, later: SignalTrace) -> None:
+        """Append the trace of the spectra that follow this one's in the file (a later block
+        of the same run): the result is the trace one pass over both blocks would give."""
+        for name in ("ms1_rt_s", "ms1_tic", "ms1_bpi", "ms1_injection_ms", "ms2_injection_ms"):
+            getattr(self, name).extend(getattr(later, name))
+        self.ms2_count += later.ms2_count
+        self.precursor_charges.update(later.precursor_charges)
+        self.rt_min_s = min(self.rt_min_s, later.rt_min_s)
+        self.rt_max_s = max(self.rt_max_s, later.rt_max_s)
+
     def summary(self, settings: SignalSettings) -> SignalMetrics:
         """The run's signal record."""
         rt = np.frombuffer(self.ms1_rt_s, dtype=np.float64)

@@ -68,6 +68,13 @@ class XicTrace:
         self.mz.append(float("nan") if peak is None else peak[0])
         self.m1_intensity.append(0.0 if m1 is None else m1[1])
 
+    def extend(self, later: XicTrace) -> None:
+        """Append the trace of a later block of the same run (see SignalTrace.extend)."""
+        self.rt_s.extend(later.rt_s)
+        self.intensity.extend(later.intensity)
+        self.mz.extend(later.mz)
+        self.m1_intensity.extend(later.m1_intensity)
+
     @property
     def scans_in_window(self) -> int:
         """How many MS1 scans fell in the RT window (0: the window lies outside the run)."""
