@@ -349,6 +349,9 @@ class Limits:
     # Bound on a .mzML.gz's decompressed size: the largest real runs are a few GB inflated, a
     # gzip bomb is 1000 times its file size. Over it, the run is unreadable (kind "too-large").
     max_inflated_mb: int = field(default=20000, metadata=_within(1, 1024 * 1024 * 1024))
+    # Processes that read one large indexed mzML in blocks (0: the cores, at most 4; 1: one
+    # pass). The metrics are the same either way; only the wall time differs.
+    workers: int = field(default=0, metadata=_within(0, 64))
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

@@ -71,6 +71,7 @@ def build_config(v: Values, data: Any, source: Path) -> Config:
             "parse_memory_mb": lambda p, x: v.integer(p, x, range_of(Limits, "parse_memory_mb")),
             "queue_max": lambda p, x: v.integer(p, x, range_of(Limits, "queue_max")),
             "max_inflated_mb": lambda p, x: v.integer(p, x, range_of(Limits, "max_inflated_mb")),
+            "workers": lambda p, x: v.integer(p, x, range_of(Limits, "workers")),
         },
     )
     v.put(kw, top, (), "digest_at", lambda p, x: None if x is None else v.time_of_day(p, x))

@@ -211,6 +211,14 @@ def measure_file(
     # A .gz stream is proven whole in the reading pass itself (one gunzip, not two); no metrics
     # leave here before that proof is in.
     formats.check_complete(path, whole_gzip=False)
+    workers = parallel_workers(config)
+    if workers > 1:
+        # A large indexed mzML is read in blocks on several cores; None: one pass below.
+        from watcher.measure import parallel
+
+        metrics = parallel.measure_in_blocks(path, config, workers=workers, progress=progress)
+        if metrics is not None and metrics.signal.ms1_count + metrics.signal.ms2_count > 0:
+            return metrics
     needs_arrays = bool(config.calibrants or config.expected_ions)
     # A cut, damaged or too large .gz can fail anywhere in that pass: open_run then names the
     # stream's problem (kind "truncated" or "too-large") from the same pass.
@@ -225,6 +233,15 @@ def measure_file(
     if metrics.signal.ms1_count + metrics.signal.ms2_count == 0:
         raise ReadError(path, "no spectra in file", kind="empty")
     return metrics
+
+
+def parallel_workers(config: Config) -> int:
+    """How many processes may read one run (``limits.workers``; 0: the cores, at most 4)."""
+    if config.limits.workers == 1:
+        return 1
+    from watcher.measure import parallel
+
+    return parallel.worker_count(config.limits.workers)
 
 
 def _searched_ions(

@@ -166,14 +166,21 @@ def indexed_scans(
     want_arrays: bool,
     parse: Any,
     on_offset: Any = None,
+    first: int = 0,
+    stop: int | None = None,
 ) -> Iterator[Scan]:
     """One Scan per indexed spectrum: header bytes for all, whole elements only for MS1 arrays.
+
+    ``first`` and ``stop`` restrict it to the spectra at positions ``first <= i < stop`` (one
+    block of the parallel reader); each is checked and numbered as in a whole pass.
 
     Raises:
         IndexDoubt: spectrum ``position`` is not where the index says (before it is yielded;
             the spectra already yielded were checked the same way).
     """
-    for i, (start, end) in enumerate(zip(index.starts, index.ends, strict=True)):
+    stop = len(index.starts) if stop is None else stop
+    for i in range(first, stop):
+        start, end = index.starts[i], index.ends[i]
         if on_offset is not None:
             on_offset(start)
         # One read serves the landing check, the ms level and, for most spectra, the header.
