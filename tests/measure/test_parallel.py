@@ -9,6 +9,7 @@ come from synth/ with known calibrant drift and expected ions.
 from __future__ import annotations
 
 import dataclasses
+import itertools
 import json
 import shutil
 from typing import TYPE_CHECKING
@@ -107,7 +108,7 @@ def test_blocks_cover_every_spectrum_once_in_order(tmp_path: Path) -> None:
         bounds = block_bounds(path, blocks)
         assert bounds is not None
         assert bounds[0][0] == 0
-        assert all(a[1] == b[0] for a, b in zip(bounds, bounds[1:], strict=False))
+        assert all(a[1] == b[0] for a, b in itertools.pairwise(bounds))
         assert all(first < stop for first, stop in bounds)
         assert len(bounds) == blocks
 
@@ -127,9 +128,7 @@ def test_a_damaged_spectrum_in_a_block_gives_the_one_pass_error(tmp_path: Path) 
     with workers, reports exactly the one-pass error."""
     path = bf.write(tmp_path, "QC_bad_zlib.mzML", bf.bad_zlib(bf.EXAMPLE.read_bytes()))
     assert (
-        parallel.measure_in_blocks(
-            path, CONFIG, workers=2, min_bytes=0, min_spectra_per_block=1
-        )
+        parallel.measure_in_blocks(path, CONFIG, workers=2, min_bytes=0, min_spectra_per_block=1)
         is None
     )
     with pytest.raises(ReadError) as serial:
