@@ -36,6 +36,7 @@ from watcher.errors import (
 )
 from watcher.intake import watch
 from watcher.intake.pending import Settled, Settler
+from watcher.measure.parallel import worker_count
 from watcher.notify.notifier import Notifier
 from watcher.records import DaemonEvent, shown
 from watcher.store import db, jobs
@@ -564,23 +565,32 @@ class Daemon:
                     continue
                 retry_s = STORE_RETRY_FIRST_S
                 self._store_recovered(pipeline.conn)
+            batch: list[jobs.Job] = []
             try:
                 with db.write(pipeline.conn):
-                    job = jobs.claim_next(pipeline.conn, self.clock())
-                if job is None:
+                    # A burst (after downtime, a copied folder) is measured limits.workers at
+                    # a time; a lone run is claimed alone, so it may be read in blocks.
+                    for _ in range(worker_count(self.config.limits.workers)):
+                        claimed = jobs.claim_next(pipeline.conn, self.clock())
+                        if claimed is None:
+                            break
+                        batch.append(claimed)
+                if not batch:
                     pipeline.flush_health_due()
             except sqlite3.Error as exc:
                 self.store_failed(exc)
                 continue
-            if job is None:
+            if not batch:
                 self.wake_worker.wait(0.5)
                 self.wake_worker.clear()
                 continue
-            self._busy_limit_s = time_limit_s(self.config.limits, job.size)
+            job = batch[0]
+            self._busy_limit_s = max(time_limit_s(self.config.limits, j.size) for j in batch)
             self._busy_since = time.monotonic()
             try:
-                if pipeline.process(job) is JobOutcome.REQUEUED and not self.stop_event.is_set():
-                    self.stop_event.wait(5.0)  # the child could not start: do not spin
+                outcomes = pipeline.process_batch(batch)
+                if JobOutcome.REQUEUED in outcomes and not self.stop_event.is_set():
+                    self.stop_event.wait(5.0 if len(batch) == 1 else 0.0)  # no spin on a dead child
             except sqlite3.Error as exc:
                 # The run's commit (or any write of the job) was refused: nothing of it is
                 # stored, so it is measured again once the store takes writes.
@@ -588,7 +598,7 @@ class Daemon:
             except Exception:
                 log.exception("run.failed", file=shown(job.path))
                 try:
-                    pipeline.fail(job, "internal error (see the daemon log)")
+                    pipeline.fail_unfinished(batch, "internal error (see the daemon log)")
                 except sqlite3.Error:
                     log.exception("run.failed", file=shown(job.path))
             finally:

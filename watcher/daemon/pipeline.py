@@ -19,7 +19,8 @@ import signal
 import subprocess
 import sys
 import time
-from dataclasses import dataclass, field
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
 from enum import StrEnum
 from typing import TYPE_CHECKING, Any
@@ -267,6 +268,8 @@ class Pipeline:
     clock: Callable[[], float] = time.time
     last_file: str | None = None
     child: MeasuringChild = field(default_factory=MeasuringChild)
+    # More measuring children for bursts (process_batch): slot 0 is ``child``.
+    extra_children: list[MeasuringChild] = field(default_factory=list)
     health_failing: bool = False  # the last try at the owed health lines failed
     _health_retry_at: float = 0.0  # time.monotonic() of the next try while failing
     # Lines written whose note is not struck off yet: that rides on the next run's commit (or an
@@ -281,8 +284,88 @@ class Pipeline:
         self.notifier = notifier
 
     def close(self) -> None:
-        """Stop the measuring child; the pipeline starts a new one if it is used again."""
+        """Stop the measuring children; the pipeline starts new ones if it is used again."""
         self.child.close()
+        for child in self.extra_children:
+            child.close()
+
+    def process_batch(self, batch: list[jobs.Job]) -> list[JobOutcome]:
+        """Take several claimed jobs to ``done`` with one measuring child each, at once.
+
+        Catching up after downtime is bound by measuring, which is CPU work in the children;
+        judging reads the history the earlier runs wrote, so it and the final transaction stay
+        one at a time, in order of acquisition time (then claim order): baselines and alert
+        sequences come out as if the runs had been taken one by one. A job whose content hash
+        equals another's in the same batch goes back to the queue, to be linked to it as a
+        duplicate once that one is stored. Stopping, or a child that does not start, puts every
+        job not yet committed back to the queue.
+        """
+        if len(batch) == 1:
+            return [self.process(batch[0])]
+        config = self.config
+        # One process per run already uses the cores: no blocks inside each child.
+        child_config = replace(config, limits=replace(config.limits, workers=1))
+        outcomes: dict[int, JobOutcome] = {}
+        ready: list[tuple[jobs.Job, str | None, ChildResult | None]] = []
+        hashes: set[str] = set()
+        pending = list(batch)
+        try:
+            for job in batch:
+                if job.incomplete is not None:
+                    result = ChildResult(None, "incomplete", job.incomplete)
+                    ready.append((job, job.sha256, result))
+                    continue
+                prepared = self._prepare(job)
+                if isinstance(prepared, JobOutcome):
+                    outcomes[job.id] = prepared
+                    pending.remove(job)
+                elif prepared in hashes:
+                    self._release(job)
+                    outcomes[job.id] = JobOutcome.REQUEUED
+                    pending.remove(job)
+                else:
+                    hashes.add(prepared)
+                    ready.append((job, prepared, None))
+            measured = self._measure_many(child_config, [j for j, _, r in ready if r is None])
+            results = [(j, sha, r if r is not None else measured[j.id]) for j, sha, r in ready]
+            judged_at = datetime.fromtimestamp(self.clock(), UTC)
+
+            def order(item: tuple[jobs.Job, str | None, ChildResult]) -> tuple[datetime, int]:
+                job, _, result = item
+                run_file = RunFile(path=job.path, size=job.size, mtime_ns=job.mtime_ns)
+                return run_time(result.metrics, run_file, judged_at), batch.index(job)
+
+            for job, sha256, result in sorted(results, key=order):
+                outcomes[job.id] = self._commit(config, job, sha256, result)
+                pending.remove(job)
+        except (Stopped, ChildStartError) as exc:
+            self.close()
+            with db.write(self.conn):
+                for job in pending:
+                    jobs.release(self.conn, job.id, self.clock())
+                    outcomes[job.id] = JobOutcome.REQUEUED
+            why = "daemon stopping" if isinstance(exc, Stopped) else str(exc)
+            log.info("run.requeued", reason=why, runs=len(pending))
+        return [outcomes.get(job.id, JobOutcome.REQUEUED) for job in batch]
+
+    def _release(self, job: jobs.Job) -> None:
+        with db.write(self.conn):
+            jobs.release(self.conn, job.id, self.clock())
+
+    def _measure_many(self, config: Config, batch: list[jobs.Job]) -> dict[int, ChildResult]:
+        """Measure each job in its own child, all at once; job id -> result."""
+        if not batch:
+            return {}
+        while len(self.extra_children) < len(batch) - 1:
+            self.extra_children.append(MeasuringChild())
+        children = [self.child, *self.extra_children]
+        with ThreadPoolExecutor(max_workers=len(batch), thread_name_prefix="measure") as pool:
+            futures = {
+                job.id: pool.submit(self._measure, config, job, child)
+                for job, child in zip(batch, children, strict=False)
+            }
+            # result() re-raises Stopped / ChildStartError from a child: the batch goes back.
+            return {job_id: future.result() for job_id, future in futures.items()}
 
     def process(self, job: jobs.Job) -> JobOutcome:
         """Take a claimed job to ``done`` (back to ``queued`` when stopping); returns outcome."""
@@ -356,18 +439,21 @@ class Pipeline:
         )
         return JobOutcome.DUPLICATE
 
-    def _measure(self, config: Config, job: jobs.Job) -> ChildResult:
+    def _measure(
+        self, config: Config, job: jobs.Job, child: MeasuringChild | None = None
+    ) -> ChildResult:
         """The run's metrics from the measuring child, or why there are none.
 
         A child killed for no reason the daemon can see (kind ``killed``: not its own memory
         limit, not the OOM killer) says nothing about the file, so the run is measured once more
         in a fresh child; killed again, it is unreadable with that reason.
         """
+        child = self.child if child is None else child
         started = time.monotonic()
-        result = self.child.measure(config, job.path, job.size, self.stop)
+        result = child.measure(config, job.path, job.size, self.stop)
         if result.error_kind == "killed":
             log.warning("child.killed", reason=result.error, measuring_again=True)
-            result = self.child.measure(config, job.path, job.size, self.stop)
+            result = child.measure(config, job.path, job.size, self.stop)
         if result.metrics is not None:
             log.info(
                 "run.measured",
@@ -507,6 +593,17 @@ class Pipeline:
             jobs.finish(
                 self.conn, job.id, self.clock(), state=jobs.JobState.FAILED, outcome=outcome
             )
+
+    def fail_unfinished(self, batch: list[jobs.Job], outcome: str) -> None:
+        """Mark the jobs of ``batch`` that are still being measured ``failed`` (the others
+        were committed or went back to the queue)."""
+        with db.write(self.conn):
+            for job in batch:
+                stored = jobs.get(self.conn, job.id)
+                if stored is not None and stored.state is jobs.JobState.MEASURING:
+                    jobs.finish(
+                        self.conn, job.id, self.clock(), state=jobs.JobState.FAILED, outcome=outcome
+                    )
 
     def _drop(self, job: jobs.Job, why: str) -> JobOutcome:
         self.fail(job, why)

@@ -22,18 +22,19 @@ import signal
 from concurrent.futures import ProcessPoolExecutor
 from typing import TYPE_CHECKING
 
-from watcher.measure.readers import mzml_blocks
-from watcher.measure.run import RunTraces
-
 if TYPE_CHECKING:
     from collections.abc import Callable
     from pathlib import Path
 
     from watcher.config import Config
+    from watcher.measure.run import RunTraces
     from watcher.measure.scan import RunHeader
     from watcher.records import RunMetrics
 
+# The readers and the traces are imported where blocks are read, not on import: the daemon's
+# main process asks ``worker_count`` and never reads a run itself.
 MAX_AUTO_WORKERS = 4
+MIN_SPECTRA_PER_BLOCK = 16  # fewer spectra per block: the processes cost more than they save
 # Below this size one pass is faster than forking and joining (a few tens of ms of overhead).
 MIN_PARALLEL_BYTES = 32 * 1024 * 1024
 _PR_SET_PDEATHSIG = 1  # <linux/prctl.h>
@@ -57,7 +58,7 @@ def measure_in_blocks(
     workers: int,
     progress: Callable[[int, int], None] | None = None,
     min_bytes: int = MIN_PARALLEL_BYTES,
-    min_spectra_per_block: int = mzml_blocks.MIN_SPECTRA_PER_BLOCK,
+    min_spectra_per_block: int = MIN_SPECTRA_PER_BLOCK,
 ) -> RunMetrics | None:
     """The run's metrics read in ``workers`` processes, or None when the file is not one for
     it (not an uncompressed indexedmzML, smaller than ``min_bytes``, too few spectra) or any
@@ -68,9 +69,9 @@ def measure_in_blocks(
         return None
     if workers < 2 or size < min_bytes:
         return None
-    bounds = mzml_blocks.block_bounds(
-        path, workers, min_spectra_per_block=min_spectra_per_block
-    )
+    from watcher.measure.readers import mzml_blocks
+
+    bounds = mzml_blocks.block_bounds(path, workers, min_spectra_per_block=min_spectra_per_block)
     if bounds is None:
         return None
     needs_arrays = bool(config.calibrants or config.expected_ions)
@@ -101,6 +102,9 @@ def measure_in_blocks(
 def _measure_block(
     path: Path, first: int, stop: int, config: Config, needs_arrays: bool
 ) -> tuple[RunHeader, RunTraces]:
+    from watcher.measure.readers import mzml_blocks
+    from watcher.measure.run import RunTraces
+
     traces = RunTraces(config)
     with mzml_blocks.open_block(path, first, stop, ms1_arrays=needs_arrays) as (header, scans):
         for scan in scans:

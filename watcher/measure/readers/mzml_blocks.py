@@ -27,8 +27,7 @@ if TYPE_CHECKING:
 
     from watcher.measure.scan import Scan
 
-# Below this many spectra per block the processes cost more than they save.
-MIN_SPECTRA_PER_BLOCK = 16
+MIN_SPECTRA_PER_BLOCK = 16  # fewer: the processes cost more than they save
 
 
 def block_bounds(
