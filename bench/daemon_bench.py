@@ -8,7 +8,8 @@ would, and measures from the outside:
   the time until its line appears in the health log, against settle_s + measuring + 1 s;
 * idle CPU: user+system CPU of the daemon and its measuring child over ``--idle-s`` seconds of
   an empty folder with inotify (target under 1 % of one core);
-* burst: ``--burst`` small runs dropped at once; seconds until all are judged and peak RSS
+* burst: ``--burst`` small runs dropped at once; seconds until all are judged and peak RSS,
+  with one measuring child (``burst_1_worker``) and with ``limits.workers``' default
   (VmHWM) of the daemon and of its child.
 
 Usage: ``.venv/bin/python bench/daemon_bench.py [--idle-s 60] [--burst 1000] [--latency-runs 10]``
@@ -51,8 +52,9 @@ def _variant(template: bytes, n: int) -> bytes:
     return head + b"?>\n<!-- copy %d -->" % n + rest
 
 
-def _config(root: Path, settle_s: float) -> Path:
+def _config(root: Path, settle_s: float, workers: int = 0) -> Path:
     cfg = {
+        "limits": {"workers": workers},
         "instrument": {"name": "Kestrel-2 Q-TOF", "timezone": "UTC"},
         "watch": {"folders": [str(root / "exports")], "settle_s": settle_s},
         "state_dir": str(root / "state"),
@@ -211,8 +213,10 @@ def bench_idle(root: Path, idle_s: float) -> dict[str, float]:
     }
 
 
-def bench_burst(root: Path, template: bytes, n: int, settle_s: float) -> dict[str, float]:
-    proc = _start(root, _config(root, settle_s))
+def bench_burst(
+    root: Path, template: bytes, n: int, settle_s: float, workers: int = 0
+) -> dict[str, float]:
+    proc = _start(root, _config(root, settle_s, workers))
     exports = root / "exports"
     start = time.monotonic()
     for i in range(n):
@@ -260,6 +264,9 @@ def main() -> int:
     parser.add_argument("--latency-runs", type=int, default=10)
     parser.add_argument("--slow-copies", type=int, default=20)
     parser.add_argument("--settle-s", type=float, default=2.0)
+    parser.add_argument(
+        "--only", choices=("latency", "slow_copy", "idle", "burst"), help="one benchmark only"
+    )
     args = parser.parse_args()
     with tempfile.TemporaryDirectory(prefix="ionwarden-bench-") as tmp:
         base = Path(tmp)
@@ -272,8 +279,12 @@ def main() -> int:
                 lambda r: bench_slow_copy(r, template, args.slow_copies, args.settle_s),
             ),
             ("idle", lambda r: bench_idle(r, args.idle_s)),
+            # One measuring child against limits.workers' default (the cores, at most 4).
+            ("burst_1_worker", lambda r: bench_burst(r, template, args.burst, 0.5, workers=1)),
             ("burst", lambda r: bench_burst(r, template, args.burst, 0.5)),
         ):
+            if args.only and not name.startswith(args.only):
+                continue
             root = base / name
             root.mkdir()
             result = fn(root)
