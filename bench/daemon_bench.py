@@ -8,9 +8,9 @@ would, and measures from the outside:
   the time until its line appears in the health log, against settle_s + measuring + 1 s;
 * idle CPU: user+system CPU of the daemon and its measuring child over ``--idle-s`` seconds of
   an empty folder with inotify (target under 1 % of one core);
-* burst: ``--burst`` small runs dropped at once; seconds until all are judged and peak RSS,
-  with one measuring child (``burst_1_worker``) and with ``limits.workers``' default
-  (VmHWM) of the daemon and of its child.
+* burst: ``--burst`` small runs dropped at once; seconds until all are judged and peak RSS
+  (VmHWM) of the daemon and of its children, with one measuring child (``burst_1_worker``)
+  and with ``limits.workers``' default (one child per core, at most 4).
 
 Usage: ``.venv/bin/python bench/daemon_bench.py [--idle-s 60] [--burst 1000] [--latency-runs 10]``
 """
