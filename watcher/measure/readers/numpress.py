@@ -177,4 +177,5 @@ def _assemble(
     if ones.any():
         low_mask = (np.uint64(1) << (np.uint64(4) * written[ones].astype(np.uint64))) - np.uint64(1)
         values[ones] |= np.uint64(0xFFFFFFFF) & ~low_mask
-    return values.astype(np.uint32)
+    out: npt.NDArray[np.uint32] = values.astype(np.uint32)
+    return out
