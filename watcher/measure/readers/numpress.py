@@ -67,7 +67,8 @@ def decode_linear(raw: bytes, *, max_values: int | None = None) -> FloatArray:
     first = int.from_bytes(raw[8:12], "little")
     if size == 12:
         _check_count(1, max_values, "linear")
-        return np.array([first / fixed], dtype=np.float64)
+        with np.errstate(all="ignore"):
+            return _finite(np.array([first / fixed], dtype=np.float64), "linear")
     if size < 16:
         raise NumpressError(f"linear: {size} bytes, the second value is cut off")
     second = int.from_bytes(raw[12:16], "little")
@@ -81,7 +82,8 @@ def decode_linear(raw: bytes, *, max_values: int | None = None) -> FloatArray:
     if diffs.size:
         steps = np.cumsum(diffs) + (second - first)
         ints[2:] = np.cumsum(steps) + second
-    return ints / fixed
+    with np.errstate(all="ignore"):
+        return _finite(ints / fixed, "linear")
 
 
 def decode_pic(raw: bytes, *, max_values: int | None = None) -> FloatArray:
@@ -111,7 +113,16 @@ def decode_slof(raw: bytes, *, max_values: int | None = None) -> FloatArray:
         raise NumpressError(f"slof: {size - 8} value bytes is not a whole number of 2-byte values")
     _check_count((size - 8) // 2, max_values, "slof")
     shorts = np.frombuffer(raw, dtype="<u2", offset=8)
-    return np.asarray(np.exp(shorts / fixed) - 1.0, dtype=np.float64)
+    with np.errstate(all="ignore"):
+        return _finite(np.exp(shorts / fixed) - 1.0, "slof")
+
+
+def _finite(values: FloatArray, codec: str) -> FloatArray:
+    """The values, unless a damaged fixed point made some of them infinite."""
+    out = np.asarray(values, dtype=np.float64)
+    if not np.isfinite(out).all():
+        raise NumpressError(f"{codec}: the fixed point makes values overflow (damaged header)")
+    return out
 
 
 def _fixed_point(raw: bytes, codec: str) -> float:
