@@ -3,8 +3,9 @@
 A transition is an expected ion with ``product_mz``; its chromatogram is the one whose
 precursor and product isolation targets are both within ``tolerance_mz`` of the ion's m/z and
 ``product_mz`` (the nearest when several are). Within the RT window its apex, height and FWHM
-come from the same Gaussian fit as a spectrum XIC's (``xic.elution_peak``); the area is the
-trapezoid integral between the points where the trace falls to 1 % of the apex (a Gaussian
+come from the same Gaussian fit as a spectrum XIC's (``xic.elution_peak``); it is found when
+its top reaches ``min_intensity`` and 3 x the trace's baseline (a flat trace is no peak); the area
+is the trapezoid integral between the points where the trace falls to 1 % of the apex (a Gaussian
 keeps 99.7 % of its area there, at +-3.03 sigma), or to the window's or trace's end. The ion
 ratio is the area over the area of the ``ratio_to`` transition, as in the ion-ratio criterion
 of confirmatory SRM methods (common practice: e.g. SANTE/11312/2021, tolerance +-30 %).
@@ -36,6 +37,11 @@ if TYPE_CHECKING:
     from watcher.measure.scan import FloatArray
 
 AREA_LEVEL = 0.01  # the peak's bounds: where the trace falls to this share of the apex height
+# A flat or noisy trace is no peak: its top point must reach PEAK_TO_BASELINE x the trace's
+# 10th percentile within the window (the baseline between peaks). 3 follows the usual
+# signal-to-noise limit of detection of 3 (common practice); a lab's floor is min_intensity.
+BASELINE_QUANTILE = 0.1
+PEAK_TO_BASELINE = 3.0
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -237,11 +243,13 @@ def measure_transition(
         return absent(transition), None
     top = int(np.argmax(height))
     apex_rt_s, apex_intensity, fwhm_s = elution_peak(time_s, height, top)
+    baseline = float(np.quantile(height, BASELINE_QUANTILE))
     return (
         ExpectedIonResult(
             name=transition.name,
             mz=transition.precursor_mz,
-            found=apex_intensity >= transition.min_intensity,
+            found=apex_intensity >= transition.min_intensity
+            and float(height[top]) >= PEAK_TO_BASELINE * baseline,
             apex_rt_s=apex_rt_s,
             apex_intensity=apex_intensity,
             ppm=None,  # unit-resolution isolation: no mass error to speak of
