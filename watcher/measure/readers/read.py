@@ -308,6 +308,8 @@ def _as_read_error(path: Path, exc: BaseException) -> ReadError:
             kind = "truncated"
     elif isinstance(exc, mzml.UnsupportedCompression):
         what, kind = "unsupported data", "unsupported"
+    elif isinstance(exc, mzml_chrom.ChromatogramError):
+        what = "bad chromatogram data"
     elif isinstance(exc, mzml.SpectrumError):
         what = "bad spectrum data"
     elif isinstance(exc, EOFError):
