@@ -231,3 +231,20 @@ def test_zlib_and_plain_arrays_flipped_or_cut(raw: bytes, cut: int, flip: int) -
         packed[(flip // 8) % len(packed)] ^= 1 << (flip % 8)
     _decode_or_error(bytes(packed[:cut]), "MS:1000574", "<f4", len(raw) // 4)
     _decode_or_error(raw[:cut], "MS:1000576", "<f8", None)
+
+
+_REAL = _real_arrays()
+
+
+@_FUZZ
+@given(which=st.integers(0, len(_REAL) - 1), data=st.data())
+def test_the_real_file_arrays_flipped_or_cut(which: int, data: st.DataObject) -> None:
+    """mini_numpress.chrom.mzML's own arrays, damaged: values or a one-line error."""
+    codec, original = _REAL[which]
+    raw = bytearray(original)
+    for _flip in range(data.draw(st.integers(0, 3))):
+        at = data.draw(st.integers(0, len(raw) - 1))
+        raw[at] ^= 1 << data.draw(st.integers(0, 7))
+    cut = data.draw(st.integers(0, len(raw)))
+    declared = data.draw(st.sampled_from([None, 176]))  # chromatograms.tsv: 176 points
+    _decode_or_error(bytes(raw[:cut]), _ACCESSION[(codec, False)], "<f8", declared)
