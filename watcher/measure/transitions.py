@@ -104,6 +104,9 @@ class ChromatogramSet:
             return
         self.transition_count += 1
         for transition in self.transitions:
+            # inline pre-test on the product first: most chromatograms match no transition
+            if abs(chrom.product_mz - transition.product_mz) > transition.tolerance_mz:  # type: ignore[operator]
+                continue
             if not transition.matches(chrom):
                 continue
             best = self.matched.get(transition.name)

@@ -57,6 +57,8 @@ KINDS = {
 }
 _TIME_UNIT_NAMES_S = {"second": 1.0, "minute": 60.0, "millisecond": 1e-3, "hour": 3600.0}
 _TAGS = ("{*}chromatogram", "{*}chromatogramList", "{*}run")
+_PARTS = ("{*}precursor", "{*}product", "{*}binaryDataArrayList")
+_PARAM_TAGS = ("{*}cvParam", "{*}referenceableParamGroupRef")
 
 
 class ChromatogramError(SpectrumError):
@@ -102,13 +104,14 @@ def chromatogram_from_element(element: Any, *, index: int, groups: Groups) -> Ch
     precursor_mz = product_mz = None
     arrays: dict[str, np.ndarray] = {}
     length = _int_attr(element, "defaultArrayLength", 0)
-    for child in element:
+    # iterchildren's tag filter runs in C: a targeted run has thousands of chromatograms
+    for child in element.iterchildren(*_PARTS):
         name = local_name(child.tag)
         if name == "precursor":
             precursor_mz = _target_mz(child, groups, where, fallback=True)
         elif name == "product":
             product_mz = _target_mz(child, groups, where, fallback=False)
-        elif name == "binaryDataArrayList":
+        else:
             arrays = _arrays(child, groups, where, length)
     time_s = arrays.get(TIME_ARRAY)
     intensity = arrays.get(INTENSITY_ARRAY)
@@ -134,21 +137,19 @@ def chromatogram_from_element(element: Any, *, index: int, groups: Groups) -> Ch
 
 def _params(element: Any, groups: Groups) -> dict[str, Param]:
     values: dict[str, Param] = {}
-    for child in element:
-        tag = local_name(child.tag)
-        if tag == "cvParam":
-            accession = child.get("accession", "")
-            values.setdefault(
-                accession,
-                (
+    for child in element.iterchildren(*_PARAM_TAGS):
+        get = child.get
+        if child.tag.endswith("cvParam"):
+            accession = get("accession", "")
+            if accession not in values:
+                values[accession] = (
                     accession,
-                    child.get("value", ""),
-                    child.get("unitAccession"),
-                    child.get("unitName"),
-                ),
-            )
-        elif tag == "referenceableParamGroupRef":
-            for param in groups.get(child.get("ref", ""), ()):
+                    get("value", ""),
+                    get("unitAccession"),
+                    get("unitName"),
+                )
+        else:
+            for param in groups.get(get("ref", ""), ()):
                 values.setdefault(param[0], param)
     return values
 
@@ -166,26 +167,21 @@ def _number(params: dict[str, Param], accession: str, where: str) -> float | Non
 
 
 def _target_mz(part: Any, groups: Groups, where: str, *, fallback: bool) -> float | None:
-    target: float | None = None
-    selected: float | None = None
-    for child in part:
-        name = local_name(child.tag)
-        if name == "isolationWindow":
-            target = _number(_params(child, groups), ISOLATION_TARGET_MZ, where)
-        elif name == "selectedIonList" and fallback:
-            ion = next((c for c in child if local_name(c.tag) == "selectedIon"), None)
-            if ion is not None:
-                selected = _number(_params(ion, groups), SELECTED_ION_MZ, where)
-    return target if target is not None else selected
+    window = part.find("{*}isolationWindow")
+    target = (
+        None if window is None else _number(_params(window, groups), ISOLATION_TARGET_MZ, where)
+    )
+    if target is not None or not fallback:
+        return target
+    ion = part.find("{*}selectedIonList/{*}selectedIon")
+    return None if ion is None else _number(_params(ion, groups), SELECTED_ION_MZ, where)
 
 
 def _arrays(
     array_list: Any, groups: Groups, where: str, default_length: int
 ) -> dict[str, np.ndarray]:
     out: dict[str, np.ndarray] = {}
-    for bda in array_list:
-        if local_name(bda.tag) != "binaryDataArray":
-            continue
+    for bda in array_list.iterchildren("{*}binaryDataArray"):
         params = _params(bda, groups)
         kind = (
             TIME_ARRAY
@@ -200,7 +196,7 @@ def _arrays(
         dtype = next((DTYPES[acc] for acc in params if acc in DTYPES), None)
         if dtype is None:
             raise ChromatogramError(f"{where}: {what} has no known binary data type")
-        binary = next((c for c in bda if local_name(c.tag) == "binary"), None)
+        binary = bda.find("{*}binary")
         expected = _int_attr(bda, "arrayLength", default_length)
         try:
             values = decode_array(
