@@ -69,7 +69,13 @@ class RunFile:
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class SignalMetrics:
-    """Signal strength and acquisition shape of one run, from MS1/MS2 headers and arrays."""
+    """Signal strength and acquisition shape of one run, from MS1/MS2 headers and arrays.
+
+    A targeted run without spectra (SRM/MRM chromatograms only) has no MS1 scans: its
+    ``rt_*``, ``tic_median``, ``dropouts``, ``longest_dropout_s`` and ``tic_rt*`` come from its
+    TIC chromatogram (or the sum of its transitions), one point per acquisition cycle; the values
+    of spectra alone (base peak, injection times, MS1 cycle, charges) stay None.
+    """
 
     ms1_count: int
     ms2_count: int
@@ -132,6 +138,10 @@ class ExpectedIonResult:
     fwhm_s: float | None
     m1_ratio: float | None  # observed (M+1)/M at the apex
     m1_ratio_expected: float | None  # from the elemental composition; None for bare m/z ions
+    # Transitions (an expected ion with product_mz, found in the chromatograms) only:
+    area: float | None = None  # intensity x s under the peak, between its 1 %-of-apex crossings
+    ion_ratio: float | None = None  # this transition's area / the area of its ratio_to transition
+    ion_ratio_deviation_pct: float | None = None  # (ion_ratio / expected_ratio - 1) x 100
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import gzip
-import shutil
 from datetime import UTC, datetime
 from pathlib import Path
 
@@ -260,15 +259,20 @@ def test_measure_file_reference_mzml_counts() -> None:
     assert metrics.signal.ms2_count == 1
 
 
-def test_measure_file_without_spectra_is_empty_error(tmp_path: Path) -> None:
-    """A chromatogram-only mzML is unreadable with kind 'empty'."""
-    path = tmp_path / "mini.chrom.mzML"
-    shutil.copyfile(REFERENCE / "mzml" / "mini.chrom.mzML", path)
-    # tests/data/README.md: mini.chrom.mzML holds 0 spectra (SRM chromatograms only)
+def test_measure_file_without_spectra_or_chromatograms_is_empty_error(tmp_path: Path) -> None:
+    """An mzML with neither spectra nor chromatograms is unreadable with kind 'empty'.
+
+    (A chromatogram-only run is a targeted run and is measured: tests/measure/test_transitions.)
+    """
+    source = (REFERENCE / "mzml" / "mini.chrom.mzML").read_bytes()
+    # tests/data/README.md: mini.chrom.mzML holds 0 spectra; cut its chromatogram list out
+    cut = source[: source.index(b"<chromatogramList")] + source[source.index(b"</run>") :]
+    path = tmp_path / "empty.mzML"
+    path.write_bytes(cut)
     with pytest.raises(ReadError) as caught:
         measure_file(path, DEMO)
     assert caught.value.kind == "empty"
-    assert "mini.chrom.mzML" in str(caught.value)
+    assert "empty.mzML" in str(caught.value)
 
 
 def test_measure_file_mgf_has_no_ms1_note(tmp_path: Path) -> None:

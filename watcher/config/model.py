@@ -151,6 +151,20 @@ class ExpectedIon:
         default=None, metadata=_within(0, 7 * 24 * 60.0)
     )
     min_intensity: float = field(default=0.0, metadata=_within(0, _MAX_MAGNITUDE))
+    # A transition (SRM/MRM): the ion is the precursor, this the product ion's m/z. It is looked
+    # for in the run's chromatograms, matched on both isolation targets within tolerance_mz.
+    product_mz: float | None = field(default=None, metadata=_positive(100_000.0))
+    # Unit-resolution quadrupoles isolate about 0.7 m/z FWHM and methods write targets to 0.1:
+    # half a unit tells neighbouring transitions apart (common practice).
+    tolerance_mz: float = field(default=0.5, metadata=_positive(100.0))
+    # Ion ratio: this transition's peak area / the area of the transition named here
+    ratio_to: str | None = None
+    expected_ratio: float | None = field(default=None, metadata=_positive(1e6))
+
+    @property
+    def is_transition(self) -> bool:
+        """Looked for in chromatograms (precursor + product), not in MS1 spectra."""
+        return self.product_mz is not None
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

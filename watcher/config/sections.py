@@ -147,6 +147,7 @@ def _ions(v: Values, data: Any, key: str, kind: str) -> tuple[Any, ...]:
     items = v.sequence((key,), data)
     out: list[Any] = []
     seen: dict[str, int] = {}
+    lines: dict[str, KeyPath] = {}
     for i, item in enumerate(items):
         path: KeyPath = (key, i)
         m = v.mapping(path, item, KEYS[kind], f"{kind} keys")
@@ -175,8 +176,49 @@ def _ions(v: Values, data: Any, key: str, kind: str) -> tuple[Any, ...]:
             "min_intensity",
             lambda p, x: v.number(p, x, range_of(ExpectedIon, "min_intensity")),
         )
+        for number in ("product_mz", "tolerance_mz", "expected_ratio"):
+            v.put(kw, m, path, number, _number_of(v, number))
+        v.put(kw, m, path, "ratio_to", lambda p, x: v.text(p, x))
+        if "product_mz" not in m:
+            for only in ("tolerance_mz", "ratio_to", "expected_ratio"):
+                if only in m:
+                    v.problem(
+                        (*path, only), f"{only} applies to transitions only (give product_mz)"
+                    )
         out.append(ExpectedIon(ion=ion, **kw))
+        lines[ion.name] = path
+    if kind == "expected_ion":
+        _check_transitions(v, out, lines)
     return tuple(out)
+
+
+def _number_of(v: Values, key: str) -> Converter:
+    within = range_of(ExpectedIon, key)
+    return lambda p, x: v.number(p, x, within)
+
+
+def _check_transitions(v: Values, ions: list[Any], paths: dict[str, KeyPath]) -> None:
+    """ratio_to names another transition; expected_ratio goes with ratio_to."""
+    transitions = {ion.ion.name for ion in ions if ion.is_transition}
+    for ion in ions:
+        path = paths[ion.ion.name]
+        if not ion.is_transition:
+            continue
+        if ion.expected_ratio is not None and ion.ratio_to is None:
+            v.problem((*path, "expected_ratio"), "expected_ratio needs ratio_to")
+        if ion.ratio_to is None:
+            continue
+        if ion.ratio_to == ion.ion.name:
+            v.problem(
+                (*path, "ratio_to"), f"ratio_to names the transition itself ({ion.ratio_to!r})"
+            )
+        elif ion.ratio_to not in transitions:
+            known = ", ".join(sorted(transitions - {ion.ion.name})) or "none"
+            v.problem(
+                (*path, "ratio_to"),
+                f"ratio_to {ion.ratio_to!r} is not a transition (expected ion with product_mz); "
+                f"transitions: {known}",
+            )
 
 
 def _ion(v: Values, path: KeyPath, m: dict[str, Any]) -> IonSpec | None:

@@ -1,7 +1,9 @@
 """Measure one run: stream its scans once through the signal, calibrant and expected-ion traces.
 
-``measure_scans`` is pure over in-memory scans; ``measure_file`` adds the file edge (completeness
-check, reader) and turns a file without spectra into a ReadError.
+``measure_scans`` is pure over in-memory scans (and the chromatograms kept of the run, for
+expected transitions and the signal of a targeted run without spectra); ``measure_file`` adds
+the file edge (completeness check, reader) and turns a file without spectra or chromatograms
+into a ReadError.
 """
 
 from __future__ import annotations
@@ -16,6 +18,12 @@ from watcher.measure.calibrant import CalibrantTrace, mass_correction
 from watcher.measure.ions import ResolvedIon, resolve
 from watcher.measure.peaks import looks_profile
 from watcher.measure.signal import SignalTrace
+from watcher.measure.transitions import (
+    ChromatogramSet,
+    Transition,
+    chromatogram_signal,
+    transition_results,
+)
 from watcher.measure.xic import XicTrace, absent
 from watcher.records import (
     CalibrantDrift,
@@ -29,17 +37,26 @@ if TYPE_CHECKING:
     from collections.abc import Callable, Iterable
     from pathlib import Path
 
-    from watcher.config import Config, IonSpec
+    from watcher.config import Config, ExpectedIon, IonSpec
     from watcher.measure.scan import RunHeader, Scan
 
 NO_MS1_NOTE = "no MS1 spectra: calibrant and expected-ion metrics not available"
 NO_ARRAYS_NOTE = (
     "MS1 spectra carry no peak arrays: calibrant and expected-ion metrics not available"
 )
+TARGETED_NOTE = (
+    "targeted run (chromatograms, no spectra): calibrant ppm not measured (unit-resolution "
+    "instruments are not checked in ppm); expected ions without product_mz not searched"
+)
 
 
 def measure_scans(
-    header: RunHeader, scans: Iterable[Scan], config: Config, *, file_name: str
+    header: RunHeader,
+    scans: Iterable[Scan],
+    config: Config,
+    *,
+    file_name: str,
+    chromatograms: ChromatogramSet | None = None,
 ) -> RunMetrics:
     """Compute every metric of one run in a single pass over its scans.
 
@@ -48,6 +65,8 @@ def measure_scans(
         scans: the run's spectra in file order; only MS1 scans need arrays.
         config: calibrants, expected ions and signal settings.
         file_name: the name reported in the metrics.
+        chromatograms: what was kept of the run's chromatograms (``transition_set``), filled
+            by the time ``scans`` ends; None: the run has none (or they were not read).
 
     Raises:
         ConfigError: an ion in the config cannot be resolved to an m/z.
@@ -55,19 +74,20 @@ def measure_scans(
     traces = RunTraces(config)
     for scan in scans:
         traces.add(scan)
-    return traces.metrics(header, config, file_name=file_name)
+    return traces.metrics(header, config, file_name=file_name, chromatograms=chromatograms)
 
 
 class RunTraces:
     """What one pass over a run's spectra accumulates: the signal, calibrant and expected-ion
     traces and the MS1 counts. Every trace only appends per scan, so the traces of contiguous
     blocks of one run, ``extend``ed in file order, are exactly the traces of one pass (the
-    parallel reader of indexed mzML, watcher/measure/blocks.py, relies on it)."""
+    parallel reader of indexed mzML, watcher/measure/parallel.py, relies on it)."""
 
     __slots__ = ("calibrants", "expected", "ms1_with_arrays", "polarities", "signal")
 
     def __init__(self, config: Config) -> None:
         self.calibrants = [CalibrantTrace(ion) for ion in _resolve_all(config, "calibrants")]
+        expected_specs = [spec for spec in config.expected_ions if not spec.is_transition]
         self.expected = [
             XicTrace(
                 ion,
@@ -76,9 +96,7 @@ class RunTraces:
                 else (spec.rt_window_min[0] * 60.0, spec.rt_window_min[1] * 60.0),
                 min_intensity=spec.min_intensity,
             )
-            for ion, spec in zip(
-                _resolve_all(config, "expected_ions"), config.expected_ions, strict=True
-            )
+            for ion, spec in zip(_resolve_all(config, "expected_ions"), expected_specs, strict=True)
         ]
         self.signal = SignalTrace()
         self.ms1_with_arrays = 0
@@ -115,13 +133,28 @@ class RunTraces:
         self.ms1_with_arrays += later.ms1_with_arrays
         self.polarities.update(later.polarities)
 
-    def metrics(self, header: RunHeader, config: Config, *, file_name: str) -> RunMetrics:
-        """The run's metrics from everything taken so far."""
+    def metrics(
+        self,
+        header: RunHeader,
+        config: Config,
+        *,
+        file_name: str,
+        chromatograms: ChromatogramSet | None = None,
+    ) -> RunMetrics:
+        """The run's metrics from everything taken so far (and the chromatograms kept)."""
         calibrants, expected = self.calibrants, self.expected
         signal_metrics = self.signal.summary(config.signal)
         notes: list[str] = []
         drifts: tuple[CalibrantDrift, ...] = tuple(cal.summary() for cal in calibrants)
-        if signal_metrics.ms1_count == 0:
+        if (
+            chromatograms is not None
+            and chromatograms.count > 0
+            and signal_metrics.ms1_count + signal_metrics.ms2_count == 0
+        ):
+            signal_metrics = chromatogram_signal(chromatograms.signal_trace(), config.signal)
+            notes.append(TARGETED_NOTE)
+            ions = tuple(absent(xic.ion, searched=False) for xic in expected)
+        elif signal_metrics.ms1_count == 0:
             if calibrants or expected:
                 notes.append(NO_MS1_NOTE)
             ions = tuple(absent(xic.ion, searched=False) for xic in expected)
@@ -132,6 +165,8 @@ class RunTraces:
         else:
             ions, ion_notes = _searched_ions(expected, self.polarities, signal_metrics)
             notes.extend(ion_notes)
+        ions, transition_notes = _with_transitions(config, ions, chromatograms)
+        notes.extend(transition_notes)
         acquired_at = _parse_acquired_at(header.acquired_at_iso)
         if header.acquired_at_iso and acquired_at is None:
             notes.append(f"run start time {header.acquired_at_iso!r} is not ISO-8601; ignored")
@@ -202,7 +237,8 @@ def measure_file(
         progress: called as ``progress(done, total)`` while the reader works (units its own).
 
     Raises:
-        ReadError: the file is truncated, corrupt, of no known format, or holds no spectra.
+        ReadError: the file is truncated, corrupt, of no known format, or holds neither spectra
+            nor chromatograms.
         ConfigError: an ion in the config cannot be resolved.
     """
     from watcher.intake import formats
@@ -211,15 +247,21 @@ def measure_file(
     # A .gz stream is proven whole in the reading pass itself (one gunzip, not two); no metrics
     # leave here before that proof is in.
     formats.check_complete(path, whole_gzip=False)
+    spectrum_ions = [spec for spec in config.expected_ions if not spec.is_transition]
+    needs_arrays = bool(config.calibrants or spectrum_ions)
+    # Chromatograms are read when the config has transitions, or when the run has no spectra
+    # (its signal then comes from them); a spectrum run's pass costs what it did otherwise.
+    kept = transition_set(config)
     workers = parallel_workers(config)
-    if workers > 1:
-        # A large indexed mzML is read in blocks on several cores; None: one pass below.
+    if workers > 1 and not kept.transitions:
+        # A large indexed mzML is read in blocks on several cores (spectra only: a run whose
+        # signal must come from its chromatograms gives no spectra and is read below).
         from watcher.measure import parallel
 
         metrics = parallel.measure_in_blocks(path, config, workers=workers, progress=progress)
         if metrics is not None and metrics.signal.ms1_count + metrics.signal.ms2_count > 0:
             return metrics
-    needs_arrays = bool(config.calibrants or config.expected_ions)
+    wish = read.ChromatogramWish(kept.add, with_spectra=bool(kept.transitions))
     # A cut, damaged or too large .gz can fail anywhere in that pass: open_run then names the
     # stream's problem (kind "truncated" or "too-large") from the same pass.
     with read.open_run(
@@ -228,10 +270,11 @@ def measure_file(
         progress=progress,
         check_gzip=True,
         max_inflated_bytes=config.limits.max_inflated_mb * 1024 * 1024,
+        chromatograms=wish,
     ) as (header, scans):
-        metrics = measure_scans(header, scans, config, file_name=path.name)
-    if metrics.signal.ms1_count + metrics.signal.ms2_count == 0:
-        raise ReadError(path, "no spectra in file", kind="empty")
+        metrics = measure_scans(header, scans, config, file_name=path.name, chromatograms=kept)
+    if metrics.signal.ms1_count + metrics.signal.ms2_count == 0 and kept.count == 0:
+        raise ReadError(path, "no spectra or chromatograms in file", kind="empty")
     return metrics
 
 
@@ -242,6 +285,46 @@ def parallel_workers(config: Config) -> int:
     from watcher.measure import parallel
 
     return parallel.worker_count(config.limits.workers)
+
+
+def transition_set(config: Config) -> ChromatogramSet:
+    """An empty ChromatogramSet for the config's expected transitions (precursors resolved).
+
+    Raises:
+        ConfigError: a transition's precursor cannot be resolved to an m/z.
+    """
+    specs = [spec for spec in config.expected_ions if spec.is_transition]
+    transitions = [
+        _transition(ion, spec)
+        for ion, spec in zip(_resolve_all(config, "expected_ions", specs), specs, strict=True)
+    ]
+    return ChromatogramSet(transitions)
+
+
+def _transition(ion: ResolvedIon, spec: ExpectedIon) -> Transition:
+    window = spec.rt_window_min
+    return Transition(
+        name=ion.name,
+        precursor_mz=ion.mz,
+        product_mz=spec.product_mz or 0.0,  # only transitions come here: product_mz is set
+        tolerance_mz=spec.tolerance_mz,
+        rt_window_s=None if window is None else (window[0] * 60.0, window[1] * 60.0),
+        min_intensity=spec.min_intensity,
+        ratio_to=spec.ratio_to,
+        expected_ratio=spec.expected_ratio,
+    )
+
+
+def _with_transitions(
+    config: Config, ions: tuple[ExpectedIonResult, ...], chromatograms: ChromatogramSet | None
+) -> tuple[tuple[ExpectedIonResult, ...], list[str]]:
+    """Spectrum ions and transitions together, in the config's order, and the transitions' notes."""
+    if not any(spec.is_transition for spec in config.expected_ions):
+        return ions, []
+    found = chromatograms if chromatograms is not None else transition_set(config)
+    by_name, notes = transition_results(found, searchable=found.transition_count > 0)
+    by_name.update((ion.name, ion) for ion in ions)
+    return tuple(by_name[spec.ion.name] for spec in config.expected_ions), notes
 
 
 def _searched_ions(
@@ -280,15 +363,23 @@ def _searched_ions(
     return tuple(results), polarity_notes + window_notes
 
 
-def _resolve_all(config: Config, key: str) -> list[ResolvedIon]:
-    specs: list[IonSpec] = (
-        list(config.calibrants)
-        if key == "calibrants"
-        else [expected.ion for expected in config.expected_ions]
-    )
+def _resolve_all(
+    config: Config, key: str, which: list[ExpectedIon] | None = None
+) -> list[ResolvedIon]:
+    """Resolve the calibrants, or the expected ions ``which`` (default: the spectrum ions)."""
+    if key == "calibrants":
+        numbered: list[tuple[int, IonSpec]] = list(enumerate(config.calibrants))
+    else:
+        chosen = (
+            which if which is not None else [s for s in config.expected_ions if not s.is_transition]
+        )
+        names = {spec.ion.name for spec in chosen}
+        numbered = [
+            (i, spec.ion) for i, spec in enumerate(config.expected_ions) if spec.ion.name in names
+        ]
     resolved: list[ResolvedIon] = []
     problems: list[ConfigProblem] = []
-    for i, spec in enumerate(specs):
+    for i, spec in numbered:
         try:
             resolved.append(resolve(spec, resolving_power=config.instrument.resolving_power))
         except ValueError as exc:

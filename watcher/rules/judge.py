@@ -423,8 +423,24 @@ def _judgeable(metrics: RunMetrics) -> dict[str, float | bool | None]:
     if not metrics.signal.ms1_count:
         # No MS1 spectra (MGF, an MS2-only export): calibrants and expected ions were never
         # searched, so their values are missing, not "lost" or "not found" (README: null + note).
-        flat = {k: v for k, v in flat.items() if not k.startswith(MS1_ONLY_PREFIXES)}
+        # Expected transitions of a targeted run were searched in its chromatograms (found is
+        # True or False): they, and the aggregates over them, are judged.
+        searched = {ion.name for ion in metrics.expected_ions if ion.found is not None}
+        flat = {
+            k: v
+            for k, v in flat.items()
+            if not k.startswith(MS1_ONLY_PREFIXES) or _searched_ion_path(k, searched)
+        }
     return flat
+
+
+def _searched_ion_path(path: str, searched: set[str]) -> bool:
+    """An ``expected_ion.<name>.<value>`` of a searched ion, or an aggregate over them."""
+    if path.startswith("expected_ions."):
+        return bool(searched)
+    if not path.startswith("expected_ion."):
+        return False
+    return path[len("expected_ion.") :].rpartition(".")[0] in searched
 
 
 def _evaluated(

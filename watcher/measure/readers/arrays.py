@@ -1,5 +1,8 @@
 """mzML binary data arrays decoded by their CV accessions: none, zlib and MS-Numpress (+zlib).
 
+MS-Numpress is decoded by ``watcher.measure.readers.numpress`` (numpy, bounds-checked), not by
+a C extension, so a damaged array is an error naming its spectrum and never kills the process.
+
 The codec is chosen by accession, never by the cvParam's name: files exist whose names and
 accessions disagree, and a codec picked by name returns plausible-looking garbage
 (tests/data/README.md, pitfall 1). A compression this module cannot decode is an error,
@@ -21,8 +24,9 @@ from typing import TYPE_CHECKING, cast
 
 import numpy as np
 import pybase64
-import pynumpress
 from isal import isal_zlib
+
+from watcher.measure.readers import numpress
 
 if TYPE_CHECKING:
     from collections.abc import Callable
@@ -40,10 +44,12 @@ _NUMPRESS: dict[str, tuple[str, bool]] = {
     "MS:1002747": ("pic", True),
     "MS:1002748": ("slof", True),
 }
-_DECODERS: dict[str, Callable[[np.ndarray], np.ndarray]] = {
-    "linear": pynumpress.decode_linear,
-    "pic": pynumpress.decode_pic,
-    "slof": pynumpress.decode_slof,
+# Our own numpy decoders, not a C extension: damaged input must be an error, never an abort of
+# the interpreter (watcher.measure.readers.numpress).
+_DECODERS: dict[str, Callable[..., FloatArray]] = {
+    "linear": numpress.decode_linear,
+    "pic": numpress.decode_pic,
+    "slof": numpress.decode_slof,
 }
 # Binary data type accessions (MS:1000518 children) -> little-endian numpy dtype.
 DTYPES: dict[str, str] = {
@@ -89,7 +95,7 @@ def decode_array(
     if (compression == ZLIB or _NUMPRESS.get(compression, ("", False))[1]) and raw:
         raw = _inflate(raw, _max_bytes(compression, dtype, expected_length))
     if compression in _NUMPRESS:
-        values = _numpress(raw, _NUMPRESS[compression][0])
+        values = _numpress(raw, _NUMPRESS[compression][0], expected_length)
     else:
         width = np.dtype(dtype).itemsize
         if len(raw) % width:
@@ -153,13 +159,10 @@ def _b64(text: str | bytes | None) -> bytes:
         raise ArrayDecodeError(f"invalid base64 ({exc})") from None
 
 
-def _numpress(raw: bytes, codec: str) -> FloatArray:
+def _numpress(raw: bytes, codec: str, expected_length: int | None) -> FloatArray:
     if not raw:
         return np.zeros(0, dtype=np.float64)
     try:
-        decoded = _DECODERS[codec](np.frombuffer(raw, dtype=np.uint8))
-    except MemoryError:
-        raise
-    except Exception as exc:  # the C decoder raises assorted types on damaged input
+        return _DECODERS[codec](raw, max_values=expected_length)
+    except numpress.NumpressError as exc:
         raise ArrayDecodeError(f"corrupt MS-Numpress {codec} data ({exc})") from None
-    return np.asarray(decoded, dtype=np.float64)

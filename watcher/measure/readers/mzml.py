@@ -366,6 +366,7 @@ _STREAM_TAGS = (
     "{*}spectrumList",
     "{*}spectrum",
     "{*}chromatogramList",
+    "{*}chromatogram",
 )
 
 
@@ -415,8 +416,10 @@ def stream_scans(
                     del parent[0]
             if scan is not None:
                 yield scan
-        elif name in ("spectrumList", "chromatogramList", "run"):
-            return  # nothing after the spectra is needed; completeness checked the tail
+        elif name in ("spectrumList", "chromatogramList", "chromatogram", "run"):
+            # The spectra are done; the chromatograms, if wanted, are read from the same events
+            # (watcher.measure.readers.mzml_chrom); completeness checked the tail.
+            return
 
 
 def stream_tags() -> tuple[str, ...]:

@@ -21,13 +21,14 @@ import time
 import zlib
 from collections.abc import Callable, Iterator
 from contextlib import ExitStack, contextmanager
+from dataclasses import dataclass
 from typing import IO, TYPE_CHECKING, Any
 
 from lxml import etree  # type: ignore[import-untyped, unused-ignore]
 
 from watcher.errors import ReadError
 from watcher.intake.formats import GunzipCheck, sniff
-from watcher.measure.readers import mzml, safexml
+from watcher.measure.readers import mzml, mzml_chrom, safexml
 from watcher.measure.readers import mzml_index as mzmlindex
 from watcher.measure.readers.cv import disable_remote
 from watcher.measure.scan import RunHeader, Scan
@@ -35,7 +36,24 @@ from watcher.measure.scan import RunHeader, Scan
 if TYPE_CHECKING:
     from pathlib import Path
 
+    from watcher.measure.chromatogram import Chromatogram
+
 Progress = Callable[[int, int], None]
+
+
+@dataclass(frozen=True, slots=True)
+class ChromatogramWish:
+    """Which chromatograms of an mzML run the caller wants, and where they go.
+
+    ``add`` is called with each chromatogram, in file order, after the last spectrum and before
+    the scans iterator ends. ``with_spectra``: also when the run has spectra (the config has
+    transitions); otherwise only for a run without spectra (a targeted, chromatogram-only run),
+    so a spectrum run's reading costs what it did.
+    """
+
+    add: Callable[[Chromatogram], None]
+    with_spectra: bool = False
+
 
 _PROGRESS_INTERVAL_S = 0.05  # at most ~20 progress calls per second
 _PATH_RE = re.compile(r"(?:[A-Za-z]:)?(?:[\\/][^\s'\"\\/:]+)+[\\/]([^\s'\"\\/:]+)")
@@ -49,6 +67,7 @@ def open_run(
     progress: Progress | None = None,
     check_gzip: bool = False,
     max_inflated_bytes: int | None = None,
+    chromatograms: ChromatogramWish | None = None,
 ) -> Iterator[tuple[RunHeader, Iterator[Scan]]]:
     """Open ``path`` and yield ``(header, scans)``; scans come one at a time in file order.
 
@@ -65,6 +84,8 @@ def open_run(
             is the error (the file is inflated once, never a second time to name the reason).
         max_inflated_bytes: with ``check_gzip``, the most a .mzML.gz may inflate to; past it
             the error is ``kind="too-large"``.
+        chromatograms: read the chromatograms of an mzML run (ChromatogramWish); other
+            formats have none.
 
     Raises:
         ReadError: from opening and from iterating ``scans``; the message names the file's
@@ -80,6 +101,7 @@ def open_run(
                 throttle=throttle,
                 check_gzip=check_gzip,
                 max_inflated_bytes=max_inflated_bytes,
+                wish=chromatograms,
             )
         except (ReadError, MemoryError):
             raise  # out of memory is the limit's doing, not the file's: the caller reports it
@@ -96,6 +118,7 @@ def _open(
     throttle: _Throttle,
     check_gzip: bool,
     max_inflated_bytes: int | None,
+    wish: ChromatogramWish | None,
 ) -> tuple[RunHeader, Iterator[Scan]]:
     found = sniff(path)
     if found.format == "MGF":
@@ -129,7 +152,7 @@ def _open(
                 _raise_stream_problem(path, check)
                 raise
             header = _mzml_header(found.format, pre)
-            scans = mzml.stream_scans(events, pre, want_arrays=ms1_arrays)
+            scans = _streamed(events, pre, want_arrays=ms1_arrays, wish=wish)
             return header, _then_whole(path, scans, check)
         gz = gzip.GzipFile(fileobj=_Counted(raw, throttle))
         stack.callback(gz.close)
@@ -158,8 +181,10 @@ def _open(
                 parse=safexml.parse_fragment,
                 on_offset=throttle.at,
             )
-            return header, _with_fallback(path, scans, stack, ms1_arrays=ms1_arrays)
-    return header, mzml.stream_scans(events, pre, want_arrays=ms1_arrays)
+            return header, _with_fallback(
+                path, scans, stack, ms1_arrays=ms1_arrays, wish=wish, fd=fd, index=index, pre=pre
+            )
+    return header, _streamed(events, pre, want_arrays=ms1_arrays, wish=wish)
 
 
 def _mzml_header(fmt: str, pre: mzml.Preamble) -> RunHeader:
@@ -168,17 +193,78 @@ def _mzml_header(fmt: str, pre: mzml.Preamble) -> RunHeader:
     )
 
 
-def _with_fallback(
-    path: Path, scans: Iterator[Scan], stack: ExitStack, *, ms1_arrays: bool
+def _streamed(
+    events: Iterator[tuple[str, Any]],
+    pre: mzml.Preamble,
+    *,
+    want_arrays: bool,
+    wish: ChromatogramWish | None,
+    skip: int = 0,
+    seen: int = 0,
 ) -> Iterator[Scan]:
-    """Index-guided scans; if the index turns out wrong midway, stream the rest sequentially."""
+    """Streamed scans, then (as wished) the chromatograms from the same events.
+
+    ``seen`` spectra were already yielded by another path (the index, before a doubt).
+    """
+    for scan in mzml.stream_scans(events, pre, want_arrays=want_arrays, skip=skip):
+        seen += 1
+        yield scan
+    if wish is not None and (wish.with_spectra or seen == 0):
+        for chromatogram in mzml_chrom.stream_chromatograms(events, pre.groups):
+            wish.add(chromatogram)
+
+
+def _with_fallback(
+    path: Path,
+    scans: Iterator[Scan],
+    stack: ExitStack,
+    *,
+    ms1_arrays: bool,
+    wish: ChromatogramWish | None,
+    fd: int,
+    index: mzmlindex.OffsetIndex,
+    pre: mzml.Preamble,
+) -> Iterator[Scan]:
+    """Index-guided scans; if the index turns out wrong midway, stream the rest sequentially.
+
+    Chromatograms (as wished) come from the ``<chromatogramList>`` bytes alone after indexed
+    spectra, or from the same stream after a fallback.
+    """
+    seen = 0
     try:
-        yield from scans
+        for scan in scans:
+            seen += 1
+            yield scan
     except mzmlindex.IndexDoubt as doubt:
         source = stack.enter_context(path.open("rb"))
         events = safexml.safe_iterparse(source, events=("start", "end"), tag=mzml.stream_tags())
         pre = mzml.read_preamble(events)
-        yield from mzml.stream_scans(events, pre, want_arrays=ms1_arrays, skip=doubt.position)
+        yield from _streamed(
+            events, pre, want_arrays=ms1_arrays, wish=wish, skip=doubt.position, seen=seen
+        )
+        return
+    if wish is None or not (wish.with_spectra or seen == 0):
+        return
+    region = mzml_chrom.chromatogram_region(
+        fd, os.fstat(fd).st_size, index.starts[-1], index.ends[-1]
+    )
+    if region is None:
+        return
+    try:
+        found = list(
+            mzml_chrom.stream_chromatograms(mzml_chrom.region_events(fd, *region), pre.groups)
+        )
+    except etree.XMLSyntaxError:
+        # The list alone is not well-formed XML (a namespace prefix declared on the root, say):
+        # the whole file's stream reads it in context, as for a plain mzML.
+        source = stack.enter_context(path.open("rb"))
+        events = safexml.safe_iterparse(source, events=("start", "end"), tag=mzml.stream_tags())
+        pre = mzml.read_preamble(events)
+        for _skipped in mzml.stream_scans(events, pre, want_arrays=False, skip=1 << 62):
+            pass
+        found = list(mzml_chrom.stream_chromatograms(events, pre.groups))
+    for chromatogram in found:
+        wish.add(chromatogram)
 
 
 def _then_whole(path: Path, scans: Iterator[Scan], check: GunzipCheck) -> Iterator[Scan]:
@@ -222,6 +308,8 @@ def _as_read_error(path: Path, exc: BaseException) -> ReadError:
             kind = "truncated"
     elif isinstance(exc, mzml.UnsupportedCompression):
         what, kind = "unsupported data", "unsupported"
+    elif isinstance(exc, mzml_chrom.ChromatogramError):
+        what = "bad chromatogram data"
     elif isinstance(exc, mzml.SpectrumError):
         what = "bad spectrum data"
     elif isinstance(exc, EOFError):
