@@ -58,6 +58,13 @@ def connect(url: str, connect_timeout_s: float) -> psycopg.Connection[Any]:
     )
 
 
+def _number(value: Any) -> float | None:
+    """A finding's value as a number (true/false as 1/0), None when it is none."""
+    if isinstance(value, bool | int | float):
+        return float(value)
+    return None
+
+
 def _metric_rows(payload: dict[str, Any]) -> list[tuple[Any, ...]]:
     rows = []
     for metric, value in payload["metrics"].items():
@@ -68,9 +75,15 @@ def _metric_rows(payload: dict[str, Any]) -> list[tuple[Any, ...]]:
     return rows
 
 
-def apply(conn: psycopg.Connection[Any], source: str, entries: list[queue.Entry]) -> None:
+def apply(
+    conn: psycopg.Connection[Any],
+    source: str,
+    entries: list[queue.Entry],
+    profiles: dict[str, dict[str, Any]] | None = None,
+) -> None:
     """Write ``entries`` into the central tables inside the caller's transaction; upserts by
-    key throughout, so applying the same entries twice leaves the same rows."""
+    key throughout, so applying the same entries twice leaves the same rows. ``profiles``:
+    instrument -> its profile (``watcher.central.profile``), stored with the instrument."""
     from psycopg.types.json import Jsonb
 
     instruments: set[str] = set()
@@ -146,12 +159,21 @@ def apply(conn: psycopg.Connection[Any], source: str, entries: list[queue.Entry]
             else:
                 conn.execute(
                     "INSERT INTO open_alerts (instrument, check_name, subject, channel, severity,"
-                    " raised_at, message, metric, run_file) VALUES (%s, %s, %s, %s, %s, %s, %s,"
-                    " %s, %s) ON CONFLICT (instrument, check_name, subject, channel) DO UPDATE"
-                    " SET severity = excluded.severity, raised_at = excluded.raised_at,"
+                    " raised_at, message, metric, value, run_file) VALUES (%s, %s, %s, %s, %s, %s,"
+                    " %s, %s, %s, %s) ON CONFLICT (instrument, check_name, subject, channel)"
+                    " DO UPDATE SET severity = excluded.severity, raised_at = excluded.raised_at,"
                     " message = excluded.message, metric = excluded.metric,"
+                    " value = excluded.value,"
                     " run_file = coalesce(excluded.run_file, open_alerts.run_file)",
-                    (*key, p["severity"], p["raised_at"], p["message"], p["metric"], p["run_file"]),
+                    (
+                        *key,
+                        p["severity"],
+                        p["raised_at"],
+                        p["message"],
+                        p["metric"],
+                        _number(p["value"]),
+                        p["run_file"],
+                    ),
                 )
         elif entry.kind == "message":
             conn.execute(
@@ -174,11 +196,14 @@ def apply(conn: psycopg.Connection[Any], source: str, entries: list[queue.Entry]
                     p["finished_at"],
                 ),
             )
+    profiles = profiles or {}
     for name in sorted(instruments):
+        profile = profiles.get(name)
         conn.execute(
-            "INSERT INTO instruments (instrument, last_published_at) VALUES (%s, now())"
-            " ON CONFLICT (instrument) DO UPDATE SET last_published_at = now()",
-            (name,),
+            "INSERT INTO instruments (instrument, last_published_at, profile)"
+            " VALUES (%s, now(), %s) ON CONFLICT (instrument) DO UPDATE SET"
+            " last_published_at = now(), profile = coalesce(excluded.profile, instruments.profile)",
+            (name, None if profile is None else Jsonb(profile)),
         )
 
 
@@ -191,6 +216,7 @@ class Publisher:
         instrument: the name the deliveries it queues are published under.
         clock: epoch seconds for the back-off (tests pass a controllable one).
         connector: opens a PostgreSQL connection from (url, connect timeout s).
+        profile: the instrument's profile (``watcher.central.profile.profile_of``).
     """
 
     def __init__(
@@ -201,6 +227,7 @@ class Publisher:
         *,
         clock: Callable[[], float] = time.time,
         connector: Callable[[str, float], psycopg.Connection[Any]] = connect,
+        profile: dict[str, Any] | None = None,
     ) -> None:
         if central.url is None:
             raise ValueError("central.url is not set")
@@ -211,6 +238,7 @@ class Publisher:
         self.instrument = instrument
         self._clock = clock
         self._connector = connector
+        self._profiles = {} if profile is None else {instrument: profile}
         self._local: sqlite3.Connection | None = None
         self._pg: psycopg.Connection[Any] | None = None
         self._source: str | None = None
@@ -286,7 +314,7 @@ class Publisher:
         try:
             pg = self._pg_conn()
             with pg.transaction():
-                apply(pg, self._source_id(local), entries)
+                apply(pg, self._source_id(local), entries, self._profiles)
         except Exception as exc:  # psycopg.Error, OSError: the server, the network, the schema
             return self._failed(exc, now_s, waiting=len(entries))
         with db.write(local):

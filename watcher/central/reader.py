@@ -63,6 +63,7 @@ class CentralAlert:
     raised_at: datetime | None
     message: str | None
     metric: str | None
+    value: float | None
     run_file: str | None
     channels: tuple[str, ...]
 
@@ -112,6 +113,14 @@ def open_reader(url: str, connect_timeout_s: float = 5.0) -> psycopg.Connection[
             f"{schema.SCHEMA_VERSION} that this ionwarden reads"
         )
     return conn
+
+
+def profile(conn: psycopg.Connection[Any], instrument: str) -> dict[str, Any] | None:
+    """The instrument's published profile (``watcher.central.profile``), or None."""
+    row = conn.execute(
+        "SELECT profile FROM instruments WHERE instrument = %s", (instrument,)
+    ).fetchone()
+    return None if row is None or row[0] is None else dict(row[0])
 
 
 def instrument_names(conn: psycopg.Connection[Any]) -> list[str]:
@@ -212,7 +221,7 @@ def open_alerts(conn: psycopg.Connection[Any], instrument: str | None = None) ->
     """Open problems, of one instrument or all, worst first; one per (check, subject)."""
     rows = conn.execute(
         "SELECT instrument, check_name, subject, severity, raised_at, message, metric, run_file,"
-        " channel FROM open_alerts"
+        " channel, value FROM open_alerts"
         " WHERE %(instrument)s::text IS NULL OR instrument = %(instrument)s::text"
         " ORDER BY instrument, check_name, subject, channel",
         {"instrument": instrument},
@@ -230,6 +239,7 @@ def open_alerts(conn: psycopg.Connection[Any], instrument: str | None = None) ->
                 "raised_at": r[4],
                 "message": r[5],
                 "metric": r[6],
+                "value": r[9],
                 "run_file": r[7],
                 "channels": [],
             }

@@ -79,6 +79,7 @@ STEPS: tuple[tuple[int, str, str], ...] = (
             raised_at timestamptz,
             message text,
             metric text,
+            value double precision,
             run_file text,
             PRIMARY KEY (instrument, check_name, subject, channel)
         );
@@ -98,7 +99,8 @@ STEPS: tuple[tuple[int, str, str], ...] = (
         );
         CREATE TABLE IF NOT EXISTS instruments (
             instrument text PRIMARY KEY,
-            last_published_at timestamptz NOT NULL
+            last_published_at timestamptz NOT NULL,
+            profile jsonb
         )
         """,
     ),

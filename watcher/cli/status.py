@@ -217,6 +217,10 @@ def render(state: dict[str, Any]) -> str:
 def main(args: argparse.Namespace) -> int:
     """Print the state; exit 1 when something needs attention (see the module docstring)."""
     config = load(args.config)
+    if getattr(args, "all", False) or getattr(args, "instrument", None):
+        from watcher.cli.central_view import status_main
+
+        return status_main(config, args)
     state_dir = state_dir_of(config)
     try:
         state = collect(config, state_dir, now_s=time.time())

@@ -549,10 +549,15 @@ class Daemon:
         It only starts here; a dead server is its own affair (it retries with back-off)."""
         if config.central.url is None or self.pipeline is None:
             return
+        from watcher.central.profile import profile_of
         from watcher.central.publish import Publisher
 
         publisher = self.publisher = Publisher(
-            config.central, self.state_dir, config.instrument.name, clock=self.clock
+            config.central,
+            self.state_dir,
+            config.instrument.name,
+            clock=self.clock,
+            profile=profile_of(config),
         )
         self.pipeline.after_commit = publisher.wake
         publisher.start()
