@@ -205,7 +205,9 @@ def test_a_duplicate_publish_changes_nothing(local: Local, facility: str) -> Non
     assert rows(facility, "SELECT count(*) FROM alert_events") == [(1,)]
     assert rows(facility, "SELECT count(*) FROM open_alerts") == [(1,)]
     assert rows(facility, "SELECT count(*) FROM run_metrics")[0][0] > 0
-    metric_rows = rows(facility, "SELECT count(*), count(DISTINCT (metric, file_key)) FROM run_metrics")
+    metric_rows = rows(
+        facility, "SELECT count(*), count(DISTINCT (metric, file_key)) FROM run_metrics"
+    )
     assert metric_rows[0][0] == metric_rows[0][1]  # no metric of a run twice
     publisher.close()
 

@@ -24,7 +24,11 @@ from pathlib import Path
 import pytest
 
 # Where Debian puts the server binaries; ``initdb`` on PATH is tried too.
-_BIN_DIRS = ("/usr/lib/postgresql/17/bin", "/usr/lib/postgresql/16/bin", "/usr/lib/postgresql/15/bin")
+_BIN_DIRS = (
+    "/usr/lib/postgresql/17/bin",
+    "/usr/lib/postgresql/16/bin",
+    "/usr/lib/postgresql/15/bin",
+)
 
 
 def find_bindir() -> Path | None:

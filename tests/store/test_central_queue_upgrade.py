@@ -49,9 +49,9 @@ def test_every_store_has_its_own_id(tmp_path: Path) -> None:
     for name in ("a", "b"):
         conn = db.connect(tmp_path / name, daemon=True)
         ids.append(
-            conn.execute("SELECT value FROM daemon_state WHERE key = 'central.store_id'").fetchone()[
-                0
-            ]
+            conn.execute(
+                "SELECT value FROM daemon_state WHERE key = 'central.store_id'"
+            ).fetchone()[0]
         )
         conn.close()
     assert ids[0] != ids[1]
