@@ -168,10 +168,11 @@ def test_three_daemons_one_server_outage_and_kill(
     pg.start()
     wait_for(lambda: len(_central_runs(url)) == 21, 60, "21 runs after the server returned")
     got = _central_runs(url)
-    assert len(set((r[0], r[1]) for r in got)) == 21  # every run once
+    assert len({(r[0], r[1]) for r in got}) == 21  # every run once
     for i, name in enumerate(NAMES):
         files = sorted(r[1] for r in got if r[0] == name)
-        assert len(files) == 7 and all(f"_{i}_" in f for f in files)
+        assert len(files) == 7
+        assert all(f"_{i}_" in f for f in files)
     # LOW_* and DIM_* open per instrument, each raised once
     assert _count(url, "SELECT count(*) FROM open_alerts") == 6
     assert _count(url, "SELECT count(*) FROM alert_events WHERE action = 'raised'") == 6
@@ -184,7 +185,7 @@ def test_three_daemons_one_server_outage_and_kill(
     labs[0].start(env=env)
     wait_for(lambda: len(_central_runs(url)) == 41, 90, "41 runs after the restart")
     got = _central_runs(url)
-    assert len(got) == len(set((r[0], r[1]) for r in got)) == 41
+    assert len(got) == len({(r[0], r[1]) for r in got}) == 41
     burst = [r for r in got if r[1].startswith("B_")]
     assert len(burst) == 20
     # Every delivered message reaches the central store too (the scan runs every 2 s).

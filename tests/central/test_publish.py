@@ -76,9 +76,9 @@ def central(url: str, **kw: Any) -> Central:
     return Central(**settings)
 
 
-def rows(url: str, sql: str) -> list[tuple[Any, ...]]:
+def rows(url: str, sql: str, params: tuple[Any, ...] = ()) -> list[tuple[Any, ...]]:
     with psycopg.connect(url, autocommit=True) as conn:
-        return conn.execute(sql).fetchall()  # type: ignore[arg-type]
+        return conn.execute(sql, params).fetchall()  # type: ignore[arg-type]
 
 
 def drain(publisher: Publisher, clock: Clock, rounds: int = 50) -> None:
@@ -131,20 +131,11 @@ def test_runs_alert_changes_and_metrics_arrive_once(local: Local, facility: str)
     assert rows(facility, "SELECT file_key FROM runs WHERE file_name = 'QC_001.mzML'") == [(key,)]
     # Every stored metric of the run is a row of run_metrics, true/false as 1/0.
     assert len(stored.metrics) >= 10
-    assert rows(facility, f"SELECT count(*) FROM run_metrics WHERE file_key = '{key}'") == [
-        (len(stored.metrics),)
-    ]
-    got_ppm = rows(
-        facility,
-        "SELECT value FROM run_metrics WHERE metric = 'calibrant.siloxane-445.median_ppm'"
-        f" AND file_key = '{key}'",
-    )
-    assert got_ppm == [(0.5,)]
-    found = rows(
-        facility,
-        f"SELECT value FROM run_metrics WHERE metric = 'expected_ion.caffeine.found' AND file_key = '{key}'",
-    )
-    assert found == [(1.0,)]
+    n_rows = rows(facility, "SELECT count(*) FROM run_metrics WHERE file_key = %s", (key,))
+    assert n_rows == [(len(stored.metrics),)]
+    one = "SELECT value FROM run_metrics WHERE metric = %s AND file_key = %s"
+    assert rows(facility, one, ("calibrant.siloxane-445.median_ppm", key)) == [(0.5,)]
+    assert rows(facility, one, ("expected_ion.caffeine.found", key)) == [(1.0,)]
     publisher.close()
 
 
@@ -241,7 +232,8 @@ def test_an_hour_of_refused_connections_backs_off_and_loses_nothing(
     assert 60 <= publisher.attempts <= 68, publisher.attempts
     assert rounds > publisher.attempts * 3  # most rounds did not touch the network
     assert local.queued() == 5
-    assert publisher.last_error is not None and "refused" in publisher.last_error.lower()
+    assert publisher.last_error is not None
+    assert "refused" in publisher.last_error.lower()
     publisher.close()
     # The server answers (same database, now through the socket): everything arrives once.
     live = Publisher(central(pg.url(database)), local.state_dir, INSTRUMENT, clock=local.clock)
@@ -268,7 +260,8 @@ def test_server_down_then_killed_mid_publish(local: Local, tmp_path: Path) -> No
             central(url, batch_max=7), local.state_dir, INSTRUMENT, clock=local.clock
         )
         assert publisher.step() > 0  # down at start: a back-off wait, nothing lost
-        assert local.queued() == 30 and publisher.attempts == 1
+        assert local.queued() == 30
+        assert publisher.attempts == 1
         own.start()
         local.clock.advance(2)
         assert publisher.step() == 0.0  # one batch of 7 committed, more waiting

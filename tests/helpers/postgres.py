@@ -67,7 +67,7 @@ class Postgres:
     root: Path
     port: int = field(default_factory=_free_port)
     as_postgres: bool = field(default_factory=lambda: os.geteuid() == 0)
-    password: str = "lab-secret-7d1c"  # of the role ``lab`` on 127.0.0.1 (scram-sha-256)
+    password: str = "lab-secret-7d1c"  # noqa: S105 - a throwaway test server's; of the role ``lab`` on 127.0.0.1 (scram-sha-256)
     _n: int = 0
 
     @property

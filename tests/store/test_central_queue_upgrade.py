@@ -7,6 +7,8 @@ import re
 import sqlite3
 from typing import TYPE_CHECKING
 
+import pytest
+
 from tests.helpers.store import copy_fixture
 from watcher.store import db, migrations
 
@@ -60,13 +62,8 @@ def test_every_store_has_its_own_id(tmp_path: Path) -> None:
 def test_the_queue_refuses_an_unknown_kind(tmp_path: Path) -> None:
     """Only run, alert and message entries exist (a CHECK constraint)."""
     conn = db.connect(tmp_path / "state", daemon=True)
-    try:
+    with pytest.raises(sqlite3.IntegrityError, match="CHECK"):
         conn.execute(
             "INSERT INTO central_queue (kind, payload, queued_at_s) VALUES ('other', '{}', 0)"
         )
-    except sqlite3.IntegrityError as exc:
-        assert "CHECK" in str(exc)
-    else:
-        raise AssertionError("an unknown kind was queued")
-    finally:
-        conn.close()
+    conn.close()
