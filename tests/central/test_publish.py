@@ -8,7 +8,6 @@ plain SQL and with ``watcher.central.reader``.
 
 from __future__ import annotations
 
-import dataclasses
 import json
 import socket
 from typing import TYPE_CHECKING, Any
@@ -16,14 +15,13 @@ from typing import TYPE_CHECKING, Any
 import psycopg
 import pytest
 
+from tests.helpers.central import LocalStore
 from tests.helpers.clock import Clock
-from tests.helpers.configs import lab_config
-from tests.helpers.records import make_finding, make_metrics, make_verdict
+from tests.helpers.records import make_finding
 from watcher.central import queue, reader, schema
 from watcher.central.publish import Publisher, apply
 from watcher.config import Central
 from watcher.notify.healthlog import run_key
-from watcher.notify.notifier import Notifier
 from watcher.records import Severity, Status
 from watcher.store import db, history, outbox
 
@@ -34,40 +32,6 @@ if TYPE_CHECKING:
 
 INSTRUMENT = "Kestrel-2 Q-TOF"
 T0 = 1_795_000_000.0  # 2026-11-17, any fixed epoch
-
-
-class Local:
-    """A local store fed runs the way the pipeline commits them."""
-
-    def __init__(self, state_dir: Path, clock: Clock) -> None:
-        self.state_dir = state_dir
-        self.clock = clock
-        config = lab_config("json://127.0.0.1:9/unused")
-        self.config = dataclasses.replace(
-            config, instrument=dataclasses.replace(config.instrument, timezone="UTC")
-        )
-        self.notifier = Notifier(self.config, state_dir, clock=clock)
-        self.conn = db.connect(state_dir, daemon=True)
-        self.n = 0
-
-    def run(self, name: str, *findings: Any, ppm: float = 0.5) -> int:
-        self.n += 1
-        verdict = make_verdict(
-            name,
-            findings,
-            at_s=self.clock(),
-            evaluated=frozenset({("calibration drift", "calibrant.siloxane-445.median_ppm")}),
-        )
-        verdict = dataclasses.replace(verdict, metrics=make_metrics(file=name, siloxane_ppm=ppm))
-        with db.write(self.conn):
-            run_id = history.record_verdict(self.conn, verdict)
-            self.notifier.record_verdict(self.conn, verdict, run_id, self.clock())
-            queue.queue_judged(self.conn, INSTRUMENT, run_id, self.clock())
-        self.clock.advance(60)
-        return run_id
-
-    def queued(self) -> int:
-        return queue.length(self.conn)
 
 
 def central(url: str, **kw: Any) -> Central:
@@ -97,11 +61,11 @@ def publisher_has_work(publisher: Publisher) -> bool:
 
 
 @pytest.fixture
-def local(tmp_path: Path) -> Local:
-    return Local(tmp_path / "state", Clock(T0))
+def local(tmp_path: Path) -> LocalStore:
+    return LocalStore(tmp_path / "state", Clock(T0), INSTRUMENT)
 
 
-def test_runs_alert_changes_and_metrics_arrive_once(local: Local, facility: str) -> None:
+def test_runs_alert_changes_and_metrics_arrive_once(local: LocalStore, facility: str) -> None:
     """Three runs (ok, drift warning, ok again) give three runs, a raised and a cleared alert
     event and no open alert; the run's key is the health log's run_key."""
     drift = make_finding(Severity.WARNING, value=3.6)
@@ -139,7 +103,7 @@ def test_runs_alert_changes_and_metrics_arrive_once(local: Local, facility: str)
     publisher.close()
 
 
-def test_an_open_alert_is_shown_by_the_reader(local: Local, facility: str) -> None:
+def test_an_open_alert_is_shown_by_the_reader(local: LocalStore, facility: str) -> None:
     """A critical drift left open: the reader lists it with the instrument's last run."""
     local.run("QC_001.mzML")
     local.run("QC_002.mzML", make_finding(Severity.CRITICAL, value=6.2))
@@ -163,7 +127,7 @@ def test_an_open_alert_is_shown_by_the_reader(local: Local, facility: str) -> No
     publisher.close()
 
 
-def test_delivered_messages_are_published_by_the_scan(local: Local, facility: str) -> None:
+def test_delivered_messages_are_published_by_the_scan(local: LocalStore, facility: str) -> None:
     """A message the delivery worker marked delivered reaches the central messages table."""
     local.run("QC_001.mzML", make_finding(Severity.WARNING))
     (message,) = outbox.messages(local.conn, statuses=(outbox.DeliveryStatus.PENDING,))
@@ -179,7 +143,7 @@ def test_delivered_messages_are_published_by_the_scan(local: Local, facility: st
     publisher.close()
 
 
-def test_a_duplicate_publish_changes_nothing(local: Local, facility: str) -> None:
+def test_a_duplicate_publish_changes_nothing(local: LocalStore, facility: str) -> None:
     """A crash after PostgreSQL committed a batch and before the local queue forgot it sends
     the batch again: every row is there once, unchanged."""
     local.run("QC_001.mzML")
@@ -211,7 +175,7 @@ def _refused_port() -> int:
 
 
 def test_an_hour_of_refused_connections_backs_off_and_loses_nothing(
-    local: Local, pg: Postgres
+    local: LocalStore, pg: Postgres
 ) -> None:
     """Network refused for an hour of simulated time: the publisher tries once per back-off
     wait (1 s doubling to 60 s: 7 tries reach the cap, then one a minute, about 66 in all, not
@@ -243,7 +207,7 @@ def test_an_hour_of_refused_connections_backs_off_and_loses_nothing(
     live.close()
 
 
-def test_server_down_then_killed_mid_publish(local: Local, tmp_path: Path) -> None:
+def test_server_down_then_killed_mid_publish(local: LocalStore, tmp_path: Path) -> None:
     """A server that is down when publishing starts, comes up, and is killed (SIGKILL) between
     batches: the queue keeps what was not committed, and after it returns every run is there
     exactly once, in order."""
@@ -280,7 +244,7 @@ def test_server_down_then_killed_mid_publish(local: Local, tmp_path: Path) -> No
         own.close()
 
 
-def test_payload_is_plain_json(local: Local) -> None:
+def test_payload_is_plain_json(local: LocalStore) -> None:
     """Queue entries are JSON objects without NaN (PostgreSQL's jsonb refuses NaN)."""
     local.run("QC_001.mzML")
     raw = local.conn.execute("SELECT payload FROM central_queue").fetchone()[0]
