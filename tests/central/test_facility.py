@@ -28,7 +28,7 @@ if TYPE_CHECKING:
     from tests.helpers.postgres import Postgres
     from tests.helpers.receiver import Receiver
 
-NAMES = ("Kestrel-2 Q-TOF", "Osprey Orbitrap", "Merlin QqQ")
+NAMES = ("Kestrel-2 Q-TOF", "Heron-5 QqQ", "Merlin-3 TOF")
 
 
 @pytest.fixture(scope="module")

@@ -27,7 +27,7 @@ if TYPE_CHECKING:
     from pathlib import Path
 
 DAY_START = datetime(2026, 11, 27, 18, 0, tzinfo=UTC).timestamp()
-NAMES = ("Kestrel-2 Q-TOF", "Osprey Orbitrap")
+NAMES = ("Kestrel-2 Q-TOF", "Heron-5 QqQ")
 
 
 @pytest.fixture(scope="module")
@@ -165,7 +165,7 @@ def test_digest_all_writes_one_page_per_instrument(
     pages = sorted(p.name for p in out.glob("*.html"))
     assert pages == [
         "digest-Kestrel-2-Q-TOF-2026-11-27.html",
-        "digest-Osprey-Orbitrap-2026-11-27.html",
+        "digest-Heron-5-QqQ-2026-11-27.html",
     ]
     for name in NAMES:
         assert f"{name}: digest for 2026-11-27 (UTC)" in result.stdout

@@ -99,6 +99,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--notify-url", metavar="URL", help="also send the alerts to this apprise URL")
     p.add_argument("--workdir", metavar="DIR", help="keep the demo's folders here")
     p.add_argument("--fast", action="store_true", help="no pauses between arriving runs")
+    p.add_argument(
+        "--facility",
+        action="store_true",
+        help="three instruments publishing to a throwaway PostgreSQL central store",
+    )
     return parser
 
 

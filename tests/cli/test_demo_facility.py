@@ -1,0 +1,30 @@
+"""``ionwarden demo --facility``: three daemons publish the bundled evening into a throwaway
+PostgreSQL server, and ``status --all`` from it shows each instrument with every run."""
+
+from __future__ import annotations
+
+import json
+from typing import TYPE_CHECKING
+
+import pytest
+
+from tests.helpers.cli import REPO, run_cli
+from tests.helpers.postgres import require_bindir
+
+if TYPE_CHECKING:
+    from pathlib import Path
+
+
+@pytest.mark.slow
+def test_demo_facility_publishes_three_instruments(tmp_path: Path) -> None:
+    require_bindir()  # skips without a server; fails under CI
+    work = tmp_path / "work"
+    result = run_cli("demo", "--facility", "--workdir", work, timeout=280)
+    assert result.returncode == 0, result.stderr[-3000:]
+    # demo_drop/TRUTH.json is the queue every instrument receives
+    runs = len(json.loads((REPO / "demo_drop" / "TRUTH.json").read_text())["queue"])
+    for name in ("Kestrel-2 Q-TOF", "Heron-5 QqQ", "Merlin-3 TOF"):
+        assert f"{name}: " in result.stdout
+        assert f"({runs} runs;" in result.stdout.split(f"\n{name}: ")[1].splitlines()[0]
+    assert "3 instrument(s)" in result.stdout
+    assert not (work / "pg" / "data" / "postmaster.pid").exists()  # the server was stopped
