@@ -4,15 +4,13 @@ PostgreSQL server, and ``status --all`` from it shows each instrument with every
 from __future__ import annotations
 
 import json
-from typing import TYPE_CHECKING
+import shutil
+from pathlib import Path
 
 import pytest
 
 from tests.helpers.cli import REPO, run_cli
 from tests.helpers.postgres import require_bindir
-
-if TYPE_CHECKING:
-    from pathlib import Path
 
 
 @pytest.mark.slow
@@ -27,4 +25,9 @@ def test_demo_facility_publishes_three_instruments(tmp_path: Path) -> None:
         assert f"{name}: " in result.stdout
         assert f"({runs} runs;" in result.stdout.split(f"\n{name}: ")[1].splitlines()[0]
     assert "3 instrument(s)" in result.stdout
-    assert not (work / "pg" / "data" / "postmaster.pid").exists()  # the server was stopped
+    # The server was stopped (its data folder is named in the closing lines).
+    data = result.stdout.split(" -D ")[1].split()[0]
+    assert not (Path(data) / "postmaster.pid").exists()
+    assert Path(data).is_dir()
+    if tmp_path not in Path(data).parents:  # the cluster had to go under /tmp: remove it
+        shutil.rmtree(Path(data).parent)

@@ -71,13 +71,21 @@ class DemoServer:
     def data(self) -> Path:
         return self.root / "data"
 
+    def reachable(self, folder: Path) -> bool:
+        """Whether the server's user can reach ``folder`` (root's private folders: no)."""
+        if not self.as_postgres:
+            return True
+        done = subprocess.run(
+            ["runuser", "-u", "postgres", "--", "test", "-x", str(folder)],
+            capture_output=True,
+            check=False,
+            timeout=30,
+        )
+        return done.returncode == 0
+
     def start_new(self) -> None:
         self.root.mkdir(parents=True, exist_ok=True)
-        # The server's user must reach its folders; the demo's own files stay the caller's.
-        for parent in (self.root, *self.root.parents):
-            if parent == Path("/"):
-                break
-            parent.chmod(parent.stat().st_mode | 0o711)
+        self.root.chmod(0o755)
         for d in (self.data, self.root / "sock"):
             d.mkdir(mode=0o700)
             if self.as_postgres:
@@ -141,13 +149,20 @@ def main(args: argparse.Namespace) -> int:
     )
     workdir.mkdir(parents=True, exist_ok=True)
     server = DemoServer(bindir, workdir / "pg")
+    if not server.reachable(workdir):
+        # The postgres user cannot enter the work folder (a private one of root's): the
+        # cluster gets a folder of its own under the system's temporary folder instead.
+        server = DemoServer(bindir, Path(tempfile.mkdtemp(prefix="ionwarden-facility-pg-")))
     print("ionwarden demo --facility: three instruments of the Larkfield Metabolomics Core")
     print(f"  starting a PostgreSQL server for the central store under {server.root}")
     server.start_new()
     try:
         return _run(args, server, queue, drop, workdir)
     finally:
-        server.stop()
+        try:
+            server.stop()
+        except RuntimeError as exc:  # say so, without hiding why the demo ended
+            print(f"could not stop the demo's PostgreSQL server: {exc}", file=sys.stderr)
 
 
 def _run(
