@@ -179,9 +179,9 @@ def main() -> int:
     parser.add_argument("--rate-s", type=float, default=20.0)
     parser.add_argument("--dead-s", type=float, default=60.0)
     args = parser.parse_args()
-    print(
-        f"{time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}, {platform.processor() or platform.machine()}, Python {platform.python_version()}"
-    )
+    when = time.strftime("%Y-%m-%d %H:%M UTC", time.gmtime())
+    load = " ".join(f"{x:.2f}" for x in os.getloadavg())
+    print(f"{when}, {platform.machine()}, Python {platform.python_version()}, load {load}")
     pg = make_cluster("ionwarden-bench-pg-")
     try:
         backlog(pg.url(pg.new_database("bench")), args.backlog)
