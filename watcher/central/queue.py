@@ -19,6 +19,8 @@ from dataclasses import dataclass
 from datetime import UTC, datetime
 from typing import TYPE_CHECKING, Any
 
+import structlog
+
 from watcher.records import Severity, shown
 from watcher.store import history, jobs
 
@@ -27,6 +29,8 @@ if TYPE_CHECKING:
     from collections.abc import Sequence
 
     from watcher.store.history import RunRow
+
+log = structlog.get_logger("watcher.central.queue")
 
 STORE_ID_KEY = "central.store_id"  # written by schema version 4: this store's random id
 
@@ -101,10 +105,17 @@ def _put(conn: sqlite3.Connection, kind: str, payload: dict[str, Any], now_s: fl
 
 
 def queue_judged(conn: sqlite3.Connection, instrument: str, run_id: int, now_s: float) -> None:
-    """Inside the run's own transaction: the run as stored, then the alert changes it made."""
+    """Inside the run's own transaction: the run as stored, then the alert changes it made.
+
+    A run whose record cannot be written as JSON is logged and left out rather than failing
+    the transaction: that would hold back the run's verdict and alerts, which matter more.
+    """
     row = history.get_run(conn, run_id)
     if row is not None:
-        _put(conn, "run", run_payload(instrument, row), now_s)
+        try:
+            _put(conn, "run", run_payload(instrument, row), now_s)
+        except (TypeError, ValueError) as exc:
+            log.error("central.queue_failed", run_id=run_id, error=str(exc))
     queue_alert_changes(conn, now_s)
 
 

@@ -66,6 +66,7 @@ EVENTS: frozenset[str] = frozenset(
         "central.scan_failed",
         "central.round_failed",
         "central.close_failed",
+        "central.queue_failed",
     }
 )
 
