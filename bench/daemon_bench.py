@@ -51,8 +51,13 @@ def _variant(template: bytes, n: int) -> bytes:
     return head + b"?>\n<!-- copy %d -->" % n + rest
 
 
+# --central-url: the daemons also publish there (a dead address measures what a down central
+# store costs the daemon: latency and idle CPU must stay as without it).
+CENTRAL_URL: str | None = None
+
+
 def _config(root: Path, settle_s: float) -> Path:
-    cfg = {
+    cfg: dict[str, object] = {
         "instrument": {"name": "Kestrel-2 Q-TOF", "timezone": "UTC"},
         "watch": {"folders": [str(root / "exports")], "settle_s": settle_s},
         "state_dir": str(root / "state"),
@@ -61,6 +66,8 @@ def _config(root: Path, settle_s: float) -> Path:
             {"name": "drift", "metric": "calibrant.*.median_ppm", "warning": {"outside": [-3, 3]}}
         ],
     }
+    if CENTRAL_URL is not None:
+        cfg["central"] = {"url": CENTRAL_URL}
     path = root / "lab.yaml"
     path.write_text(json.dumps(cfg))
     return path
@@ -260,7 +267,12 @@ def main() -> int:
     parser.add_argument("--latency-runs", type=int, default=10)
     parser.add_argument("--slow-copies", type=int, default=20)
     parser.add_argument("--settle-s", type=float, default=2.0)
+    parser.add_argument("--central-url", help="also publish to this central store (central.url)")
+    parser.add_argument("--only", help="comma-separated: latency,slow_copy,idle,burst")
     args = parser.parse_args()
+    global CENTRAL_URL
+    CENTRAL_URL = args.central_url
+    only = set(args.only.split(",")) if args.only else None
     with tempfile.TemporaryDirectory(prefix="ionwarden-bench-") as tmp:
         base = Path(tmp)
         template = _template(base)
@@ -274,6 +286,8 @@ def main() -> int:
             ("idle", lambda r: bench_idle(r, args.idle_s)),
             ("burst", lambda r: bench_burst(r, template, args.burst, 0.5)),
         ):
+            if only is not None and name not in only:
+                continue
             root = base / name
             root.mkdir()
             result = fn(root)
