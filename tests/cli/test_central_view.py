@@ -163,9 +163,8 @@ def test_digest_all_writes_one_page_per_instrument(
     )
     assert result.returncode == 0, result.stderr
     pages = sorted(p.name for p in out.glob("*.html"))
-    assert pages == [
-        "digest-Kestrel-2-Q-TOF-2026-11-27.html",
-        "digest-Heron-5-QqQ-2026-11-27.html",
-    ]
+    assert pages == sorted(
+        ["digest-Kestrel-2-Q-TOF-2026-11-27.html", "digest-Heron-5-QqQ-2026-11-27.html"]
+    )
     for name in NAMES:
         assert f"{name}: digest for 2026-11-27 (UTC)" in result.stdout
