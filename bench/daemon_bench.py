@@ -52,8 +52,13 @@ def _variant(template: bytes, n: int) -> bytes:
     return head + b"?>\n<!-- copy %d -->" % n + rest
 
 
+# --central-url: the daemons also publish there (a dead address measures what a down central
+# store costs the daemon: latency and idle CPU must stay as without it).
+CENTRAL_URL: str | None = None
+
+
 def _config(root: Path, settle_s: float, workers: int = 0) -> Path:
-    cfg = {
+    cfg: dict[str, object] = {
         "limits": {"workers": workers},
         "instrument": {"name": "Kestrel-2 Q-TOF", "timezone": "UTC"},
         "watch": {"folders": [str(root / "exports")], "settle_s": settle_s},
@@ -63,6 +68,8 @@ def _config(root: Path, settle_s: float, workers: int = 0) -> Path:
             {"name": "drift", "metric": "calibrant.*.median_ppm", "warning": {"outside": [-3, 3]}}
         ],
     }
+    if CENTRAL_URL is not None:
+        cfg["central"] = {"url": CENTRAL_URL}
     path = root / "lab.yaml"
     path.write_text(json.dumps(cfg))
     return path
@@ -264,10 +271,12 @@ def main() -> int:
     parser.add_argument("--latency-runs", type=int, default=10)
     parser.add_argument("--slow-copies", type=int, default=20)
     parser.add_argument("--settle-s", type=float, default=2.0)
-    parser.add_argument(
-        "--only", choices=("latency", "slow_copy", "idle", "burst"), help="one benchmark only"
-    )
+    parser.add_argument("--central-url", help="also publish to this central store (central.url)")
+    parser.add_argument("--only", help="comma-separated: latency,slow_copy,idle,burst")
     args = parser.parse_args()
+    global CENTRAL_URL
+    CENTRAL_URL = args.central_url
+    only = set(args.only.split(",")) if args.only else None
     with tempfile.TemporaryDirectory(prefix="ionwarden-bench-") as tmp:
         base = Path(tmp)
         template = _template(base)
@@ -283,7 +292,7 @@ def main() -> int:
             ("burst_1_worker", lambda r: bench_burst(r, template, args.burst, 0.5, workers=1)),
             ("burst", lambda r: bench_burst(r, template, args.burst, 0.5)),
         ):
-            if args.only and not name.startswith(args.only):
+            if only is not None and not any(name.startswith(o) for o in only):
                 continue
             root = base / name
             root.mkdir()

@@ -24,6 +24,14 @@ PUBLIC = {
     "watcher.measure.readers": ["open_run"],
     "watcher.rules": ["History", "judge"],
     "watcher.notify": ["Notifier", "build_digest"],
+    "watcher.central": [
+        "Publisher",
+        "instruments",
+        "metric_series",
+        "open_alerts",
+        "open_reader",
+        "runs",
+    ],
     "watcher.daemon": ["Daemon", "Pipeline", "main"],
     "watcher.cli": ["ExitCode", "main"],
 }

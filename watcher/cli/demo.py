@@ -148,6 +148,10 @@ def _arrive(src: Path, exports: Path, finished_at: datetime) -> None:
 
 
 def main(args: argparse.Namespace) -> int:
+    if getattr(args, "facility", False):
+        from watcher.cli import demo_facility
+
+        return demo_facility.main(args)
     drop = demo_drop_dir()
     queue = json.loads((drop / "TRUTH.json").read_text())["queue"]
     workdir = (

@@ -41,6 +41,10 @@ def main(args: argparse.Namespace) -> int:
     from watcher.store import db
 
     config = load(args.config)
+    if getattr(args, "all", False) or getattr(args, "instrument", None):
+        from watcher.cli.central_view import digest_main
+
+        return digest_main(config, args)
     try:
         day = parse_day(args.date, config.instrument.timezone, now_s=time.time())
     except ValueError:

@@ -86,18 +86,34 @@ def build_parser() -> argparse.ArgumentParser:
     config_arg(p, required=True)
     p.add_argument("--date", metavar="YYYY-MM-DD", help="day in the instrument's time zone")
     p.add_argument("--out", metavar="PATH", help="where to write the HTML (default: state_dir)")
+    central_args(p)
 
     p = sub.add_parser(
         "status", help="the daemon's state: last runs, open alerts, pending messages"
     )
     config_arg(p, required=True)
     p.add_argument("--json", action="store_true")
+    central_args(p)
 
     p = sub.add_parser("demo", help="the whole pipeline on the bundled demo runs")
     p.add_argument("--notify-url", metavar="URL", help="also send the alerts to this apprise URL")
     p.add_argument("--workdir", metavar="DIR", help="keep the demo's folders here")
     p.add_argument("--fast", action="store_true", help="no pauses between arriving runs")
+    p.add_argument(
+        "--facility",
+        action="store_true",
+        help="three instruments publishing to a throwaway PostgreSQL central store",
+    )
     return parser
+
+
+def central_args(p: argparse.ArgumentParser) -> None:
+    """``--all`` / ``--instrument NAME``: read the central store (``central.url``)."""
+    which = p.add_mutually_exclusive_group()
+    which.add_argument(
+        "--all", action="store_true", help="every instrument in the central store (central.url)"
+    )
+    which.add_argument("--instrument", metavar="NAME", help="one instrument of the central store")
 
 
 def main(argv: Sequence[str] | None = None) -> int:

@@ -42,6 +42,7 @@ def collect(config: Config, state_dir: Path, *, now_s: float) -> dict[str, Any]:
             waiting = outbox.messages(
                 conn, statuses=(outbox.DeliveryStatus.PENDING, outbox.DeliveryStatus.ABANDONED)
             )
+            queued = _central_queue(conn) if config.central.url is not None else None
     finally:
         conn.close()
     masks = {c.name: masked_url(c, config.alerts) for c in config.alerts.channels}
@@ -52,9 +53,20 @@ def collect(config: Config, state_dir: Path, *, now_s: float) -> dict[str, Any]:
             return None
         return datetime.fromtimestamp(epoch_s, tz).isoformat(timespec="seconds")
 
+    central: dict[str, Any] | None = None
+    if queued is not None and config.central.url is not None:
+        from watcher.central.url import masked
+
+        central = {
+            "url": masked(config.central.url),
+            "waiting": queued[0],
+            "oldest_queued": local(queued[1]),
+        }
     return {
         "state_dir": str(state_dir),
         "instrument": config.instrument.name,
+        # entries not yet in the central store (central.url set), else None
+        "central": central,
         "last_runs": [
             {
                 "run_id": r.run_id,
@@ -112,6 +124,13 @@ def collect(config: Config, state_dir: Path, *, now_s: float) -> dict[str, Any]:
             or now_s - (m.finished_at_s or m.created_at_s) <= RECENT_ABANDONED_S
         ],
     }
+
+
+def _central_queue(conn: Any) -> tuple[int, float | None]:
+    """Entries waiting for the central store, and when the oldest was queued."""
+    from watcher.central import queue
+
+    return queue.length(conn), queue.oldest_queued_s(conn)
 
 
 def _open_problems(alerts: list[Any], local: Any) -> list[dict[str, Any]]:
@@ -202,6 +221,10 @@ def render(state: dict[str, Any]) -> str:
             f"  {p['severity']:<8} {p['check']}, {p['subject']}: {p['value']} since {p['since']}"
             f"{run} [{', '.join(p['channels'])}]"
         )
+    central = state.get("central")
+    if central is not None:
+        behind = f" (oldest queued {central['oldest_queued']})" if central["waiting"] else ""
+        lines += ["", f"central store {central['url']}: {central['waiting']} waiting{behind}"]
     lines += ["", f"undelivered messages: {len(state['undelivered'])}"]
     for m in state["undelivered"]:
         lines.append(
@@ -217,6 +240,10 @@ def render(state: dict[str, Any]) -> str:
 def main(args: argparse.Namespace) -> int:
     """Print the state; exit 1 when something needs attention (see the module docstring)."""
     config = load(args.config)
+    if getattr(args, "all", False) or getattr(args, "instrument", None):
+        from watcher.cli.central_view import status_main
+
+        return status_main(config, args)
     state_dir = state_dir_of(config)
     try:
         state = collect(config, state_dir, now_s=time.time())

@@ -369,6 +369,29 @@ class Limits:
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
+class Central:
+    """The facility's PostgreSQL store every judged run, alert and message is also published to.
+
+    Off without ``url``. The local SQLite store stays the daemon's own state: publishing goes
+    through a queue in it, on a thread of its own, so judging and alerting never wait for it.
+    """
+
+    # postgresql://user@host:port/db; secret (a password through ${ENV}): never logged unmasked
+    url: str | None = None
+    # one connection attempt; a dead server costs the publishing thread this long, nothing else
+    connect_timeout_s: float = field(default=5.0, metadata=_positive(300.0))
+    # queue entries sent in one PostgreSQL transaction
+    batch_max: int = field(default=500, metadata=_within(1, 100_000))
+    # after a failed publish: this wait, doubling per failure, never more than retry_max_wait
+    retry_first_wait_s: float = field(
+        default=1.0, metadata=_key("retry_first_wait", Range(0, _DAY_S, low_open=True))
+    )
+    retry_max_wait_s: float = field(
+        default=60.0, metadata=_key("retry_max_wait", Range(0, _DAY_S, low_open=True))
+    )
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
 class Config:
     # the YAML file, None for built-in defaults
     source: Path | None = field(default=None, metadata=_key(None))
@@ -382,6 +405,7 @@ class Config:
     alerts: Alerts = field(default_factory=Alerts)
     health_log: HealthLog = field(default_factory=HealthLog)
     limits: Limits = field(default_factory=Limits)
+    central: Central = field(default_factory=Central)
     digest_at: time | None = None  # local time of day (YAML "07:30"): the daemon sends the digest
     log_keep_days: int = field(default=30, metadata=_within(1, 36_500))
 

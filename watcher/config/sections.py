@@ -13,6 +13,7 @@ from watcher.config.checks import build_checks
 from watcher.config.keys import KEYS
 from watcher.config.model import (
     Alerts,
+    Central,
     Channel,
     Config,
     ExpectedIon,
@@ -74,6 +75,7 @@ def build_config(v: Values, data: Any, source: Path) -> Config:
             "workers": lambda p, x: v.integer(p, x, range_of(Limits, "workers")),
         },
     )
+    kw["central"] = _central(v, top.get("central"))
     v.put(kw, top, (), "digest_at", lambda p, x: None if x is None else v.time_of_day(p, x))
     v.put(
         kw,
@@ -293,6 +295,52 @@ def _alerts(v: Values, data: Any, check_names: set[str]) -> Alerts:
             f"retry_max_wait ({alerts.retry_max_wait_s:g} s)",
         )
     return alerts
+
+
+# libpq's URI schemes (PostgreSQL documentation, "Connection URIs", section 34.1.1.2).
+_CENTRAL_SCHEMES = ("postgresql://", "postgres://")
+
+
+def _central_url(v: Values, path: KeyPath, x: Any) -> str | None:
+    """The central store's URL; a problem never repeats the value (it may hold a password)."""
+    if x is None:
+        return None
+    if not isinstance(x, str) or not x.strip():
+        raise v.fail(path, "expected a postgresql://user@host:port/db URL")
+    if not x.startswith(_CENTRAL_SCHEMES):
+        raise v.fail(path, "expected a URL starting postgresql:// (the value is not shown)")
+    return x
+
+
+def _duration_in(v: Values, within: Any) -> Converter:
+    return lambda p, x: v.duration(p, x, within)
+
+
+def _central(v: Values, data: Any) -> Central:
+    path: KeyPath = ("central",)
+    m = v.mapping(path, data, KEYS["central"], "central keys") or {}
+    kw: dict[str, Any] = {}
+    v.put(kw, m, path, "url", lambda p, x: _central_url(v, p, x))
+    v.put(
+        kw,
+        m,
+        path,
+        "connect_timeout_s",
+        lambda p, x: v.duration(p, x, range_of(Central, "connect_timeout_s")),
+    )
+    v.put(kw, m, path, "batch_max", lambda p, x: v.integer(p, x, range_of(Central, "batch_max")))
+    for key in ("retry_first_wait", "retry_max_wait"):
+        within = range_of(Central, f"{key}_s")
+        v.put(kw, m, path, key, _duration_in(v, within), field=f"{key}_s")
+    central = Central(**kw)
+    if central.retry_first_wait_s > central.retry_max_wait_s:
+        key = "retry_first_wait" if "retry_first_wait" in m else "retry_max_wait"
+        v.problem(
+            (*path, key),
+            f"retry_first_wait ({central.retry_first_wait_s:g} s) is longer than "
+            f"retry_max_wait ({central.retry_max_wait_s:g} s)",
+        )
+    return central
 
 
 def _channels(v: Values, path: KeyPath, data: Any, check_names: set[str]) -> tuple[Channel, ...]:

@@ -57,6 +57,16 @@ EVENTS: frozenset[str] = frozenset(
         "message.abandoned",
         "digest.written",
         "digest.sent",
+        # central store (watcher.central.publish)
+        "central.started",
+        "central.connected",
+        "central.schema_upgraded",
+        "central.unreachable",
+        "central.caught_up",
+        "central.scan_failed",
+        "central.round_failed",
+        "central.close_failed",
+        "central.queue_failed",
     }
 )
 

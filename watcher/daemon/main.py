@@ -46,6 +46,7 @@ if TYPE_CHECKING:
     from collections.abc import Callable
     from types import FrameType
 
+    from watcher.central.publish import Publisher
     from watcher.intake.readiness import FileStat
 
 log = structlog.get_logger("watcher.daemon")
@@ -101,6 +102,7 @@ class Daemon:
         self._fault_lock = threading.Lock()
         self.notifier: Notifier | None = None
         self.pipeline: Pipeline | None = None
+        self.publisher: Publisher | None = None
 
     def _notifier(self) -> Notifier:
         if self.notifier is None:
@@ -155,6 +157,7 @@ class Daemon:
         self._state_ids = self._state_identity()
         self._last_state_check = time.monotonic()
         self.pipeline = Pipeline(self.config, worker_conn, notifier, self.stop_event, self.clock)
+        self._start_publisher(self.config)
         try:
             self.pipeline.resume_health_lines()
             self._prune_store(now_s)
@@ -254,6 +257,7 @@ class Daemon:
             self._worker.join(10.0)
         if self.pipeline is not None:
             self.pipeline.close()
+        self._stop_publisher()
         if self.notifier is not None and self.conn is not None and self.state_lost is None:
             try:
                 with db.write(self.conn):
@@ -529,6 +533,9 @@ class Daemon:
         notifier.start_delivery()
         if self.pipeline is not None:
             self.pipeline.reconfigure(new, notifier)
+        if new.central != old.central or new.instrument.name != old.instrument.name:
+            self._stop_publisher()
+            self._start_publisher(new)
         if new.watch != old.watch and self._observer is not None and self._overflow is not None:
             watch.stop_watching(self._observer, self._overflow)
             self._observer, self._overflow = watch.start_watching(
@@ -537,6 +544,32 @@ class Daemon:
             self.rescan.set("watch settings changed")
         log.info("config.reloaded", config=str(source))
         sdnotify.notify("READY=1")
+
+    def _start_publisher(self, config: Config) -> None:
+        """With ``central.url``: the thread that empties the publish queue into PostgreSQL.
+        It only starts here; a dead server is its own affair (it retries with back-off)."""
+        if config.central.url is None or self.pipeline is None:
+            return
+        from watcher.central.profile import profile_of
+        from watcher.central.publish import Publisher
+
+        publisher = self.publisher = Publisher(
+            config.central,
+            self.state_dir,
+            config.instrument.name,
+            clock=self.clock,
+            profile=profile_of(config),
+        )
+        self.pipeline.after_commit = publisher.wake
+        publisher.start()
+        log.info("central.started", central=publisher.where)
+
+    def _stop_publisher(self) -> None:
+        publisher, self.publisher = self.publisher, None
+        if self.pipeline is not None:
+            self.pipeline.after_commit = None
+        if publisher is not None:
+            publisher.stop(2.0)
 
     def _make_notifier(self, config: Config) -> Notifier:
         notifier = Notifier(config, self.state_dir, clock=self.clock)

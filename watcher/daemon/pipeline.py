@@ -27,6 +27,7 @@ from typing import TYPE_CHECKING, Any
 
 import structlog
 
+from watcher.central import queue as central_queue
 from watcher.daemon import cgroup
 from watcher.daemon.child import HEADER, READY, frame
 from watcher.intake import folderwalk
@@ -270,6 +271,8 @@ class Pipeline:
     child: MeasuringChild = field(default_factory=MeasuringChild)
     # More measuring children for bursts (process_batch): slot 0 is ``child``.
     extra_children: list[MeasuringChild] = field(default_factory=list)
+    # Called after each run's commit: the central publisher's wake-up (None: no central store).
+    after_commit: Callable[[], None] | None = None
     health_failing: bool = False  # the last try at the owed health lines failed
     _health_retry_at: float = 0.0  # time.monotonic() of the next try while failing
     # Lines written whose note is not struck off yet: that rides on the next run's commit (or an
@@ -485,7 +488,13 @@ class Pipeline:
                 sha256=sha256,
             )
             jobs.update_health_pending(self.conn, add=run_id, written=self._written)
+            if config.central.url is not None:
+                # In this transaction: the run and its alert changes reach the central store
+                # exactly when they are committed here, and in the same order.
+                central_queue.queue_judged(self.conn, config.instrument.name, run_id, now_s)
         self._written = []
+        if self.after_commit is not None:
+            self.after_commit()
         structlog.contextvars.bind_contextvars(run_id=run_id)
         self.flush_health()
         self.last_file = shown(job.path.name)

@@ -78,6 +78,36 @@ MIGRATIONS: tuple[Migration, ...] = (
             ON trend_states (check_name, path, acquired_at)
         """,
     ),
+    Migration(
+        version=4,
+        summary="central_queue: what is still to be published to the central store, in order",
+        # Filled in the same transaction as the run (or the alert change, or the delivery) it
+        # carries, emptied only after the central store committed it: at-least-once, in seq
+        # order. The two *_seen tables remember what was queued already, so a scan of the
+        # alert states and deliveries queues each change once. store_id tells this store's
+        # entries from another's on the central side (a store made anew starts seq at 1 again).
+        sql="""
+        CREATE TABLE IF NOT EXISTS central_queue (
+            seq INTEGER PRIMARY KEY AUTOINCREMENT,
+            kind TEXT NOT NULL CHECK (kind IN ('run', 'alert', 'message')),
+            payload TEXT NOT NULL,
+            queued_at_s REAL NOT NULL
+        );
+        CREATE TABLE IF NOT EXISTS central_alerts_seen (
+            instrument TEXT NOT NULL,
+            check_name TEXT NOT NULL,
+            subject TEXT NOT NULL,
+            channel TEXT NOT NULL,
+            severity TEXT NOT NULL,
+            PRIMARY KEY (instrument, check_name, subject, channel)
+        );
+        CREATE TABLE IF NOT EXISTS central_messages_seen (
+            message_id INTEGER PRIMARY KEY
+        );
+        INSERT OR IGNORE INTO daemon_state (key, value)
+            VALUES ('central.store_id', lower(hex(randomblob(16))))
+        """,
+    ),
 )
 
 
