@@ -156,12 +156,19 @@ def _configure(handlers: list[logging.Handler], level: int) -> None:
 
 
 def configure_daemon(
-    log_dir: Path, keep_days: int, *, stream: TextIO | None = None, when: str = "midnight"
+    log_dir: Path,
+    keep_days: int,
+    *,
+    stream: TextIO | None = None,
+    when: str = "midnight",
+    level: int = logging.INFO,
 ) -> Path:
     """Daemon logging: stderr (console on a TTY, JSON lines otherwise) + a rotating JSON-lines file.
 
     Only the daemon writes the rotating file: two processes rotating one file lose about half the
     lines (docs/reliability.md item 6). Rotation at UTC midnight keeps ``keep_days`` old files.
+
+    ``level`` is INFO (every run judged, every message sent); ``ionwarden -v run`` gives DEBUG.
 
     Returns:
         The path of the current log file, ``<log_dir>/ionwarden.jsonl``.
@@ -173,7 +180,7 @@ def configure_daemon(
     )
     file_handler.setFormatter(_formatter(structlog.processors.JSONRenderer()))
     console = _stream_handler(stream if stream is not None else sys.stderr, json_off_tty=True)
-    _configure([console, file_handler], logging.INFO)
+    _configure([console, file_handler], level)
     return path
 
 
