@@ -334,7 +334,11 @@ def test_each_channel_title_gives_the_worst_state_of_its_own_items(
     h = Harness(config, tmp_path / "state", clock)
     h.notifier.start_delivery()
     tic = make_finding(
-        Severity.CRITICAL, check="signal", metric="signal.tic_median", value=2.0e4, limit="below 1e+05"
+        Severity.CRITICAL,
+        check="signal",
+        metric="signal.tic_median",
+        value=2.0e4,
+        limit="below 1e+05",
     )
     try:
         h.run("QC_090.mzML", make_finding(Severity.WARNING, value=3.4))

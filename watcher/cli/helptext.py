@@ -20,8 +20,10 @@ EXIT_CODES: dict[str, tuple[tuple[ExitCode, str], ...]] = {
         (ExitCode.ATTENTION, "a run is warning, critical or unreadable (it failed QC)"),
         (ExitCode.USAGE, _USAGE),
         (ExitCode.RUNTIME, "runtime failure (state folder unusable with --record, ...)"),
-        (ExitCode.NO_INPUT, "a named file does not exist or cannot be opened; the others are "
-         "still checked"),
+        (
+            ExitCode.NO_INPUT,
+            "a named file does not exist or cannot be opened; the others are still checked",
+        ),
         (ExitCode.INTERRUPTED, "interrupted (Ctrl-C)"),
     ),
     "validate": (
@@ -38,8 +40,10 @@ EXIT_CODES: dict[str, tuple[tuple[ExitCode, str], ...]] = {
     "digest": (
         (ExitCode.OK, "summary printed and HTML page written"),
         (ExitCode.USAGE, "a bad --date, or a config problem"),
-        (ExitCode.RUNTIME, "no state database yet (the daemon never ran), or the HTML cannot "
-         "be written"),
+        (
+            ExitCode.RUNTIME,
+            "no state database yet (the daemon never ran), or the HTML cannot be written",
+        ),
         (ExitCode.INTERRUPTED, "interrupted (Ctrl-C)"),
     ),
     "status": (

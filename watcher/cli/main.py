@@ -96,7 +96,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--no-progress", action="store_true", help="no progress bar on stderr")
 
     p = command(
-        "validate", "check a config file, and what `run` checks at start-up, and report every problem"
+        "validate",
+        "check a config file, and what `run` checks at start-up, and report every problem",
     )
     config_arg(p, required=True)
     p.add_argument(

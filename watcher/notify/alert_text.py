@@ -199,9 +199,11 @@ def _parts(item: Item, run_file: str | None) -> _Parts:
         )
     subject = printable(subject_words(f.metric))
     if item.action is AlertAction.CLEAR:
-        if item.now_known:
+        if item.now_known and item.now is not None:
             now = printable(value_words(f.metric, item.now))
             rest = f"{subject}: {now}, within limits again"
+        elif item.now_known:
+            rest = f"{subject}: not measured in this run, the alert is closed"
         else:
             # not measured by the clearing run (the check was removed or no longer applies)
             rest = f"{subject}: no longer checked (was {value_words(f.metric, f.value)})"
