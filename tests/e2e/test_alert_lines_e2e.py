@@ -2,8 +2,9 @@
 
 Runs come from the project's synthetic generator with known truth (``synth.CalibrantTruth``
 offset in ppm; ``RunSpec.tic_scale`` scales the background's MS1 intensities, the calibrant's
-stay, so a run's median TIC falls to a few thousand at 0.001). Each line must name its check and subject, give the value with the limit, and say
-what to do; each channel's title gives the worst state of that channel's own lines.
+stay, so a run's median TIC falls to a few thousand at 0.001). Each line must name its check
+and subject, give the value with the limit, and say what to do; each channel's title gives the
+worst state of that channel's own lines.
 """
 
 from __future__ import annotations
