@@ -89,9 +89,10 @@ def test_lines_name_check_subject_value_and_limit_and_titles_follow_each_channel
     lab: Lab, receiver: Receiver, tmp_path: Path
 ) -> None:
     """QC_01 drifts +6 ppm (truth): one line for the two drift checks, with value and limit.
-    QC_02 is back at 0 ppm but its TIC is below the floor: the chat channel's message is CRITICAL (signal
-    floor) with the drift's OK-again line; the manager, who takes only the drift check, gets
-    only the OK-again line, titled OK with apprise type success although the run is critical."""
+    QC_02 is back at 0 ppm but its TIC is below the floor: the chat channel's message is
+    CRITICAL (signal floor) with the drift's OK-again line; the manager, who takes only the drift
+    check, gets only the OK-again line, titled OK with apprise type success although the run is
+    critical."""
     _configure(lab, receiver)
     d = lab.start()
     _drop(lab, "QC_01.mzML", _run(tmp_path, 1, offset_ppm=6.0))

@@ -63,7 +63,7 @@ EXIT_CODES: dict[str, tuple[tuple[ExitCode, str], ...]] = {
 
 
 def epilog(command: str) -> str:
-    """``exit codes:`` and one indented line per code, for argparse's RawDescriptionHelpFormatter."""
+    """``exit codes:`` and one indented line per code (for RawDescriptionHelpFormatter)."""
     lines = ["exit codes:"]
     lines += [f"  {int(code):<4} {meaning}" for code, meaning in EXIT_CODES[command]]
     return "\n".join(lines)
