@@ -2,12 +2,15 @@
 
 from __future__ import annotations
 
+import dataclasses
 import json
 from datetime import UTC, date, datetime
+from zoneinfo import ZoneInfo
 from typing import TYPE_CHECKING
 
 from tests.helpers.healthlog import read_day
 from tests.helpers.records import make_finding, make_verdict
+from watcher.notify.digest import day_bounds
 from watcher.notify.healthlog import HealthLog
 from watcher.records import (
     CalibrantDrift,
@@ -45,6 +48,42 @@ def test_day_follows_instrument_time_zone(tmp_path: Path) -> None:
     log = HealthLog(tmp_path, timezone="Europe/Oslo", clock=lambda: at_s)
     log.write_run(make_verdict("S01_001.mzML", at_s=at_s), 1)
     assert (tmp_path / "health-2026-03-10.jsonl").exists()
+    assert not (tmp_path / "health-2026-03-09.jsonl").exists()
+
+
+def test_a_run_is_filed_under_its_acquisition_day_with_its_judging_time(
+    tmp_path: Path,
+) -> None:
+    """Acquired 23:30 on 9 March in Europe/Oslo, judged 00:40 on 10 March: the line is in the
+    9 March file (the digest's day for it, ``digest.day_bounds``) and gives both times."""
+    oslo = ZoneInfo("Europe/Oslo")
+    acquired = datetime(2026, 3, 9, 23, 30, tzinfo=oslo)
+    judged = datetime(2026, 3, 10, 0, 40, tzinfo=oslo)
+    verdict = dataclasses.replace(
+        make_verdict("QC_late.mzML", at_s=judged.timestamp()), acquired_at=acquired
+    )
+    log = HealthLog(tmp_path, timezone="Europe/Oslo", clock=judged.timestamp)
+    assert log.write_run(verdict, 1)
+    (record,) = read_day(tmp_path, date(2026, 3, 9))
+    assert read_day(tmp_path, date(2026, 3, 10)) == []
+    assert datetime.fromisoformat(record["acquired_at"]) == acquired
+    assert datetime.fromisoformat(record["judged_at"]) == judged
+    start, end = day_bounds(date(2026, 3, 9), "Europe/Oslo")
+    assert start <= acquired < end  # the digest of 9 March holds it too
+
+
+def test_a_line_written_under_its_judging_day_is_not_written_again(tmp_path: Path) -> None:
+    """A line an older version filed under the judging day (10 March) is found there: the
+    replay after an upgrade does not add a second line in the acquisition day's file."""
+    oslo = ZoneInfo("Europe/Oslo")
+    acquired = datetime(2026, 3, 9, 23, 30, tzinfo=oslo)
+    judged = datetime(2026, 3, 10, 0, 40, tzinfo=oslo)
+    verdict = dataclasses.replace(
+        make_verdict("QC_late.mzML", at_s=judged.timestamp()), acquired_at=acquired
+    )
+    HealthLog(tmp_path, timezone="Europe/Oslo").write_run(verdict, 1)
+    (tmp_path / "health-2026-03-09.jsonl").rename(tmp_path / "health-2026-03-10.jsonl")
+    assert not HealthLog(tmp_path, timezone="Europe/Oslo").write_run(verdict, 1)
     assert not (tmp_path / "health-2026-03-09.jsonl").exists()
 
 
