@@ -5,8 +5,8 @@ from __future__ import annotations
 import dataclasses
 import json
 from datetime import UTC, date, datetime
-from zoneinfo import ZoneInfo
 from typing import TYPE_CHECKING
+from zoneinfo import ZoneInfo
 
 from tests.helpers.healthlog import read_day
 from tests.helpers.records import make_finding, make_verdict

@@ -59,15 +59,6 @@ class Text:
     notify_type: str  # info, success, warning, failure
 
 
-def format_value(value: float | bool | None) -> str:
-    """A measured value in at most 4 significant digits; ``missing`` for None."""
-    if value is None:
-        return "missing"
-    if isinstance(value, bool):
-        return "yes" if value else "no"
-    return f"{value:.4g}"
-
-
 def local_time(at: datetime, timezone: str) -> str:
     """``2024-04-12 03:14 CEST`` in the instrument's time zone."""
     return at.astimezone(ZoneInfo(timezone)).strftime("%Y-%m-%d %H:%M %Z")

@@ -19,7 +19,7 @@ from zoneinfo import ZoneInfo
 
 from watcher.config import BaselineSpec, Check, Config
 from watcher.notify import plots
-from watcher.notify.alert_text import format_value
+from watcher.notify.alert_text import limit_words, value_words
 from watcher.records import STATUS_RANK, Status
 from watcher.rules.baseline import Baseline, from_spec
 from watcher.rules.checks import critical_bounds, matches_metric
@@ -235,7 +235,8 @@ def _finding_rows(runs: Sequence[RunRow], tz: ZoneInfo) -> list[FindingRow]:
                     check=f.check,
                     subject=subject_of(f.metric),
                     severity=str(f.severity),
-                    value=with_unit(format_value(f.value), f.metric),
+                    # the alerts' words: +6.2 ppm, 1.2 M, not found (alert_text.value_words)
+                    value=value_words(f.metric, f.value),
                     limit=with_unit(f.limit, f.metric),
                     rule=f.rule,
                     message=f.message,
@@ -419,7 +420,7 @@ def _open_problems(
             check=alert.check,
             subject=subject_of(alert.subject),
             severity=str(alert.state.severity),
-            value=with_unit(format_value(finding.value), finding.metric),
+            value=value_words(finding.metric, finding.value),
             since=since,
             run_file=alert.run_file,
         )
@@ -443,7 +444,7 @@ def _to_review(runs: Sequence[RunRow], tz: ZoneInfo) -> tuple[ReviewRun, ...]:
             worst = max(r.findings, key=lambda f: f.severity.rank, default=None)
             why = (
                 f"{worst.check}, {subject_of(worst.metric)}: "
-                f"{with_unit(format_value(worst.value), worst.metric)} ({worst.limit})"
+                f"{value_words(worst.metric, worst.value)} ({limit_words(worst)})"
                 if worst is not None
                 else str(r.status)
             )
