@@ -234,6 +234,7 @@ def test_digest_html_opens_in_headless_chromium(state: Path, tmp_path: Path) -> 
     assert "siloxane-445" in dom.stdout
     assert dom.stdout.count('<tr class="finding">') == 1
     assert "QC_007.mzML" in dom.stdout
+    assert "+3.8 ppm" in dom.stdout  # the finding's value as the alert line gives it
     assert (
         len(re.findall(r'<img [^>]*src="data:image/png;base64,[A-Za-z0-9+/=]{100,}', dom.stdout))
         == 5
