@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import dataclasses
 import json
+import os
 from datetime import UTC, date, datetime
 from typing import TYPE_CHECKING
 from zoneinfo import ZoneInfo
@@ -100,9 +101,13 @@ def test_every_line_is_one_whole_json_record(tmp_path: Path, clock: Clock) -> No
 
 
 def test_prune_removes_files_older_than_keep_days(tmp_path: Path, clock: Clock) -> None:
-    """keep_days=2 on 10 March keeps 8-10 March and removes 7 March and older."""
+    """keep_days=2 on 10 March keeps 8-10 March and removes 7 March and older (each file last
+    written at the end of its day, as the daemon leaves them)."""
     for day in ("2026-03-06", "2026-03-07", "2026-03-08", "2026-03-10"):
-        (tmp_path / f"health-{day}.jsonl").write_text("{}\n")
+        path = tmp_path / f"health-{day}.jsonl"
+        path.write_text("{}\n")
+        written_s = datetime.fromisoformat(f"{day}T23:00:00+00:00").timestamp()
+        os.utime(path, (written_s, written_s))
     (tmp_path / "notes.txt").write_text("not ours")
     removed = HealthLog(tmp_path, keep_days=2, clock=clock).prune()
     assert sorted(p.name for p in removed) == ["health-2026-03-06.jsonl", "health-2026-03-07.jsonl"]
@@ -111,6 +116,22 @@ def test_prune_removes_files_older_than_keep_days(tmp_path: Path, clock: Clock) 
         "health-2026-03-10.jsonl",
         "notes.txt",
     ]
+
+
+def test_an_old_days_file_written_lately_is_kept(tmp_path: Path, clock: Clock) -> None:
+    """A run acquired in January, judged on 10 March, goes into the January file: the prune of
+    that same day (keep_days 2) keeps it, since its last write is recent; it goes once its last
+    write is older than keep_days too."""
+    acquired = datetime(2026, 1, 5, 9, 0, tzinfo=UTC)
+    verdict = dataclasses.replace(make_verdict("QC_old.mzML", at_s=clock()), acquired_at=acquired)
+    log = HealthLog(tmp_path, keep_days=2, clock=clock)
+    assert log.write_run(verdict, 1)
+    path = tmp_path / "health-2026-01-05.jsonl"
+    os.utime(path, (clock(), clock()))  # written "now" on the test's clock (10 March)
+    assert log.prune() == []
+    assert [r["file"] for r in read_day(tmp_path, date(2026, 1, 5))] == ["QC_old.mzML"]
+    clock.advance(3 * 86400.0)
+    assert log.prune() == [path]
 
 
 def test_a_run_read_back_from_the_store_gives_the_same_line(tmp_path: Path, clock: Clock) -> None:

@@ -193,15 +193,27 @@ class HealthLog:
             self._append(self._day(now), record)
 
     def prune(self) -> list[Path]:
-        """Remove daily files older than ``keep_days``; returns what was removed."""
-        today = datetime.fromtimestamp(self._clock(), self._tz).date()
+        """Remove daily files older than ``keep_days``; returns what was removed.
+
+        A file is old when its day AND its last write are: a run acquired long ago (old data
+        exported again, an instrument clock set wrong) goes into its acquisition day's file,
+        which must not be removed within the hour of that line being written.
+        """
+        now_s = self._clock()
+        today = datetime.fromtimestamp(now_s, self._tz).date()
         oldest_kept = today - timedelta(days=self.keep_days)
+        written_since_s = now_s - self.keep_days * 86400.0
         removed: list[Path] = []
         if not self.directory.is_dir():
             return removed
         for path in sorted(self.directory.iterdir()):
             match = _FILE_RE.match(path.name)
             if match and date.fromisoformat(match.group(1)) < oldest_kept:
+                try:
+                    if path.stat().st_mtime >= written_since_s:
+                        continue  # an old day, but written lately: kept as long as a new day
+                except FileNotFoundError:
+                    continue
                 path.unlink(missing_ok=True)
                 removed.append(path)
         with self._lock:
