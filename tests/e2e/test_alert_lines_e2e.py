@@ -190,3 +190,22 @@ def test_unreadable_and_stalled_runs_carry_their_action_hints(
     assert line.endswith(" — re-export the run from the acquisition software")
     # The manager takes only the drift check: no unreadable alert reaches it.
     assert "/manager" not in receiver.by_path()
+
+
+def test_verbose_run_keeps_library_debug_lines_out(
+    lab: Lab, receiver: Receiver, tmp_path: Path
+) -> None:
+    """``ionwarden -v run``: the daemon starts, judges and delivers as without -v, and its log
+    has no line from the HTTP library below INFO (urllib3 logs request paths at DEBUG, and some
+    apprise services carry their token in the path)."""
+    _configure(lab, receiver)
+    d = lab.start(options=("-v",))
+    _drop(lab, "QC_01.mzML", _run(tmp_path, 1, offset_ppm=6.0))
+    lab.wait_runs(1)
+    wait_for(lambda: len(receiver.bodies) >= 2, 30, "the alert on both channels")
+    assert d.stop() == 0
+    log = d.stderr()
+    assert "run.judged" in log
+    assert "message.delivered" in log
+    assert "urllib3" not in log
+    assert "Starting new HTTP connection" not in log
