@@ -55,7 +55,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"ionwarden {__version__}")
     verbose_help = (
         "log at info level too (default: warnings and errors only, on stderr; for `run`: "
-        "debug lines too)"
+        "ionwarden's own debug lines too)"
     )
     parser.add_argument("-v", "--verbose", action="count", default=0, help=verbose_help)
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
