@@ -80,10 +80,12 @@ class Lab:
         env: dict[str, str] | None = None,
         ready: bool = True,
         file_size_limit: int | None = None,
+        options: tuple[str, ...] = (),
     ) -> Daemon:
         """Run the daemon; ``file_size_limit`` (bytes) starts it under that RLIMIT_FSIZE, 0
-        making every write to a regular file fail as on a full disk (``set_file_size_limit``)."""
-        d = Daemon(self, env or {}, file_size_limit)
+        making every write to a regular file fail as on a full disk (``set_file_size_limit``);
+        ``options`` go before the command (``("-v",)``)."""
+        d = Daemon(self, env or {}, file_size_limit, options)
         self.procs.append(d)
         if ready:
             d.wait_ready()
@@ -141,7 +143,11 @@ class Daemon:
     """``python -m watcher run -c CONFIG`` with stderr in a file and a notify socket of our own."""
 
     def __init__(
-        self, lab: Lab, extra_env: dict[str, str], file_size_limit: int | None = None
+        self,
+        lab: Lab,
+        extra_env: dict[str, str],
+        file_size_limit: int | None = None,
+        options: tuple[str, ...] = (),
     ) -> None:
         self.lab = lab
         index = len(lab.procs)
@@ -158,7 +164,7 @@ class Daemon:
         )
         self._log = self.log_path.open("wb")
         self.proc = subprocess.Popen(
-            command("run", "-c", lab.config),
+            command(*options, "run", "-c", lab.config),
             cwd=lab.root,
             env=env,
             stdout=self._log,

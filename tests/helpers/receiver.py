@@ -24,6 +24,7 @@ class Receiver:
 
     def __init__(self) -> None:
         self.bodies: list[dict[str, Any]] = []
+        self.paths: list[str] = []  # the URL path each of ``bodies`` was posted to
         self.requests: list[dict[str, Any]] = []
         self.hits = 0
         self.mode = "ok"  # ok | fail | hang
@@ -59,6 +60,7 @@ class Receiver:
                     return
                 with receiver._lock:
                     receiver.bodies.append(body)
+                    receiver.paths.append(self.path)
                 self.send_response(200)
                 self.end_headers()
 
@@ -86,6 +88,14 @@ class Receiver:
     def url(self, path: str = "alerts", *, auth: str = "") -> str:
         """The apprise URL of this receiver; ``auth`` is ``"user:password@"`` or empty."""
         return f"json://{auth}127.0.0.1:{self.port}/{path}"
+
+    def by_path(self) -> dict[str, list[dict[str, Any]]]:
+        """The recorded bodies by the URL path they came to (``/chat``): one per channel."""
+        out: dict[str, list[dict[str, Any]]] = {}
+        with self._lock:
+            for path, body in zip(self.paths, self.bodies, strict=True):
+                out.setdefault(path, []).append(body)
+        return out
 
     def titles(self) -> list[str]:
         with self._lock:

@@ -117,8 +117,10 @@ def make_verdict(
     error: str | None = None,
     folder: Path = Path("/exports"),
     evaluated: frozenset[tuple[str, str]] | None = None,
+    metrics: RunMetrics | None = None,
 ) -> Verdict:
-    """A verdict as the rules would hand it on; ``evaluated`` defaults to the findings' keys."""
+    """A verdict as the rules would hand it on; ``evaluated`` defaults to the findings' keys;
+    ``metrics`` are what the run measured (None: only the findings are known)."""
     if status is None:
         worst = max(findings, key=lambda f: f.severity.rank, default=None)
         status = Status.OK if worst is None else Status(str(worst.severity))
@@ -127,6 +129,7 @@ def make_verdict(
         status=status,
         acquired_at=datetime.fromtimestamp(at_s, UTC),
         error=error,
+        metrics=metrics,
         findings=findings,
         evaluated=(
             frozenset((f.check, f.subject) for f in findings) if evaluated is None else evaluated

@@ -156,7 +156,7 @@ def test_build_digest_counts_and_findings(state: Path) -> None:
     assert d.run_count == 8
     assert d.by_status == {"ok": 7, "warning": 1}
     assert [(f.file, f.check, f.value) for f in d.findings] == [
-        ("QC_007.mzML", "calibration drift", "3.8 ppm")
+        ("QC_007.mzML", "calibration drift", "+3.8 ppm")  # the alerts' sign and 0.1 ppm
     ]
     (cal,) = d.calibrants
     assert cal.mean_ppm == pytest.approx(10.1 / 8)
@@ -172,7 +172,7 @@ def test_build_digest_counts_and_findings(state: Path) -> None:
         assert chart.png.startswith(b"\x89PNG\r\n\x1a\n")  # PNG signature (PNG spec, RFC 2083)
     text = digest_mod.render_text(d)
     assert "runs: 8 (ok 7, notice 0, warning 1, critical 0, unreadable 0)" in text
-    assert "QC_007.mzML warning calibration drift, siloxane-445: 3.8" in text
+    assert "QC_007.mzML warning calibration drift, siloxane-445: +3.8 ppm" in text
     # The verdict comes first: the worst run and the run that needs a decision.
     assert text.splitlines()[1].startswith("worst run: WARNING; 1 run(s) need a decision")
 
@@ -234,6 +234,7 @@ def test_digest_html_opens_in_headless_chromium(state: Path, tmp_path: Path) -> 
     assert "siloxane-445" in dom.stdout
     assert dom.stdout.count('<tr class="finding">') == 1
     assert "QC_007.mzML" in dom.stdout
+    assert "+3.8 ppm" in dom.stdout  # the finding's value as the alert line gives it
     assert (
         len(re.findall(r'<img [^>]*src="data:image/png;base64,[A-Za-z0-9+/=]{100,}', dom.stdout))
         == 5

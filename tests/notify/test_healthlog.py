@@ -2,12 +2,16 @@
 
 from __future__ import annotations
 
+import dataclasses
 import json
+import os
 from datetime import UTC, date, datetime
 from typing import TYPE_CHECKING
+from zoneinfo import ZoneInfo
 
 from tests.helpers.healthlog import read_day
 from tests.helpers.records import make_finding, make_verdict
+from watcher.notify.digest import day_bounds
 from watcher.notify.healthlog import HealthLog
 from watcher.records import (
     CalibrantDrift,
@@ -48,6 +52,42 @@ def test_day_follows_instrument_time_zone(tmp_path: Path) -> None:
     assert not (tmp_path / "health-2026-03-09.jsonl").exists()
 
 
+def test_a_run_is_filed_under_its_acquisition_day_with_its_judging_time(
+    tmp_path: Path,
+) -> None:
+    """Acquired 23:30 on 9 March in Europe/Oslo, judged 00:40 on 10 March: the line is in the
+    9 March file (the digest's day for it, ``digest.day_bounds``) and gives both times."""
+    oslo = ZoneInfo("Europe/Oslo")
+    acquired = datetime(2026, 3, 9, 23, 30, tzinfo=oslo)
+    judged = datetime(2026, 3, 10, 0, 40, tzinfo=oslo)
+    verdict = dataclasses.replace(
+        make_verdict("QC_late.mzML", at_s=judged.timestamp()), acquired_at=acquired
+    )
+    log = HealthLog(tmp_path, timezone="Europe/Oslo", clock=judged.timestamp)
+    assert log.write_run(verdict, 1)
+    (record,) = read_day(tmp_path, date(2026, 3, 9))
+    assert read_day(tmp_path, date(2026, 3, 10)) == []
+    assert datetime.fromisoformat(record["acquired_at"]) == acquired
+    assert datetime.fromisoformat(record["judged_at"]) == judged
+    start, end = day_bounds(date(2026, 3, 9), "Europe/Oslo")
+    assert start <= acquired < end  # the digest of 9 March holds it too
+
+
+def test_a_line_written_under_its_judging_day_is_not_written_again(tmp_path: Path) -> None:
+    """A line an older version filed under the judging day (10 March) is found there: the
+    replay after an upgrade does not add a second line in the acquisition day's file."""
+    oslo = ZoneInfo("Europe/Oslo")
+    acquired = datetime(2026, 3, 9, 23, 30, tzinfo=oslo)
+    judged = datetime(2026, 3, 10, 0, 40, tzinfo=oslo)
+    verdict = dataclasses.replace(
+        make_verdict("QC_late.mzML", at_s=judged.timestamp()), acquired_at=acquired
+    )
+    HealthLog(tmp_path, timezone="Europe/Oslo").write_run(verdict, 1)
+    (tmp_path / "health-2026-03-09.jsonl").rename(tmp_path / "health-2026-03-10.jsonl")
+    assert not HealthLog(tmp_path, timezone="Europe/Oslo").write_run(verdict, 1)
+    assert not (tmp_path / "health-2026-03-09.jsonl").exists()
+
+
 def test_every_line_is_one_whole_json_record(tmp_path: Path, clock: Clock) -> None:
     """Events with newlines and non-ASCII text stay one line each."""
     log = HealthLog(tmp_path, clock=clock)
@@ -61,9 +101,13 @@ def test_every_line_is_one_whole_json_record(tmp_path: Path, clock: Clock) -> No
 
 
 def test_prune_removes_files_older_than_keep_days(tmp_path: Path, clock: Clock) -> None:
-    """keep_days=2 on 10 March keeps 8-10 March and removes 7 March and older."""
+    """keep_days=2 on 10 March keeps 8-10 March and removes 7 March and older (each file last
+    written at the end of its day, as the daemon leaves them)."""
     for day in ("2026-03-06", "2026-03-07", "2026-03-08", "2026-03-10"):
-        (tmp_path / f"health-{day}.jsonl").write_text("{}\n")
+        path = tmp_path / f"health-{day}.jsonl"
+        path.write_text("{}\n")
+        written_s = datetime.fromisoformat(f"{day}T23:00:00+00:00").timestamp()
+        os.utime(path, (written_s, written_s))
     (tmp_path / "notes.txt").write_text("not ours")
     removed = HealthLog(tmp_path, keep_days=2, clock=clock).prune()
     assert sorted(p.name for p in removed) == ["health-2026-03-06.jsonl", "health-2026-03-07.jsonl"]
@@ -72,6 +116,22 @@ def test_prune_removes_files_older_than_keep_days(tmp_path: Path, clock: Clock) 
         "health-2026-03-10.jsonl",
         "notes.txt",
     ]
+
+
+def test_an_old_days_file_written_lately_is_kept(tmp_path: Path, clock: Clock) -> None:
+    """A run acquired in January, judged on 10 March, goes into the January file: the prune of
+    that same day (keep_days 2) keeps it, since its last write is recent; it goes once its last
+    write is older than keep_days too."""
+    acquired = datetime(2026, 1, 5, 9, 0, tzinfo=UTC)
+    verdict = dataclasses.replace(make_verdict("QC_old.mzML", at_s=clock()), acquired_at=acquired)
+    log = HealthLog(tmp_path, keep_days=2, clock=clock)
+    assert log.write_run(verdict, 1)
+    path = tmp_path / "health-2026-01-05.jsonl"
+    os.utime(path, (clock(), clock()))  # written "now" on the test's clock (10 March)
+    assert log.prune() == []
+    assert [r["file"] for r in read_day(tmp_path, date(2026, 1, 5))] == ["QC_old.mzML"]
+    clock.advance(3 * 86400.0)
+    assert log.prune() == [path]
 
 
 def test_a_run_read_back_from_the_store_gives_the_same_line(tmp_path: Path, clock: Clock) -> None:

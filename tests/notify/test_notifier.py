@@ -11,7 +11,7 @@ import pytest
 
 from tests.helpers.configs import lab_config
 from tests.helpers.notifier import Harness
-from tests.helpers.records import make_finding, make_verdict
+from tests.helpers.records import make_finding, make_metrics, make_verdict
 from watcher.config import Channel
 from watcher.errors import DeliveryError
 from watcher.notify.notifier import Notifier
@@ -68,17 +68,24 @@ def test_raise_no_repeat_escalate_remind_clear_sequence(
     assert titles == [
         "Kestrel-2 Q-TOF: WARNING QC_002.mzML",
         "Kestrel-2 Q-TOF: CRITICAL QC_004.mzML",
-        "Kestrel-2 Q-TOF: STILL OPEN",
+        "Kestrel-2 Q-TOF: STILL OPEN, WARNING",
         "Kestrel-2 Q-TOF: OK QC_006.mzML",
     ]
     first_line = bodies[0]["message"].splitlines()[1]
-    assert first_line.startswith("NEW warning: calibrant.siloxane-445.median_ppm is 3.4")
-    assert "status warning" in bodies[0]["message"].splitlines()[0]
+    # check, subject, value with sign and unit, the limit in the same unit, then what to do
+    assert first_line == (
+        "NEW warning: calibration drift, siloxane-445: +3.4 ppm, outside ±3 ppm"
+        " — recalibrate before the next sample"
+    )
+    assert "run status warning" in bodies[0]["message"].splitlines()[0]
     assert bodies[1]["message"].splitlines()[1].startswith("WORSE critical")
     # The reminder repeats the latest finding (warning again, 4.1), not the escalation's.
     assert bodies[2]["message"].splitlines()[1].startswith("STILL warning")
     assert "4.1" in bodies[2]["message"]
-    assert bodies[3]["message"].splitlines()[1].startswith("OK AGAIN: calibration drift")
+    # The clearing run measured nothing (make_verdict without metrics): the last value is given.
+    assert bodies[3]["message"].splitlines()[1] == (
+        "OK AGAIN: calibration drift, siloxane-445: no longer checked (was +4.1 ppm)"
+    )
     # apprise json:// types: failure for critical, success for a recovery (apprise NotifyType).
     assert [b["type"] for b in bodies] == ["warning", "failure", "warning", "success"]
     # The worker marks a message delivered just after the receiver answered: wait for that too.
@@ -102,8 +109,11 @@ def test_one_message_per_run_gathers_all_findings(harness: Harness, receiver: Re
     *lines, id_line = body["message"].splitlines()  # the last line is the message's id
     assert id_line.startswith("id: kestrel-2-q-tof-")
     assert len(lines) == 3
-    assert lines[1].startswith("NEW critical: expected_ion.caffeine.found is False")
-    assert lines[2].startswith("NEW warning: calibrant.siloxane-445")
+    assert lines[1] == (
+        "NEW critical: caffeine present, caffeine: not found"
+        " — check the QC standard, the column and the LC"
+    )
+    assert lines[2].startswith("NEW warning: calibration drift, siloxane-445: +3.2 ppm")
 
 
 def test_sample_run_does_not_clear_qc_only_alert(harness: Harness, receiver: Receiver) -> None:
@@ -139,7 +149,11 @@ def test_unreadable_run_raises_and_next_readable_run_clears(
     # No acquisition time in an unreadable file: the head gives when the file was written.
     assert " | file written " in bodies[0]["message"].splitlines()[0]
     assert "[rule" not in bodies[0]["message"]
-    assert bodies[1]["message"].splitlines()[1] == "OK AGAIN: unreadable"
+    assert bodies[0]["message"].splitlines()[1] == (
+        "NEW critical: unreadable, QC_030.mzML: XML ends inside spectrum 812 (truncated?)"
+        " — re-export the run from the acquisition software"
+    )
+    assert bodies[1]["message"].splitlines()[1] == "OK AGAIN: unreadable, runs are readable again"
 
 
 def test_channel_filters_min_severity_and_checks(
@@ -263,3 +277,87 @@ def test_control_characters_in_a_run_name_are_escaped_in_the_alert(
     lines = body["message"].splitlines()
     assert lines[0].startswith(f"{shown} | ")
     assert not any(line.startswith("FORGED") for line in lines)
+
+
+def test_a_stalled_export_says_to_check_the_transfer(harness: Harness, receiver: Receiver) -> None:
+    """A file that stopped changing while incomplete (intake's ``incomplete:`` verdict) carries
+    the transfer hint, not the re-export one: the copy died, the run itself may be fine."""
+    error = "incomplete: no closing </mzML> tag, still so after 10 min"
+    harness.run("QC_032.mzML", status=Status.UNREADABLE, error=error)
+    (body,) = receiver.wait_for(1)
+    assert body["message"].splitlines()[1] == (
+        f"NEW critical: unreadable, QC_032.mzML: {error}"
+        " — check the transfer and the share, then copy the run again"
+    )
+
+
+def test_ok_again_gives_the_clearing_runs_value(harness: Harness, receiver: Receiver) -> None:
+    """The OK-again line shows what the clearing run measured (+1.04 ppm shown as +1.0 ppm, the
+    0.1 ppm precision of the digest), never the metric path."""
+    harness.run("QC_070.mzML", make_finding(Severity.CRITICAL, value=6.2))
+    harness.run("QC_071.mzML", metrics=make_metrics(siloxane_ppm=1.04))
+    bodies = receiver.wait_for(2)
+    assert bodies[1]["message"].splitlines()[1] == (
+        "OK AGAIN: calibration drift, siloxane-445: +1.0 ppm, within limits again"
+    )
+    assert "calibrant." not in bodies[1]["message"]
+    assert bodies[1]["type"] == "success"
+
+
+def test_two_checks_on_one_metric_make_one_line(harness: Harness, receiver: Receiver) -> None:
+    """Two checks firing on the same metric with the same value and limit: one line naming
+    both checks, not two lines that read the same."""
+    drift = make_finding(Severity.CRITICAL, value=6.2, limit="outside [-5, 5]")
+    again = make_finding(Severity.CRITICAL, check="lock mass", value=6.2, limit="outside [-5, 5]")
+    harness.run("QC_080.mzML", drift, again)
+    (body,) = receiver.wait_for(1)
+    lines = body["message"].splitlines()[1:-1]
+    assert lines == [
+        "NEW critical: calibration drift + lock mass, siloxane-445: +6.2 ppm, outside ±5 ppm"
+        " — recalibrate before the next sample"
+    ]
+
+
+def test_each_channel_title_gives_the_worst_state_of_its_own_items(
+    tmp_path: Path, receiver: Receiver, clock: Clock
+) -> None:
+    """A manager channel that takes only the drift check gets only its OK-again line from a
+    run that is critical for another check: titled OK with apprise type success, while the chat
+    channel's message for the same run is CRITICAL / failure (apprise NotifyType names)."""
+    config = lab_config(
+        receiver.url(),
+        channels=(
+            Channel(name="chat", url=receiver.url("chat")),
+            Channel(name="manager", url=receiver.url("manager"), checks=("calibration drift",)),
+        ),
+    )
+    h = Harness(config, tmp_path / "state", clock)
+    h.notifier.start_delivery()
+    tic = make_finding(
+        Severity.CRITICAL,
+        check="signal",
+        metric="signal.tic_median",
+        value=2.0e4,
+        limit="below 1e+05",
+    )
+    try:
+        h.run("QC_090.mzML", make_finding(Severity.WARNING, value=3.4))
+        h.run("QC_091.mzML", tic, metrics=make_metrics(siloxane_ppm=0.4, tic=2.0e4))
+        bodies = receiver.wait_for(4)
+    finally:
+        h.close()
+    second = [b for b in bodies if "QC_091" in b["title"]]
+    by_title = sorted((b["title"], b["type"]) for b in second)
+    assert by_title == [
+        ("Kestrel-2 Q-TOF: CRITICAL QC_091.mzML", "failure"),
+        ("Kestrel-2 Q-TOF: OK QC_091.mzML", "success"),
+    ]
+    manager = next(b for b in second if b["type"] == "success")
+    assert manager["message"].splitlines()[1:-1] == [
+        "OK AGAIN: calibration drift, siloxane-445: +0.4 ppm, within limits again"
+    ]
+    chat = next(b for b in second if b["type"] == "failure")
+    assert chat["message"].splitlines()[1] == (
+        "NEW critical: signal, median TIC: 20 k, below 100 k"
+        " — check the spray, the source and the LC flow"
+    )

@@ -1,6 +1,9 @@
 """The ``ionwarden`` command line: argument parsing, dispatch to the command modules, exit codes.
 
-Exit codes (every command):
+Logs go to stderr, warnings and errors only unless ``-v`` (before or after the command); a
+command's normal output on stdout carries no log line.
+
+Exit codes (every command; each command's ``--help`` lists its own, from ``helptext``):
     0    all good (for ``check``: every run ``ok`` or ``notice``)
     1    ``check``: at least one run is ``warning``, ``critical`` or ``unreadable``;
          ``status``: the daemon has open alerts or undelivered messages
@@ -18,6 +21,7 @@ import sys
 from typing import TYPE_CHECKING
 
 from watcher import __version__
+from watcher.cli import helptext
 from watcher.cli.exitcodes import ExitCode
 from watcher.errors import (
     ConfigError,
@@ -46,9 +50,29 @@ def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="ionwarden",
         description="Watch mass-spectrometry exports and judge every run's health.",
+        epilog="Each command lists its exit codes in its own --help (ionwarden COMMAND --help).",
     )
     parser.add_argument("--version", action="version", version=f"ionwarden {__version__}")
+    verbose_help = (
+        "log at info level too (default: warnings and errors only, on stderr; for `run`: "
+        "ionwarden's own debug lines too)"
+    )
+    parser.add_argument("-v", "--verbose", action="count", default=0, help=verbose_help)
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    def command(name: str, help_text: str) -> argparse.ArgumentParser:
+        p = sub.add_parser(
+            name,
+            help=help_text,
+            description=help_text[:1].upper() + help_text[1:] + ".",
+            epilog=helptext.epilog(name),
+            formatter_class=argparse.RawDescriptionHelpFormatter,
+        )
+        # Also after the command (``ionwarden digest -v``); SUPPRESS keeps a -v given before it.
+        p.add_argument(
+            "-v", "--verbose", action="count", default=argparse.SUPPRESS, help=verbose_help
+        )
+        return p
 
     def config_arg(p: argparse.ArgumentParser, *, required: bool) -> None:
         p.add_argument(
@@ -59,17 +83,21 @@ def build_parser() -> argparse.ArgumentParser:
             help="lab config (YAML)" + ("" if required else "; default: the embedded demo config"),
         )
 
-    p = sub.add_parser("check", help="measure and judge run files once, print the result")
-    p.add_argument("files", nargs="+", metavar="FILE")
+    p = command("check", "measure and judge run files once, print the result")
+    p.add_argument(
+        "files", nargs="+", metavar="FILE", help="run files: mzML, mzML.gz, mzXML or MGF"
+    )
     config_arg(p, required=False)
     p.add_argument("--json", action="store_true", help='print {"runs": [...]} as JSON')
-    p.add_argument("--mzqc", metavar="PATH", help="also write the run metrics as an mzQC file")
+    p.add_argument(
+        "--mzqc", metavar="PATH", help="also write the run metrics as an mzQC file (- : stdout)"
+    )
     p.add_argument("--record", action="store_true", help="add the runs to the history in state_dir")
     p.add_argument("--no-progress", action="store_true", help="no progress bar on stderr")
 
-    p = sub.add_parser(
+    p = command(
         "validate",
-        help="check a config file, and what `run` checks at start-up, and report every problem",
+        "check a config file, and what `run` checks at start-up, and report every problem",
     )
     config_arg(p, required=True)
     p.add_argument(
@@ -79,23 +107,29 @@ def build_parser() -> argparse.ArgumentParser:
         "(for a config written for another machine)",
     )
 
-    p = sub.add_parser("run", help="the daemon, in the foreground (for systemd)")
+    p = command("run", "the daemon, in the foreground (for systemd)")
     config_arg(p, required=True)
 
-    p = sub.add_parser("digest", help="the daily digest: terminal summary and HTML page with plots")
+    p = command("digest", "the daily digest: terminal summary and HTML page with plots")
     config_arg(p, required=True)
-    p.add_argument("--date", metavar="YYYY-MM-DD", help="day in the instrument's time zone")
-    p.add_argument("--out", metavar="PATH", help="where to write the HTML (default: state_dir)")
-    central_args(p)
-
-    p = sub.add_parser(
-        "status", help="the daemon's state: last runs, open alerts, pending messages"
+    p.add_argument(
+        "--date",
+        metavar="YYYY-MM-DD",
+        help="day in the instrument's time zone, or today / yesterday (default: today)",
     )
-    config_arg(p, required=True)
-    p.add_argument("--json", action="store_true")
+    p.add_argument(
+        "--out",
+        metavar="PATH",
+        help="where to write the HTML (default: <state_dir>/digests/digest-DAY.html)",
+    )
     central_args(p)
 
-    p = sub.add_parser("demo", help="the whole pipeline on the bundled demo runs")
+    p = command("status", "the daemon's state: last runs, open alerts, pending messages")
+    config_arg(p, required=True)
+    p.add_argument("--json", action="store_true", help="print the state as one JSON object")
+    central_args(p)
+
+    p = command("demo", "the whole pipeline on the bundled demo runs")
     p.add_argument("--notify-url", metavar="URL", help="also send the alerts to this apprise URL")
     p.add_argument("--workdir", metavar="DIR", help="keep the demo's folders here")
     p.add_argument("--fast", action="store_true", help="no pauses between arriving runs")
@@ -126,9 +160,11 @@ def main(argv: Sequence[str] | None = None) -> int:
     if args.command != "run":
         # Library warnings of a one-shot command go to stderr, never into its stdout (JSON
         # output stays parseable) nor the daemon's log file; ``run`` sets up its own logging.
+        import logging
+
         from watcher.daemon import logs
 
-        logs.configure_cli()
+        logs.configure_cli(level=logging.INFO if args.verbose else logging.WARNING)
     try:
         module = importlib.import_module(_COMMANDS[args.command])
         code: int = module.main(args)

@@ -136,8 +136,7 @@ def _central_queue(conn: Any) -> tuple[int, float | None]:
 def _open_problems(alerts: list[Any], local: Any) -> list[dict[str, Any]]:
     """One entry per open (check, subject), whichever channels hold it: what, how bad, since
     when, the run that raised it, and the value it was at."""
-    from watcher.notify.alert_text import format_value
-    from watcher.rules.finding_text import subject_of
+    from watcher.notify.alert_text import subject_words, value_words
 
     merged: dict[tuple[str, str], dict[str, Any]] = {}
     for a in alerts:
@@ -147,9 +146,9 @@ def _open_problems(alerts: list[Any], local: Any) -> list[dict[str, Any]]:
         if entry is None:
             entry = merged[key] = {
                 "check": a.check,
-                "subject": subject_of(a.subject) if "." in a.subject else a.subject,
+                "subject": subject_words(a.subject) if "." in a.subject else a.subject,
                 "severity": str(a.state.severity),
-                "value": format_value(finding.value),
+                "value": value_words(finding.metric, finding.value),
                 "since": local(a.state.raised_at_s),
                 "since_s": a.state.raised_at_s,
                 "run_file": None if a.run_file is None else shown(a.run_file),

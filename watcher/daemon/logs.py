@@ -136,7 +136,7 @@ def _stream_handler(stream: TextIO, *, json_off_tty: bool) -> logging.Handler:
     return handler
 
 
-def _configure(handlers: list[logging.Handler], level: int) -> None:
+def _configure(handlers: list[logging.Handler], level: int, own_level: int | None = None) -> None:
     root = logging.getLogger()
     for old in list(root.handlers):
         root.removeHandler(old)
@@ -144,6 +144,10 @@ def _configure(handlers: list[logging.Handler], level: int) -> None:
     for handler in handlers:
         root.addHandler(handler)
     root.setLevel(level)
+    # ``-v`` on ``run`` lowers only ionwarden's own loggers to DEBUG: a library's debug lines
+    # can carry what its callers must not log (urllib3 logs request paths, and some apprise
+    # services keep their token in the path).
+    logging.getLogger("watcher").setLevel(logging.NOTSET if own_level is None else own_level)
     # apprise logs URL passwords at TRACE and message bodies at DEBUG (docs/reliability.md item 4):
     # never below INFO. watchdog at WARNING keeps its overflow warning, which triggers a rescan.
     logging.getLogger("apprise").setLevel(logging.INFO)
@@ -166,12 +170,20 @@ def _configure(handlers: list[logging.Handler], level: int) -> None:
 
 
 def configure_daemon(
-    log_dir: Path, keep_days: int, *, stream: TextIO | None = None, when: str = "midnight"
+    log_dir: Path,
+    keep_days: int,
+    *,
+    stream: TextIO | None = None,
+    when: str = "midnight",
+    level: int = logging.INFO,
 ) -> Path:
     """Daemon logging: stderr (console on a TTY, JSON lines otherwise) + a rotating JSON-lines file.
 
     Only the daemon writes the rotating file: two processes rotating one file lose about half the
     lines (docs/reliability.md item 6). Rotation at UTC midnight keeps ``keep_days`` old files.
+
+    ``level`` is ionwarden's own: INFO (every run judged, every message sent), or DEBUG for
+    ``ionwarden -v run``; libraries stay at INFO and above either way.
 
     Returns:
         The path of the current log file, ``<log_dir>/ionwarden.jsonl``.
@@ -183,7 +195,7 @@ def configure_daemon(
     )
     file_handler.setFormatter(_formatter(structlog.processors.JSONRenderer()))
     console = _stream_handler(stream if stream is not None else sys.stderr, json_off_tty=True)
-    _configure([console, file_handler], logging.INFO)
+    _configure([console, file_handler], logging.INFO, own_level=level)
     return path
 
 

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import contextlib
 import json
+import logging
 import os
 import queue
 import signal
@@ -654,7 +655,11 @@ def main(args: argparse.Namespace) -> int:
         )
     # Before logging: a second daemon must not even write into the first one's log file.
     lock_fd = lock.acquire(state_dir)  # DaemonRunningError -> exit 2 in cli.main
-    logs.configure_daemon(state_dir / "logs", config.log_keep_days)
+    logs.configure_daemon(
+        state_dir / "logs",
+        config.log_keep_days,
+        level=logging.DEBUG if getattr(args, "verbose", 0) else logging.INFO,
+    )
     daemon = Daemon(config)
     daemon.lock_fd = lock_fd  # held (open) for the process's lifetime
 

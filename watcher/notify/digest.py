@@ -19,11 +19,10 @@ from zoneinfo import ZoneInfo
 
 from watcher.config import BaselineSpec, Check, Config
 from watcher.notify import plots
-from watcher.notify.alert_text import format_value
+from watcher.notify.alert_text import limit_words, subject_words, value_words
 from watcher.records import STATUS_RANK, Status
 from watcher.rules.baseline import Baseline, from_spec
 from watcher.rules.checks import critical_bounds, matches_metric
-from watcher.rules.finding_text import subject_of
 from watcher.store import history
 
 if TYPE_CHECKING:
@@ -233,9 +232,10 @@ def _finding_rows(runs: Sequence[RunRow], tz: ZoneInfo) -> list[FindingRow]:
                     time=when,
                     file=run.file_name,
                     check=f.check,
-                    subject=subject_of(f.metric),
+                    subject=subject_words(f.metric),
                     severity=str(f.severity),
-                    value=with_unit(format_value(f.value), f.metric),
+                    # the alerts' words: +6.2 ppm, 1.2 M, not found (alert_text.value_words)
+                    value=value_words(f.metric, f.value),
                     limit=with_unit(f.limit, f.metric),
                     rule=f.rule,
                     message=f.message,
@@ -417,9 +417,9 @@ def _open_problems(
         since = datetime.fromtimestamp(alert.state.raised_at_s, tz).strftime("%Y-%m-%d %H:%M")
         problem = OpenProblem(
             check=alert.check,
-            subject=subject_of(alert.subject),
+            subject=subject_words(alert.subject),
             severity=str(alert.state.severity),
-            value=with_unit(format_value(finding.value), finding.metric),
+            value=value_words(finding.metric, finding.value),
             since=since,
             run_file=alert.run_file,
         )
@@ -441,12 +441,15 @@ def _to_review(runs: Sequence[RunRow], tz: ZoneInfo) -> tuple[ReviewRun, ...]:
             why = r.error or "unreadable"
         else:
             worst = max(r.findings, key=lambda f: f.severity.rank, default=None)
-            why = (
-                f"{worst.check}, {subject_of(worst.metric)}: "
-                f"{with_unit(format_value(worst.value), worst.metric)} ({worst.limit})"
-                if worst is not None
-                else str(r.status)
-            )
+            if worst is None:
+                why = str(r.status)
+            else:
+                # the alert line's words: check, subject, value, limit (none for a yes/no check)
+                limit = limit_words(worst)
+                why = (
+                    f"{worst.check}, {subject_words(worst.metric)}: "
+                    f"{value_words(worst.metric, worst.value)}" + (f" ({limit})" if limit else "")
+                )
         rows.append((r, why))
     rows.sort(key=lambda x: (_REVIEW.index(x[0].status), x[0].acquired_at))
     return tuple(

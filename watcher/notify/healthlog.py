@@ -1,5 +1,11 @@
 """The health log: one JSON-lines file per day (instrument time zone), written only by the daemon.
 
+A run's line goes into the file of the day the run was ACQUIRED, in the instrument's time zone
+(``watcher.records.run_time``: the file's start time, else its mtime), the same day the digest
+files it under, so a run made at 23:30 and judged after midnight is in that evening's file and
+that evening's digest; the line also records when it was judged (``judged_at``). Event lines go
+by the time they happened.
+
 Each record is one whole line appended with a single ``os.write`` on an ``O_APPEND`` descriptor
 and fsynced, so a crash leaves whole lines only. Run records are idempotent by ``run_key``, a hash
 of the run's file identity and content (path, size, mtime_ns, sha256): the day's file is read
@@ -54,6 +60,7 @@ def run_record(
     key: str,
     path: str,
     judged_at: datetime,
+    acquired_at: datetime,
     status: Status,
     error: str | None,
     metrics: dict[str, float | bool | None],
@@ -70,7 +77,10 @@ def run_record(
         "run_key": key,
         "file": shown(Path(path).name),  # undecodable bytes as \\xNN: the line stays ASCII JSON
         "path": shown(path),
-        "time": judged_at.isoformat(),
+        "time": judged_at.isoformat(),  # when it was judged (kept from the first format)
+        "judged_at": judged_at.isoformat(),
+        # the day of the file: the acquisition time, else the file's mtime (records.run_time)
+        "acquired_at": acquired_at.isoformat(),
         "status": str(status),
         "error": error,
         "metrics": {k: _finite_or_none(v) for k, v in metrics.items()},
@@ -85,6 +95,7 @@ def stored_run_record(row: RunRow) -> dict[str, Any]:
         key=run_key(row.path, row.size, row.mtime_ns, row.sha256),
         path=row.path,
         judged_at=row.judged_at,
+        acquired_at=row.acquired_at,
         status=row.status,
         error=row.error,
         metrics=row.metrics,
@@ -143,24 +154,30 @@ class HealthLog:
             key=run_key(str(run_file.path), run_file.size, run_file.mtime_ns, run_file.sha256),
             path=str(verdict.run_file.path),
             judged_at=judged,
+            acquired_at=verdict.acquired_at,
             status=verdict.status,
             error=verdict.error,
             metrics=verdict.metrics.flat() if verdict.metrics is not None else {},
             findings=verdict.findings,
         )
-        return self._write_run_record(self._day(judged), record)
+        return self._write_run_record(self._day(verdict.acquired_at), self._day(judged), record)
 
     def write_stored_run(self, row: RunRow) -> bool:
         """``write_run`` for a run read back from the store; True when a line was written."""
-        return self._write_run_record(self._day(row.judged_at), stored_run_record(row))
+        record = stored_run_record(row)
+        return self._write_run_record(self._day(row.acquired_at), self._day(row.judged_at), record)
 
-    def _write_run_record(self, day: date, record: dict[str, Any]) -> bool:
+    def _write_run_record(self, day: date, judged_day: date, record: dict[str, Any]) -> bool:
+        """Append to ``day``'s file unless the run's line is there, or in its judging day's file
+        (where versions before acquisition-day files put it: a replay after an upgrade must
+        not write the line a second time)."""
         with self._lock:
-            keys, legacy = self._keys_of(day)
-            if record["run_key"] in keys or (record["run_id"], record["path"]) in legacy:
-                return False
+            for where in {day, judged_day}:
+                keys, legacy = self._keys_of(where)
+                if record["run_key"] in keys or (record["run_id"], record["path"]) in legacy:
+                    return False
             self._append(day, record)
-            keys.add(record["run_key"])
+            self._keys_of(day)[0].add(record["run_key"])
         return True
 
     def write_event(self, kind: str, **fields: object) -> None:
@@ -176,15 +193,27 @@ class HealthLog:
             self._append(self._day(now), record)
 
     def prune(self) -> list[Path]:
-        """Remove daily files older than ``keep_days``; returns what was removed."""
-        today = datetime.fromtimestamp(self._clock(), self._tz).date()
+        """Remove daily files older than ``keep_days``; returns what was removed.
+
+        A file is old when its day AND its last write are: a run acquired long ago (old data
+        exported again, an instrument clock set wrong) goes into its acquisition day's file,
+        which must not be removed within the hour of that line being written.
+        """
+        now_s = self._clock()
+        today = datetime.fromtimestamp(now_s, self._tz).date()
         oldest_kept = today - timedelta(days=self.keep_days)
+        written_since_s = now_s - self.keep_days * 86400.0
         removed: list[Path] = []
         if not self.directory.is_dir():
             return removed
         for path in sorted(self.directory.iterdir()):
             match = _FILE_RE.match(path.name)
             if match and date.fromisoformat(match.group(1)) < oldest_kept:
+                try:
+                    if path.stat().st_mtime >= written_since_s:
+                        continue  # an old day, but written lately: kept as long as a new day
+                except FileNotFoundError:
+                    continue
                 path.unlink(missing_ok=True)
                 removed.append(path)
         with self._lock:

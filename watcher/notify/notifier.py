@@ -23,7 +23,7 @@ from watcher.store import db, jobs, outbox
 
 if TYPE_CHECKING:
     import sqlite3
-    from collections.abc import Callable
+    from collections.abc import Callable, Mapping
     from pathlib import Path
 
     from watcher.config import Channel, Config
@@ -42,7 +42,10 @@ def day_end_s(day: date, timezone: str) -> float:
 
 
 def unreadable_finding(verdict: Verdict) -> Finding:
-    """An unreadable run as a critical finding-like alert, keyed on subject ``file``."""
+    """An unreadable run as a critical finding-like alert, keyed on subject ``file``.
+
+    The message line adds what to do (``alert_text.action_hint``): re-export a file that is bad
+    in itself, mend the transfer for one that stalled incomplete (intake's ``incomplete:``)."""
     return Finding(
         check=machine.UNREADABLE_CHECK,
         severity=Severity.CRITICAL,
@@ -150,6 +153,8 @@ class Notifier:
             at_what = "file written"
         else:
             at_what = "judged"
+        # The clearing run's values, for the OK-again lines ("back to +1.2 ppm").
+        measured = verdict.metrics.flat() if verdict.metrics is not None else {}
         for channel in self.config.alerts.channels:
             wanted: dict[tuple[str, str], Finding] = {}
             for f in findings:
@@ -167,6 +172,7 @@ class Notifier:
                 may_clear=lambda key: machine.may_clear(
                     key, verdict.evaluated, configured, readable=readable
                 ),
+                measured=measured,
             )
             if items:
                 text = compose(
@@ -395,6 +401,7 @@ class Notifier:
         run_file: str | None,
         may_clear: Callable[[tuple[str, str]], bool],
         only: tuple[str, str] | None = None,
+        measured: Mapping[str, float | bool | None] | None = None,
     ) -> list[Item]:
         instrument = self.config.instrument.name
         states = {
@@ -428,7 +435,15 @@ class Notifier:
             self._log_action(action, channel.name, shown)
             if action is AlertAction.CLEAR and not self.config.alerts.send_cleared:
                 continue
-            items.append(Item(action=action, finding=shown))
+            now_known = measured is not None and shown.metric in measured
+            items.append(
+                Item(
+                    action=action,
+                    finding=shown,
+                    now=measured.get(shown.metric) if measured is not None else None,
+                    now_known=now_known,
+                )
+            )
         # Worst first, so the phone's preview line shows what matters.
         items.sort(key=lambda i: (i.action is AlertAction.CLEAR, -i.finding.severity.rank))
         return items
@@ -455,12 +470,14 @@ class Notifier:
                 self._log_action(action, channel.name, state.finding)
                 items.append(Item(action=action, finding=state.finding))
             if items:
+                worst = max((i.finding.severity for i in items), key=lambda s: s.rank)
                 text = compose(
                     instrument=instrument,
                     run_file=None,
                     at=datetime.fromtimestamp(now_s, UTC),
                     timezone=self.config.instrument.timezone,
-                    status="still open",
+                    # the title gives the worst state among this channel's reminders
+                    status=f"still open, {worst}",
                     items=items,
                 )
                 self._enqueue(conn, channel, "reminder", f"remind:{now_s:.3f}", now_s, text, items)
