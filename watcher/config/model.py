@@ -379,7 +379,13 @@ def metric_fields() -> dict[str, tuple[str, ...]]:
     ``signal`` keeps only scalar fields (``flat()`` skips tuples such as ``precursor_charges``);
     ``calibrant`` and ``expected_ion`` drop ``name``, which is a path segment, not a value.
     """
-    from watcher.records import CalibrantDrift, ExpectedIonResult, MassCorrection, SignalMetrics
+    from watcher.records import (
+        CalibrantDrift,
+        ExpectedIonResult,
+        FileChecks,
+        MassCorrection,
+        SignalMetrics,
+    )
 
     def scalars(cls: type, *, skip: frozenset[str] = frozenset()) -> tuple[str, ...]:
         return tuple(
@@ -395,6 +401,7 @@ def metric_fields() -> dict[str, tuple[str, ...]]:
         "expected_ions": ("found_fraction", "missing_count"),  # aggregates made by flat()
         # flat() writes the fit, not the count of calibrants that went into it
         "mass_correction": scalars(MassCorrection, skip=frozenset({"calibrants_used"})),
+        "file": scalars(FileChecks),
     }
 
 
@@ -404,11 +411,12 @@ def is_yes_no_metric(metric: str) -> bool:
     Derived from the records' field types, like ``metric_fields``: yes/no values can be tested
     with ``is:`` but have no mean, SD or trend.
     """
-    from watcher.records import CalibrantDrift, ExpectedIonResult, SignalMetrics
+    from watcher.records import CalibrantDrift, ExpectedIonResult, FileChecks, SignalMetrics
 
     group, _, rest = metric.partition(".")
     name = rest.rsplit(".", 1)[-1]
     records: dict[str, type] = {
+        "file": FileChecks,
         "signal": SignalMetrics,
         "calibrant": CalibrantDrift,
         "expected_ion": ExpectedIonResult,
@@ -425,7 +433,7 @@ def known_metric_paths(calibrants: Iterable[str], expected_ions: Iterable[str]) 
     """Every metric path a check may name, with ``*`` standing for any calibrant or expected ion."""
     fields_by_group = metric_fields()
     paths: list[str] = []
-    for group in ("signal", "expected_ions", "mass_correction"):
+    for group in ("signal", "expected_ions", "mass_correction", "file"):
         paths.extend(f"{group}.{name}" for name in fields_by_group[group])
     for group, names in (("calibrant", calibrants), ("expected_ion", expected_ions)):
         for subject in ("*", *names):
@@ -445,7 +453,8 @@ def metric_path_problem(
     if nearest:
         return f"{message} (did you mean {nearest[0]!r}?)"
     return f"{message}; expected signal.<value>, calibrant.<name|*>.<value>, " + (
-        "expected_ion.<name|*>.<value>, expected_ions.<value> or mass_correction.<value>"
+        "expected_ion.<name|*>.<value>, expected_ions.<value>, mass_correction.<value> "
+        "or file.<value>"
     )
 
 

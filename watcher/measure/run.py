@@ -20,13 +20,14 @@ from watcher.measure.xic import XicTrace, absent
 from watcher.records import (
     CalibrantDrift,
     ExpectedIonResult,
+    FileChecks,
     ReadFailure,
     RunMetrics,
     SignalMetrics,
 )
 
 if TYPE_CHECKING:
-    from collections.abc import Callable, Iterable
+    from collections.abc import Callable, Iterable, Iterator
     from pathlib import Path
 
     from watcher.config import Config, IonSpec
@@ -66,9 +67,11 @@ def measure_scans(
     ]
     signal = SignalTrace()
     ms1_with_arrays = 0
+    damaged = 0
     polarities: Counter[int | None] = Counter()  # MS1 scans by polarity (None: not stated)
     for scan in scans:
         signal.add(scan)
+        damaged += scan.arrays_damaged
         if scan.ms_level != 1 or not (calibrants or expected):
             continue
         mz, intensity = scan.mz, scan.intensity
@@ -86,7 +89,9 @@ def measure_scans(
             if rt_s is not None and _polarity_matches(xic.ion, scan) and xic.wants(rt_s):
                 xic.add(rt_s, mz, intensity, profile=profile)
     signal_metrics = signal.summary(config.signal)
-    notes: list[str] = []
+    notes: list[str] = list(header.notes)
+    if damaged:
+        notes.append(damaged_note(damaged))
     drifts: tuple[CalibrantDrift, ...] = tuple(cal.summary() for cal in calibrants)
     if signal_metrics.ms1_count == 0:
         if calibrants or expected:
@@ -111,6 +116,7 @@ def measure_scans(
         mass_correction=mass_correction(drifts) if len(drifts) >= 2 else None,
         expected_ions=ions,
         notes=tuple(notes),
+        file_checks=FileChecks(checksum_ok=header.checksum_ok),
     )
 
 
@@ -188,10 +194,40 @@ def measure_file(
         check_gzip=True,
         max_inflated_bytes=config.limits.max_inflated_mb * 1024 * 1024,
     ) as (header, scans):
-        metrics = measure_scans(header, scans, config, file_name=path.name)
+        tally = _Tally(scans)
+        metrics = measure_scans(header, tally, config, file_name=path.name)
     if metrics.signal.ms1_count + metrics.signal.ms2_count == 0:
         raise ReadError(path, "no spectra in file", kind="empty")
+    if tally.count and tally.damaged == tally.count:
+        # Every spectrum empty for want of its arrays: nothing of the run could be read.
+        raise ReadError(
+            path, f"no spectrum can be read: {damaged_note(tally.damaged)}", kind="corrupt"
+        )
     return metrics
+
+
+def damaged_note(count: int) -> str:
+    """The run's one note on spectra read as empty because their peak arrays were unusable."""
+    what = "spectrum" if count == 1 else "spectra"
+    return (
+        f"{count} {what} without usable peak arrays (an m/z or intensity array missing, or "
+        "fewer values than declared); counted as empty"
+    )
+
+
+class _Tally:
+    """The scans, passed through, counted: how many there were and how many were damaged."""
+
+    def __init__(self, scans: Iterable[Scan]) -> None:
+        self._scans = scans
+        self.count = 0
+        self.damaged = 0
+
+    def __iter__(self) -> Iterator[Scan]:
+        for scan in self._scans:
+            self.count += 1
+            self.damaged += scan.arrays_damaged
+            yield scan
 
 
 def _searched_ions(

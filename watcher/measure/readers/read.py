@@ -26,6 +26,7 @@ from typing import IO, TYPE_CHECKING, Any
 from lxml import etree  # type: ignore[import-untyped, unused-ignore]
 
 from watcher.errors import ReadError
+from watcher.intake import formats
 from watcher.intake.formats import GunzipCheck, sniff
 from watcher.measure.readers import mzml, safexml
 from watcher.measure.readers import mzml_index as mzmlindex
@@ -37,6 +38,7 @@ if TYPE_CHECKING:
 
 Progress = Callable[[int, int], None]
 
+STALE_INDEX_NOTE = "index offsets are stale; read without the index"
 _PROGRESS_INTERVAL_S = 0.05  # at most ~20 progress calls per second
 _PATH_RE = re.compile(r"(?:[A-Za-z]:)?(?:[\\/][^\s'\"\\/:]+)+[\\/]([^\s'\"\\/:]+)")
 
@@ -130,7 +132,7 @@ def _open(
                 raise
             header = _mzml_header(found.format, pre)
             scans = mzml.stream_scans(events, pre, want_arrays=ms1_arrays)
-            return header, _then_whole(path, scans, check)
+            return header, _then_whole(path, scans, check, header)
         gz = gzip.GzipFile(fileobj=_Counted(raw, throttle))
         stack.callback(gz.close)
         source: IO[bytes] = gz  # type: ignore[assignment]
@@ -146,6 +148,12 @@ def _open(
     pre = mzml.read_preamble(events)
     header = _mzml_header(found.format, pre)
     if found.format == "mzML" and found.root == "indexedmzML":
+        header.checksum_ok = formats.checksum_ok(path)
+        stale = formats.index_problem(path)
+        if stale is not None:
+            # Patched, CRLF-converted or merged files: whole, but their offsets point elsewhere.
+            header.notes.append(f"{STALE_INDEX_NOTE} ({stale})")
+            return header, mzml.stream_scans(events, pre, want_arrays=ms1_arrays)
         fd = os.open(path, os.O_RDONLY)
         stack.callback(os.close, fd)
         index = mzmlindex.load_offset_index(fd, os.fstat(fd).st_size)
@@ -158,7 +166,7 @@ def _open(
                 parse=safexml.parse_fragment,
                 on_offset=throttle.at,
             )
-            return header, _with_fallback(path, scans, stack, ms1_arrays=ms1_arrays)
+            return header, _with_fallback(path, scans, stack, header, ms1_arrays=ms1_arrays)
     return header, mzml.stream_scans(events, pre, want_arrays=ms1_arrays)
 
 
@@ -169,20 +177,29 @@ def _mzml_header(fmt: str, pre: mzml.Preamble) -> RunHeader:
 
 
 def _with_fallback(
-    path: Path, scans: Iterator[Scan], stack: ExitStack, *, ms1_arrays: bool
+    path: Path, scans: Iterator[Scan], stack: ExitStack, header: RunHeader, *, ms1_arrays: bool
 ) -> Iterator[Scan]:
     """Index-guided scans; if the index turns out wrong midway, stream the rest sequentially."""
     try:
         yield from scans
     except mzmlindex.IndexDoubt as doubt:
+        header.notes.append(
+            f"{STALE_INDEX_NOTE} (spectrum {doubt.position} is not at its indexed offset)"
+        )
         source = stack.enter_context(path.open("rb"))
         events = safexml.safe_iterparse(source, events=("start", "end"), tag=mzml.stream_tags())
         pre = mzml.read_preamble(events)
         yield from mzml.stream_scans(events, pre, want_arrays=ms1_arrays, skip=doubt.position)
 
 
-def _then_whole(path: Path, scans: Iterator[Scan], check: GunzipCheck) -> Iterator[Scan]:
-    """The scans, then the rest of the gzip stream checked: a cut stream ends in a ReadError."""
+def _then_whole(
+    path: Path, scans: Iterator[Scan], check: GunzipCheck, header: RunHeader
+) -> Iterator[Scan]:
+    """The scans, then the rest of the gzip stream checked: a cut stream ends in a ReadError.
+
+    A whole stream then gives the inner file's checksum verdict and index note to ``header``
+    (a .mzML.gz is always streamed: its stale index costs nothing, but is said all the same).
+    """
     try:
         yield from scans
     except (GeneratorExit, MemoryError):
@@ -193,6 +210,10 @@ def _then_whole(path: Path, scans: Iterator[Scan], check: GunzipCheck) -> Iterat
         _raise_stream_problem(path, check)
         raise
     _raise_stream_problem(path, check)
+    header.checksum_ok = check.checksum_ok()
+    stale = check.index_problem()
+    if stale is not None:
+        header.notes.append(f"{STALE_INDEX_NOTE} ({stale})")
 
 
 def _raise_stream_problem(path: Path, check: GunzipCheck) -> None:
