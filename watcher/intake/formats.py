@@ -4,8 +4,9 @@ Intake and measure both ask two questions of a file before any spectrum is parse
 it (decided from content: gzip magic, then the root element or the MGF header lines, never only
 the name), and is it whole (tail tag, MGF BEGIN/END balance, full gzip stream)? The indexedmzML
 offset and SHA-1 are asked separately (``index_problem``, ``checksum_ok``): a whole file whose
-index is stale is read without it, and its checksum is a metric, not a refusal. Readers hand out intact spectra of a truncated file without complaint, so
-completeness is the only proof that a run was copied whole (docs/reliability.md, item 2).
+index is stale is read without it, and its checksum is a metric, not a refusal. Readers hand
+out intact spectra of a truncated file without complaint, so completeness is the only proof
+that a run was copied whole (docs/reliability.md, item 2).
 
 Imports only ``records``/``errors`` of the project, so intake can use it without pulling in
 lxml, numpy or pyteomics.

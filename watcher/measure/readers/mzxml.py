@@ -97,8 +97,19 @@ def _decoded(record: Any) -> np.ndarray:
 
 
 def _rt_s(value: Any) -> float | None:
-    if value is None or float(value) < 0:
+    if value is None:
+        return None
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        # pyteomics leaves a duration it cannot convert as text: "-PT1S" is a negative one.
+        text = str(value).strip()
+        if text.startswith("-"):
+            return None
+        raise ValueError(f"retentionTime {text[:40]!r} is not an xs:duration") from None
+    if number < 0:
         return None  # a negative time is a writer's "unknown" (-1 is the usual sentinel)
+    value = value if hasattr(value, "unit_info") else number
     unit = getattr(getattr(value, "unit_info", None), "lower", lambda: "minute")()
     # pyteomics converts the xs:duration (PT353.43S) to minutes and says so in unit_info.
     factor = 1.0 if unit.startswith("second") else 60.0

@@ -167,7 +167,24 @@ def _open(
                 on_offset=throttle.at,
             )
             return header, _with_fallback(path, scans, stack, header, ms1_arrays=ms1_arrays)
+        if _indexes_spectra(fd, os.fstat(fd).st_size):
+            # Offsets given but refused on loading (not ascending, past the index, spectra
+            # after the last one): a patched or merged file.
+            header.notes.append(f"{STALE_INDEX_NOTE} (spectrum offsets do not fit the file)")
     return header, mzml.stream_scans(events, pre, want_arrays=ms1_arrays)
+
+
+_SPECTRUM_INDEX_RE = re.compile(rb'<index\s+name="spectrum"\s*>\s*<offset\s')
+_TAIL_OFFSET_RE = re.compile(rb"<indexListOffset>\s*(\d+)\s*</indexListOffset>")
+
+
+def _indexes_spectra(fd: int, size: int) -> bool:
+    """Whether the file's offset index lists any spectrum (an empty one doubts nothing)."""
+    found = _TAIL_OFFSET_RE.findall(os.pread(fd, 4096, max(0, size - 4096)))
+    if not found or not 0 < int(found[-1]) < size:
+        return False
+    at = int(found[-1])
+    return _SPECTRUM_INDEX_RE.search(os.pread(fd, min(size - at, 1 << 16), at)) is not None
 
 
 def _mzml_header(fmt: str, pre: mzml.Preamble) -> RunHeader:
