@@ -338,6 +338,26 @@ class HealthLog:
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
+class Convert:
+    """Vendor raw runs (files or folders) turned into mzML by the lab's own converter.
+
+    The daemon runs ``command`` (no shell) with ``{input}`` replaced by the vendor run's path
+    and ``{output_dir}`` by an empty folder under ``<state_dir>/converted``; the one run file
+    it writes there is measured under the vendor run's name. The original is only read.
+    """
+
+    # File or folder names that are vendor runs, e.g. "*.d" (a folder), "*.raw" (a file).
+    patterns: tuple[str, ...] = ()
+    # argv: [program, arg, ...]; {input} and {output_dir} are the only placeholders.
+    command: tuple[str, ...] = ()
+    # A converter still running after this is killed (with its whole process group).
+    timeout_s: float = field(default=1800.0, metadata=_positive(_DAY_S))
+
+
+CONVERT_PLACEHOLDERS = ("{input}", "{output_dir}")
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
 class Limits:
     """Per-run measuring limits of the child process; both grow with file size."""
 
@@ -365,6 +385,7 @@ class Config:
     alerts: Alerts = field(default_factory=Alerts)
     health_log: HealthLog = field(default_factory=HealthLog)
     limits: Limits = field(default_factory=Limits)
+    convert: Convert = field(default_factory=Convert)
     digest_at: time | None = None  # local time of day (YAML "07:30"): the daemon sends the digest
     log_keep_days: int = field(default=30, metadata=_within(1, 36_500))
 
