@@ -13,8 +13,8 @@ from typing import TYPE_CHECKING, Any
 from watcher.config.checks import build_checks
 from watcher.config.keys import KEYS
 from watcher.config.model import (
-    Alerts,
     CONVERT_PLACEHOLDERS,
+    Alerts,
     Channel,
     Config,
     Convert,

@@ -18,14 +18,15 @@ import signal
 import sqlite3
 import threading
 import time
+from dataclasses import replace
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import structlog
 
 from watcher import config as config_mod
-from watcher.config import Config, state_dir_of
-from watcher.daemon import lock, logs, norun_alert, preflight, retention, sdnotify
+from watcher.config import Config, Watch, state_dir_of
+from watcher.daemon import convert, lock, logs, norun_alert, preflight, retention, sdnotify
 from watcher.daemon.pipeline import JobOutcome, Pipeline, time_limit_s
 from watcher.errors import (
     ConfigError,
@@ -72,7 +73,7 @@ class Daemon:
         self.state_dir = state_dir_of(config)
         self.hints: queue.Queue[watch.Hint] = queue.Queue(maxsize=max(1, config.limits.queue_max))
         self.rescan = watch.RescanFlag()
-        self.settler = Settler(config.watch)
+        self.settler = Settler(config.watch, vendor=config.convert.patterns)
         self.stop_event = threading.Event()
         self.wake_worker = threading.Event()
         self._stop_requested = threading.Event()
@@ -162,7 +163,7 @@ class Daemon:
         if start_fault is not None:
             self.store_failed(start_fault)
         self._observer, self._overflow = watch.start_watching(
-            self.config.watch, self.hints, self.rescan
+            _watched(self.config), self.hints, self.rescan
         )
         self._full_scan("start-up")
         self._worker = threading.Thread(target=self._work, name="ionwarden-worker", daemon=True)
@@ -374,6 +375,9 @@ class Daemon:
             log.warning("store.prune_skipped", reason="a watched folder is missing or empty")
         elif pruned:
             log.info("store.pruned", jobs=pruned, keep_days=keep_days)
+        removed = convert.prune(self.state_dir, keep_days, now_s)
+        if removed:
+            log.info("converted.pruned", folders=removed, keep_days=keep_days)
 
     def _full_scan(self, reason: str) -> None:
         now_s = self.clock()
@@ -523,15 +527,20 @@ class Daemon:
         old = self.config
         self.config = new
         self.settler.watch = new.watch
+        self.settler.vendor = new.convert.patterns
         self._notifier().stop_delivery(2.0)
         self.notifier = notifier
         notifier.start_delivery()
         if self.pipeline is not None:
             self.pipeline.reconfigure(new, notifier)
-        if new.watch != old.watch and self._observer is not None and self._overflow is not None:
+        if (
+            _watched(new) != _watched(old)
+            and self._observer is not None
+            and self._overflow is not None
+        ):
             watch.stop_watching(self._observer, self._overflow)
             self._observer, self._overflow = watch.start_watching(
-                new.watch, self.hints, self.rescan
+                _watched(new), self.hints, self.rescan
             )
             self.rescan.set("watch settings changed")
         log.info("config.reloaded", config=str(source))
@@ -593,6 +602,13 @@ class Daemon:
                     log.exception("run.failed", file=shown(job.path))
             finally:
                 self._busy_since = None
+
+
+def _watched(config: Config) -> Watch:
+    """The watch settings the event handler filters by: vendor run names count as run names
+    (a vendor run folder's own events come as folder hints, which the settler names)."""
+    extra = tuple(p for p in config.convert.patterns if p not in config.watch.patterns)
+    return replace(config.watch, patterns=(*config.watch.patterns, *extra))
 
 
 def main(args: argparse.Namespace) -> int:
