@@ -28,7 +28,7 @@ from pathlib import Path
 # The repository root, so that synth/ imports when the daemon runs this as a script.
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-import synth  # noqa: E402
+import synth
 
 SILOXANE_MZ = 445.120025  # polysiloxane background ion [C2H6SiO]6+H+ (common practice, lock mass)
 HELPER = "import time; time.sleep(600)"
@@ -51,7 +51,7 @@ def main(argv: list[str] | None = None) -> int:
         sys.stderr.write(f"cannot read {args.input.name}: method file missing\n")
         return 3
     if args.mode == "hang":
-        helper = subprocess.Popen([sys.executable, "-c", HELPER])  # noqa: S603
+        helper = subprocess.Popen([sys.executable, "-c", HELPER])
         if args.pids is not None:
             args.pids.write_text(f"{os.getpid()} {helper.pid}\n")
         sys.stderr.write("converting (this one never ends)\n")
