@@ -35,7 +35,7 @@ from watcher.errors import (
     StoreError,
     StoreTooNewError,
 )
-from watcher.intake import watch
+from watcher.intake import vendor, watch
 from watcher.intake.pending import Settled, Settler
 from watcher.notify.notifier import Notifier
 from watcher.records import DaemonEvent, shown
@@ -586,6 +586,9 @@ class Daemon:
                 self.wake_worker.clear()
                 continue
             self._busy_limit_s = time_limit_s(self.config.limits, job.size)
+            cfg = self.config
+            if vendor.is_vendor_name(job.path.name, cfg.convert.patterns, cfg.watch.ignore):
+                self._busy_limit_s += cfg.convert.timeout_s  # the converter runs first
             self._busy_since = time.monotonic()
             try:
                 if pipeline.process(job) is JobOutcome.REQUEUED and not self.stop_event.is_set():
