@@ -80,7 +80,7 @@ def main() -> int:
         indexed=True,
     )
     log = (root / "daemon.log").open("ab")
-    proc = subprocess.Popen(  # noqa: S603
+    proc = subprocess.Popen(
         [sys.executable, "-m", "watcher", "run", "-c", str(_config(root, args.settle_s))],
         env=dict(os.environ, PYTHONPATH=str(REPO)),
         stdout=log,
