@@ -375,3 +375,15 @@ def test_negative_retention_times_are_missing(tmp_path: Path) -> None:
     _assert_matches_reference(mzml_metrics, mzml_path)
     assert mzml_metrics.signal.rt_start_s is not None
     assert mzml_metrics.signal.rt_start_s > 0
+
+
+def test_crlf_converted_gz_is_measured_with_the_note(tmp_path: Path) -> None:
+    """The same CRLF conversion inside a .mzML.gz (always streamed): the note and the checksum
+    verdict come from the single decompressing pass."""
+    base = _synth(tmp_path)
+    packed = gzip.compress(base.read_bytes().replace(b"\n", b"\r\n"), mtime=0)
+    path = bf.write(tmp_path, "QC_crlf.mzML.gz", packed)
+    metrics = measure_file(path, _with_arrays())
+    assert len(_stale_notes(metrics)) == 1
+    assert metrics.file_checks.checksum_ok is False
+    _assert_matches_reference(metrics, path)
