@@ -123,3 +123,16 @@ def test_a_full_scan_queues_the_folder_not_its_files(tmp_path: Path) -> None:
     seen, added = settler.walk(set(), 0.0)
     assert (seen, added) == (1, 1)
     assert list(settler.pending) == [run]
+
+
+def test_hints_from_inside_a_run_folder_are_part_of_that_run(tmp_path: Path) -> None:
+    """A file event or a sub-folder event inside QC_0001.d (even a file named like a run)
+    pends nothing of its own; the folder's own hint pends the folder."""
+    run = _vendor_run(tmp_path)
+    (run / "AcqData" / "inside.mzML").write_text("<mzML/>")
+    settler = Settler(Watch(folders=(tmp_path,), settle_s=1.0), vendor=VENDOR)
+    settler.take_hint(watch.Hint(path=run / "AcqData" / "inside.mzML"), 0.0)
+    settler.take_hint(watch.Hint(path=run / "AcqData", is_dir=True), 0.0)
+    assert settler.pending == {}
+    settler.take_hint(watch.Hint(path=run, is_dir=True), 0.0)
+    assert list(settler.pending) == [run]

@@ -87,6 +87,8 @@ class Settler:
             self._note(hint.path, now_s)
             return
         w = self.watch
+        if vendor.inside_vendor_run(hint.path, self._roots(), self.vendor, w.ignore):
+            return  # a sub-folder of a vendor run folder: part of that run
         if vendor.is_vendor_name(hint.path.name, self.vendor, w.ignore):
             self._note(hint.path, now_s)  # a vendor run folder: one run, settled as a tree
             return
@@ -159,6 +161,17 @@ class Settler:
             stall_s=self.watch.stall_s,
         )
 
+    def _roots(self) -> list[Path]:
+        """The watched folders as given and as resolved (watchdog reports resolved paths)."""
+        out: list[Path] = []
+        for folder in self.watch.folders:
+            out.append(Path(folder))
+            try:
+                out.append(Path(folder).resolve())
+            except OSError:
+                continue
+        return out
+
     def _link_out(self, path: Path) -> bool:
         """Whether ``path`` is a link out of the watched folders that must not be read.
 
@@ -179,6 +192,8 @@ class Settler:
         return True
 
     def _note(self, path: Path, now_s: float) -> None:
+        if vendor.inside_vendor_run(path, self._roots(), self.vendor, self.watch.ignore):
+            return  # a file or folder inside a vendor run folder is part of that run
         if path not in self.pending and not self._link_out(path):
             self.pending[path] = settle.new_pending(path, now_s, self.watch.settle_s)
             log.info("run.detected", file=str(path))

@@ -30,6 +30,22 @@ def is_vendor_name(name: str, patterns: Sequence[str], ignore: Sequence[str] = (
     return bool(patterns) and is_run_name(name, patterns, ignore)
 
 
+def inside_vendor_run(
+    path: Path, folders: Sequence[Path], patterns: Sequence[str], ignore: Sequence[str] = ()
+) -> bool:
+    """Whether ``path`` lies inside a vendor run folder under one of the watched ``folders``
+    (then it is part of that run, never a run of its own, whatever its name)."""
+    if not patterns:
+        return False
+    for folder in folders:
+        try:
+            parts = path.relative_to(folder).parts
+        except ValueError:
+            continue
+        return any(is_vendor_name(part, patterns, ignore) for part in parts[:-1])
+    return False
+
+
 def tree_stat(path: Path) -> FileStat | None:
     """Size and mtime of a vendor run: a regular file's own, or a folder tree's total size and
     newest mtime (the folder itself included). None when it is gone or neither.
