@@ -123,6 +123,16 @@ class MassCorrection:
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
+class FileChecks:
+    """What the file says about itself, apart from its spectra (metric paths ``file.<key>``)."""
+
+    # The indexedmzML SHA-1 fileChecksum against the bytes; None when the file carries none.
+    # A mismatch means the file changed after it was written (a patching tool, a transfer
+    # that converted line ends, damage): the run is measured and a check decides.
+    checksum_ok: bool | None = None
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
 class ExpectedIonResult:
     """Presence of one expected ion: its XIC apex over MS1 within the RT window."""
 
@@ -156,14 +166,17 @@ class RunMetrics:
     mass_correction: MassCorrection | None = None
     expected_ions: tuple[ExpectedIonResult, ...] = ()
     notes: tuple[str, ...] = ()
+    file_checks: FileChecks = FileChecks()
 
     def flat(self) -> dict[str, float | bool | None]:
         """Metric path -> value, the names that checks refer to.
 
         ``signal.<key>``, ``calibrant.<name>.<key>``, ``expected_ion.<name>.<key>``,
-        ``expected_ions.found_fraction``, ``mass_correction.<key>``.
+        ``expected_ions.found_fraction``, ``mass_correction.<key>``, ``file.<key>``.
         """
         out: dict[str, float | bool | None] = {}
+        for f in dataclasses.fields(FileChecks):
+            out[f"file.{f.name}"] = getattr(self.file_checks, f.name)
         for f in dataclasses.fields(SignalMetrics):
             value = getattr(self.signal, f.name)
             if isinstance(value, int | float | bool) or value is None:

@@ -108,6 +108,7 @@ def _schema_sections(schema: dict[str, Any]) -> dict[str, set[str]]:
         "health_log": set(props["health_log"]["properties"]),
         "limits": set(props["limits"]["properties"]),
         "central": set(props["central"]["properties"]),
+        "convert": set(props["convert"]["properties"]),
     }
 
 

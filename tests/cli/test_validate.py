@@ -23,7 +23,7 @@ def test_valid_config_prints_summary(tmp_path: Path) -> None:
     result = run_validate(ROOT / "config" / "example.yaml", cwd=tmp_path)
     assert result.returncode == 0, result.stderr
     assert result.stdout == (
-        f"{ROOT / 'config' / 'example.yaml'}: ok (7 checks, 2 calibrants, 3 expected ions, "
+        f"{ROOT / 'config' / 'example.yaml'}: ok (8 checks, 2 calibrants, 3 expected ions, "
         "2 channels)\n"
     )
     assert result.stderr == ""
@@ -122,3 +122,52 @@ def test_validate_refuses_what_run_refuses_and_run_exits_2(tmp_path: Path) -> No
     (tmp_path / "exports").mkdir()
     good = _lab_with(tmp_path, tmp_path / "exports", "json://127.0.0.1:9/alerts")
     assert run_validate(good, cwd=tmp_path, file_only=False).returncode == 0
+
+
+@pytest.mark.parametrize(
+    ("program", "problem"),
+    [
+        ("./tools/missing-converter", "does not exist"),
+        ("./tools/convert.txt", "is not executable (chmod +x)"),
+        ("./tools", "is not a file"),
+        ("no-such-converter-on-this-machine", "no such program in PATH"),
+    ],
+)
+def test_validate_checks_the_converter_program(tmp_path: Path, program: str, problem: str) -> None:
+    """``convert.command``'s program must exist and be executable (a bare name: in PATH); the
+    problem names the key, and validate exits 2 as for any config problem."""
+    (tmp_path / "exports").mkdir()
+    tools = tmp_path / "tools"
+    tools.mkdir()
+    (tools / "convert.txt").write_text("not a program\n")
+    (tmp_path / "lab.yaml").write_text(
+        "watch: {folders: [./exports]}\n"
+        "state_dir: ./state\n"
+        "convert:\n"
+        '  patterns: ["*.d"]\n'
+        f'  command: ["{program}", "{{input}}", "-o", "{{output_dir}}"]\n'
+    )
+    result = run_validate("lab.yaml", cwd=tmp_path, file_only=False)
+    assert result.returncode == 2
+    assert "convert.command[0]" in result.stderr
+    assert problem in result.stderr
+
+
+def test_validate_accepts_an_executable_converter(tmp_path: Path) -> None:
+    """An executable converter (relative to the config's folder) passes."""
+    (tmp_path / "exports").mkdir()
+    tools = tmp_path / "tools"
+    tools.mkdir()
+    script = tools / "convert"
+    script.write_text("#!/bin/sh\nexit 0\n")
+    script.chmod(0o755)
+    (tmp_path / "lab.yaml").write_text(
+        "watch: {folders: [./exports]}\n"
+        "state_dir: ./state\n"
+        "convert:\n"
+        '  patterns: ["*.d", "*.raw"]\n'
+        '  command: [./tools/convert, "{input}", "-o", "{output_dir}"]\n'
+        "  timeout_s: 20min\n"
+    )
+    result = run_validate("lab.yaml", cwd=tmp_path, file_only=False)
+    assert result.returncode == 0, result.stderr

@@ -40,11 +40,12 @@ _SECTIONS: dict[str, tuple[str, tuple[type, ...]]] = {
     "health_log.": ("health_log", (model.HealthLog,)),
     "limits.": ("limits", (model.Limits,)),
     "central.": ("central", (model.Central,)),
+    "convert.": ("convert", (model.Convert,)),
 }
 # Keys that hold a section of their own (documented by their sub-keys) or a loader-only value.
 _SECTION_KEYS: dict[str, set[str]] = {
     "config": {"instrument", "watch", "calibrants", "expected_ions", "signal", "checks"}
-    | {"alerts", "health_log", "limits", "central"},
+    | {"alerts", "health_log", "limits", "central", "convert"},
     "check": {"baseline"},
     "alerts": {"channels"},
 }

@@ -9,7 +9,15 @@ import pytest
 
 from tests.helpers import badfiles as bf
 from watcher.errors import ReadError
-from watcher.intake.formats import check_complete, completeness, sniff, sniff_format
+from watcher.intake.formats import (
+    GunzipCheck,
+    check_complete,
+    checksum_ok,
+    completeness,
+    index_problem,
+    sniff,
+    sniff_format,
+)
 
 if TYPE_CHECKING:
     from pathlib import Path
@@ -37,10 +45,13 @@ def test_reference_files_sniff_and_are_complete(local_path: str) -> None:
     check_complete(path)
 
 
-def test_stale_index_of_an_excerpt_is_reported() -> None:
-    """test.mzML is an excerpt whose index points past its end: not structurally whole."""
+def test_stale_index_of_an_excerpt_is_whole_but_named() -> None:
+    """test.mzML is an excerpt whose index points past its end: whole (it ends with its root
+    tag), and ``index_problem`` says why its index is not used."""
     # reference/README.md: pyteomics' test.mzML keeps the original file's index (offset 5098921).
-    reason = completeness(bf.REFERENCE / "mzml" / "test.mzML")
+    path = bf.REFERENCE / "mzml" / "test.mzML"
+    assert completeness(path) is None
+    reason = index_problem(path)
     assert reason is not None
     assert "indexListOffset 5098921" in reason
 
@@ -112,23 +123,28 @@ def test_psims_offset_three_bytes_early_is_accepted(tmp_path: Path) -> None:
     assert completeness(path) is None
 
 
-def test_offset_not_at_index_list_is_reported(tmp_path: Path) -> None:
-    """indexListOffset that lands inside the body is a reason, even with a matching SHA-1."""
+def test_offset_not_at_index_list_is_named_not_refused(tmp_path: Path) -> None:
+    """indexListOffset that lands inside the body: the file is whole, the index is stale."""
     data = bf.reindexed(bf.TINY.read_bytes())
     index_at = data.index(b"<indexList")
     data = data.replace(b"<indexListOffset>%d<" % index_at, b"<indexListOffset>%d<" % 100)
-    reason = completeness(bf.write(tmp_path, "QC_off.mzML", _resum(data)))
-    assert reason == "indexListOffset 100 does not point at <indexList>"
+    path = bf.write(tmp_path, "QC_off.mzML", _resum(data))
+    assert completeness(path) is None
+    assert index_problem(path) == "indexListOffset 100 does not point at <indexList>"
 
 
 def test_sha1_covers_bytes_through_the_opening_tag(tmp_path: Path) -> None:
-    """The checksum covers everything up to and including <fileChecksum> (mzML 1.1 spec)."""
+    """The checksum covers everything up to and including <fileChecksum> (mzML 1.1 spec); a
+    mismatch is ``checksum_ok`` False, not an incomplete file."""
     data = _resum(bf.reindexed(bf.TINY.read_bytes()))
-    assert completeness(bf.write(tmp_path, "QC_ok.mzML", data)) is None
-    flipped = data.replace(b"Sample 1", b"Sample 2", 1)
-    assert completeness(bf.write(tmp_path, "QC_flip.mzML", flipped)) == (
-        "indexedmzML SHA-1 mismatch (file changed or damaged after writing)"
-    )
+    ok = bf.write(tmp_path, "QC_ok.mzML", data)
+    assert completeness(ok) is None
+    assert checksum_ok(ok) is True
+    flipped = bf.write(tmp_path, "QC_flip.mzML", data.replace(b"Sample 1", b"Sample 2", 1))
+    assert completeness(flipped) is None
+    assert checksum_ok(flipped) is False
+    # example.mzML's fileChecksum is "MZMLDemoFile", no SHA-1: nothing to compare.
+    assert checksum_ok(bf.EXAMPLE) is None
 
 
 def test_large_file_hash_streams_across_chunks(tmp_path: Path) -> None:
@@ -142,11 +158,19 @@ def test_large_file_hash_streams_across_chunks(tmp_path: Path) -> None:
 
 
 def test_gzip_index_is_checked_inside_the_stream(tmp_path: Path) -> None:
-    """Inside .gz, a wrong SHA-1 or offset of the inner indexedmzML is reported."""
+    """Inside .gz, a wrong SHA-1 of the inner indexedmzML is ``checksum_ok()`` False; the
+    stream is still whole."""
     data = _resum(bf.reindexed(bf.TINY.read_bytes()))
     flipped = data.replace(b"Sample 1", b"Sample 2", 1)
-    reason = completeness(bf.write(tmp_path, "QC_flip.mzML.gz", bf.gz(flipped)))
-    assert reason == "indexedmzML SHA-1 mismatch inside gzip"
+    path = bf.write(tmp_path, "QC_flip.mzML.gz", bf.gz(flipped))
+    assert completeness(path) is None
+    for inner, expected in ((flipped, False), (data, True)):
+        path = bf.write(tmp_path, "QC_gz.mzML.gz", bf.gz(inner))
+        with path.open("rb") as raw:
+            check = GunzipCheck(raw, "indexedmzML")
+            check.drain()
+            assert check.problem() is None
+            assert check.checksum_ok() is expected
 
 
 def test_mgf_trailing_blank_lines_are_fine(tmp_path: Path) -> None:
@@ -224,7 +248,12 @@ def test_gzip_offset_check_across_decompressed_pieces(tmp_path: Path, seam: int)
         + digest.encode()
         + b"</fileChecksum>\n</indexedmzML>\n"
     )
-    reason = completeness(bf.write(tmp_path, "QC_late.mzML.gz", bf.gz(moved)))
+    late = bf.write(tmp_path, "QC_late.mzML.gz", bf.gz(moved))
+    assert completeness(late) is None  # whole: the stale offset is a note, not a refusal
+    with late.open("rb") as raw:
+        check = GunzipCheck(raw, "indexedmzML")
+        check.drain()
+        reason = check.index_problem()
     assert reason == f"indexListOffset {index_at + 1} does not point at <indexList>"
 
 
@@ -267,13 +296,10 @@ def test_gzip_bad_crc_and_trailing_garbage_are_reported(tmp_path: Path) -> None:
 
 
 def test_bounded_check_reads_no_whole_file(tmp_path: Path) -> None:
-    """``deep=False`` (the daemon's settle check) still sees a cut tail and a wrong index
-    offset, but leaves the SHA-1, the MGF block count and the gzip stream to the measuring
-    child: each of those needs every byte of the file."""
+    """``deep=False`` (the daemon's settle check) still sees a cut tail, but leaves the MGF
+    block count and the gzip stream to the measuring child: each of those needs every byte of
+    the file. A wrong index offset is no reason at either depth (the reader streams)."""
     data = _resum(bf.reindexed(bf.TINY.read_bytes()))
-    flipped = bf.write(tmp_path, "QC_flip.mzML", data.replace(b"Sample 1", b"Sample 2", 1))
-    assert completeness(flipped) is not None
-    assert completeness(flipped, deep=False) is None
     cut_gz = bf.write(tmp_path, "QC_cut.mzML.gz", bf.gz(data)[:-64])
     assert completeness(cut_gz) is not None
     assert completeness(cut_gz, deep=False) is None
@@ -282,7 +308,8 @@ def test_bounded_check_reads_no_whole_file(tmp_path: Path) -> None:
     index_at = data.index(b"<indexList")
     moved = data.replace(b"<indexListOffset>%d<" % index_at, b"<indexListOffset>100<")
     off = bf.write(tmp_path, "QC_off.mzML", moved)
-    assert completeness(off, deep=False) == "indexListOffset 100 does not point at <indexList>"
+    assert completeness(off, deep=False) is None
+    assert completeness(off) is None
 
 
 def test_gzip_check_stops_at_max_inflated_bytes(tmp_path: Path) -> None:

@@ -3,7 +3,8 @@
 Exit 0 when the config is valid; exit 2 when it is not, because no restart can fix a bad config
 (the systemd unit lists 2 in ``RestartPreventExitStatus``). Beyond the file itself it checks
 what ``run`` checks at start-up (``watcher.daemon.preflight``): the watch folders exist and can
-be read, the state folder can be created or written, apprise can use every alert URL.
+be read, the state folder can be created or written, apprise can use every alert URL, the
+converter program (``convert.command``) exists and is executable.
 """
 
 from __future__ import annotations

@@ -37,6 +37,7 @@ _SECTIONS: dict[str, tuple[type, ...]] = {
     "health_log": (model.HealthLog,),
     "limits": (model.Limits,),
     "central": (model.Central,),
+    "convert": (model.Convert,),
 }
 # Fields that hold a nested record rather than a key's value of their own.
 _NESTED = {(model.ExpectedIon, "ion")}

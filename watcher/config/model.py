@@ -352,6 +352,26 @@ class HealthLog:
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
+class Convert:
+    """Vendor raw runs (files or folders) turned into mzML by the lab's own converter.
+
+    The daemon runs ``command`` (no shell) with ``{input}`` replaced by the vendor run's path
+    and ``{output_dir}`` by an empty folder under ``<state_dir>/converted``; the one run file
+    it writes there is measured under the vendor run's name. The original is only read.
+    """
+
+    # File or folder names that are vendor runs, e.g. "*.d" (a folder), "*.raw" (a file).
+    patterns: tuple[str, ...] = ()
+    # argv: [program, arg, ...]; {input} and {output_dir} are the only placeholders.
+    command: tuple[str, ...] = ()
+    # A converter still running after this is killed (with its whole process group).
+    timeout_s: float = field(default=1800.0, metadata=_positive(_DAY_S))
+
+
+CONVERT_PLACEHOLDERS = ("{input}", "{output_dir}")
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
 class Limits:
     """Per-run measuring limits of the child process; both grow with file size."""
 
@@ -406,6 +426,7 @@ class Config:
     health_log: HealthLog = field(default_factory=HealthLog)
     limits: Limits = field(default_factory=Limits)
     central: Central = field(default_factory=Central)
+    convert: Convert = field(default_factory=Convert)
     digest_at: time | None = None  # local time of day (YAML "07:30"): the daemon sends the digest
     log_keep_days: int = field(default=30, metadata=_within(1, 36_500))
 
@@ -420,7 +441,13 @@ def metric_fields() -> dict[str, tuple[str, ...]]:
     ``signal`` keeps only scalar fields (``flat()`` skips tuples such as ``precursor_charges``);
     ``calibrant`` and ``expected_ion`` drop ``name``, which is a path segment, not a value.
     """
-    from watcher.records import CalibrantDrift, ExpectedIonResult, MassCorrection, SignalMetrics
+    from watcher.records import (
+        CalibrantDrift,
+        ExpectedIonResult,
+        FileChecks,
+        MassCorrection,
+        SignalMetrics,
+    )
 
     def scalars(cls: type, *, skip: frozenset[str] = frozenset()) -> tuple[str, ...]:
         return tuple(
@@ -436,6 +463,7 @@ def metric_fields() -> dict[str, tuple[str, ...]]:
         "expected_ions": ("found_fraction", "missing_count"),  # aggregates made by flat()
         # flat() writes the fit, not the count of calibrants that went into it
         "mass_correction": scalars(MassCorrection, skip=frozenset({"calibrants_used"})),
+        "file": scalars(FileChecks),
     }
 
 
@@ -445,11 +473,12 @@ def is_yes_no_metric(metric: str) -> bool:
     Derived from the records' field types, like ``metric_fields``: yes/no values can be tested
     with ``is:`` but have no mean, SD or trend.
     """
-    from watcher.records import CalibrantDrift, ExpectedIonResult, SignalMetrics
+    from watcher.records import CalibrantDrift, ExpectedIonResult, FileChecks, SignalMetrics
 
     group, _, rest = metric.partition(".")
     name = rest.rsplit(".", 1)[-1]
     records: dict[str, type] = {
+        "file": FileChecks,
         "signal": SignalMetrics,
         "calibrant": CalibrantDrift,
         "expected_ion": ExpectedIonResult,
@@ -466,7 +495,7 @@ def known_metric_paths(calibrants: Iterable[str], expected_ions: Iterable[str]) 
     """Every metric path a check may name, with ``*`` standing for any calibrant or expected ion."""
     fields_by_group = metric_fields()
     paths: list[str] = []
-    for group in ("signal", "expected_ions", "mass_correction"):
+    for group in ("signal", "expected_ions", "mass_correction", "file"):
         paths.extend(f"{group}.{name}" for name in fields_by_group[group])
     for group, names in (("calibrant", calibrants), ("expected_ion", expected_ions)):
         for subject in ("*", *names):
@@ -486,7 +515,8 @@ def metric_path_problem(
     if nearest:
         return f"{message} (did you mean {nearest[0]!r}?)"
     return f"{message}; expected signal.<value>, calibrant.<name|*>.<value>, " + (
-        "expected_ion.<name|*>.<value>, expected_ions.<value> or mass_correction.<value>"
+        "expected_ion.<name|*>.<value>, expected_ions.<value>, mass_correction.<value> "
+        "or file.<value>"
     )
 
 

@@ -6,16 +6,19 @@ and falls back to the dataclass defaults for keys that are missing or bad.
 
 from __future__ import annotations
 
+import re
 from collections.abc import Callable
 from typing import TYPE_CHECKING, Any
 
 from watcher.config.checks import build_checks
 from watcher.config.keys import KEYS
 from watcher.config.model import (
+    CONVERT_PLACEHOLDERS,
     Alerts,
     Central,
     Channel,
     Config,
+    Convert,
     ExpectedIon,
     HealthLog,
     Instrument,
@@ -76,6 +79,7 @@ def build_config(v: Values, data: Any, source: Path) -> Config:
         },
     )
     kw["central"] = _central(v, top.get("central"))
+    kw["convert"] = _convert(v, top.get("convert"))
     v.put(kw, top, (), "digest_at", lambda p, x: None if x is None else v.time_of_day(p, x))
     v.put(
         kw,
@@ -363,3 +367,44 @@ def _channels(v: Values, path: KeyPath, data: Any, check_names: set[str]) -> tup
             continue
         out.append(Channel(**kw))
     return tuple(out)
+
+
+def _convert(v: Values, data: Any) -> Convert:
+    section: Convert = _section(
+        v,
+        data,
+        ("convert",),
+        Convert,
+        {
+            "patterns": lambda p, x: v.texts(p, x),
+            "command": lambda p, x: _convert_command(v, p, x),
+            "timeout_s": lambda p, x: v.duration(p, x, range_of(Convert, "timeout_s")),
+        },
+    )
+    if section.patterns and not section.command:
+        v.problem(("convert",), "convert.patterns is set but convert.command is not")
+    return section
+
+
+def _convert_command(v: Values, path: KeyPath, x: Any) -> tuple[str, ...]:
+    """The converter's argv: a list (no shell), ``{output_dir}`` in it, no other placeholder.
+
+    A program given with a folder (``./tools/convert``) resolves against the config's folder;
+    a bare name is looked up in PATH when it runs (``ionwarden validate`` checks both).
+    """
+    if not isinstance(x, list) or not x:
+        raise v.fail(path, f"expected a list: [program, arg, ...], got {v.show(x)}")
+    argv = list(v.texts(path, x))
+    if len(argv) != len(x):
+        raise v.fail(path, "every item of the command must be non-empty text")
+    for i, arg in enumerate(argv):
+        for token in re.findall(r"\{[^{}]*\}", arg):
+            if token not in CONVERT_PLACEHOLDERS:
+                raise v.fail(
+                    (*path, i), f"unknown placeholder {token}; use {{input}} and {{output_dir}}"
+                )
+    if not any("{output_dir}" in arg for arg in argv):
+        raise v.fail(path, "the command must name {output_dir}, where the converter writes")
+    if "/" in argv[0] and "{" not in argv[0]:
+        argv[0] = str(v.path((*path, 0), argv[0]))
+    return tuple(argv)

@@ -23,6 +23,7 @@ EVENTS: frozenset[str] = frozenset(
         "run.failed",
         "watch.network_folder",
         # measure / judge
+        "run.converted",
         "run.measured",
         "run.unreadable",
         "run.judged",
@@ -37,6 +38,7 @@ EVENTS: frozenset[str] = frozenset(
         "config.rejected",
         "scan.completed",
         "store.pruned",
+        "converted.pruned",
         "store.unwritable",
         "store.recovered",
         "store.prune_skipped",

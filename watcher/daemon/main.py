@@ -19,14 +19,15 @@ import signal
 import sqlite3
 import threading
 import time
+from dataclasses import replace
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import structlog
 
 from watcher import config as config_mod
-from watcher.config import Config, state_dir_of
-from watcher.daemon import lock, logs, norun_alert, preflight, retention, sdnotify
+from watcher.config import Config, Watch, state_dir_of
+from watcher.daemon import convert, lock, logs, norun_alert, preflight, retention, sdnotify
 from watcher.daemon.pipeline import JobOutcome, Pipeline, time_limit_s
 from watcher.errors import (
     ConfigError,
@@ -35,7 +36,7 @@ from watcher.errors import (
     StoreError,
     StoreTooNewError,
 )
-from watcher.intake import watch
+from watcher.intake import vendor, watch
 from watcher.intake.pending import Settled, Settler
 from watcher.measure.parallel import worker_count
 from watcher.notify.notifier import Notifier
@@ -75,7 +76,7 @@ class Daemon:
         self.state_dir = state_dir_of(config)
         self.hints: queue.Queue[watch.Hint] = queue.Queue(maxsize=max(1, config.limits.queue_max))
         self.rescan = watch.RescanFlag()
-        self.settler = Settler(config.watch)
+        self.settler = Settler(config.watch, vendor=config.convert.patterns)
         self.stop_event = threading.Event()
         self.wake_worker = threading.Event()
         self._stop_requested = threading.Event()
@@ -167,7 +168,7 @@ class Daemon:
         if start_fault is not None:
             self.store_failed(start_fault)
         self._observer, self._overflow = watch.start_watching(
-            self.config.watch, self.hints, self.rescan
+            _watched(self.config), self.hints, self.rescan
         )
         self._full_scan("start-up")
         self._worker = threading.Thread(target=self._work, name="ionwarden-worker", daemon=True)
@@ -380,6 +381,9 @@ class Daemon:
             log.warning("store.prune_skipped", reason="a watched folder is missing or empty")
         elif pruned:
             log.info("store.pruned", jobs=pruned, keep_days=keep_days)
+        removed = convert.prune(self.state_dir, keep_days, now_s)
+        if removed:
+            log.info("converted.pruned", folders=removed, keep_days=keep_days)
 
     def _full_scan(self, reason: str) -> None:
         now_s = self.clock()
@@ -529,6 +533,7 @@ class Daemon:
         old = self.config
         self.config = new
         self.settler.watch = new.watch
+        self.settler.vendor = new.convert.patterns
         self._notifier().stop_delivery(2.0)
         self.notifier = notifier
         notifier.start_delivery()
@@ -537,10 +542,14 @@ class Daemon:
         if new.central != old.central or new.instrument.name != old.instrument.name:
             self._stop_publisher()
             self._start_publisher(new)
-        if new.watch != old.watch and self._observer is not None and self._overflow is not None:
+        if (
+            _watched(new) != _watched(old)
+            and self._observer is not None
+            and self._overflow is not None
+        ):
             watch.stop_watching(self._observer, self._overflow)
             self._observer, self._overflow = watch.start_watching(
-                new.watch, self.hints, self.rescan
+                _watched(new), self.hints, self.rescan
             )
             self.rescan.set("watch settings changed")
         log.info("config.reloaded", config=str(source))
@@ -620,6 +629,12 @@ class Daemon:
                 continue
             job = batch[0]
             self._busy_limit_s = max(time_limit_s(self.config.limits, j.size) for j in batch)
+            cfg = self.config
+            if any(
+                vendor.is_vendor_name(j.path.name, cfg.convert.patterns, cfg.watch.ignore)
+                for j in batch
+            ):
+                self._busy_limit_s += cfg.convert.timeout_s  # the converter runs first
             self._busy_since = time.monotonic()
             try:
                 outcomes = pipeline.process_batch(batch)
@@ -637,6 +652,13 @@ class Daemon:
                     log.exception("run.failed", file=shown(job.path))
             finally:
                 self._busy_since = None
+
+
+def _watched(config: Config) -> Watch:
+    """The watch settings the event handler filters by: vendor run names count as run names
+    (a vendor run folder's own events come as folder hints, which the settler names)."""
+    extra = tuple(p for p in config.convert.patterns if p not in config.watch.patterns)
+    return replace(config.watch, patterns=(*config.watch.patterns, *extra))
 
 
 def main(args: argparse.Namespace) -> int:

@@ -23,14 +23,16 @@ from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
 from enum import StrEnum
+from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import structlog
 
 from watcher.central import queue as central_queue
-from watcher.daemon import cgroup
+from watcher.config import state_dir_of
+from watcher.daemon import cgroup, convert
 from watcher.daemon.child import HEADER, READY, frame
-from watcher.intake import folderwalk
+from watcher.intake import folderwalk, vendor
 from watcher.records import DaemonEvent, RunFile, RunMetrics, Status, Verdict, run_time, shown
 from watcher.store import db, history, jobs
 
@@ -38,7 +40,6 @@ if TYPE_CHECKING:
     import sqlite3
     import threading
     from collections.abc import Callable
-    from pathlib import Path
 
     from watcher.config import Config, Limits
     from watcher.notify.notifier import Notifier
@@ -405,15 +406,28 @@ class Pipeline:
         if not watch_cfg.follow_symlinks_out and folderwalk.leads_outside(path, watch_cfg.folders):
             # Re-pointed since it settled: the link is still not followed out of the folders.
             return self._drop(job, "a symbolic link out of the watched folders: not measured")
+        is_vendor = self._is_vendor(job)
         try:
-            st = path.stat()
+            if is_vendor:
+                tree = vendor.tree_stat(path)  # a vendor run folder: its whole tree
+                if tree is None:
+                    raise FileNotFoundError(path)
+                identity = (tree.size, tree.mtime_ns)
+            else:
+                st = path.stat()
+                identity = (st.st_size, st.st_mtime_ns)
         except OSError:
             return self._drop(job, "vanished before it was measured")
-        if (st.st_size, st.st_mtime_ns) != (job.size, job.mtime_ns):
+        if identity != (job.size, job.mtime_ns):
             # Changed since it settled: the new identity gets its own job from the next look.
             return self._drop(job, "changed before it was measured")
         try:
-            sha256 = sha256_file(path, self.stop)
+            if is_vendor:
+                sha256 = convert.tree_sha256(path, self.stop)
+            else:
+                sha256 = sha256_file(path, self.stop)
+        except convert.ConvertStopped:
+            raise Stopped from None
         except OSError as exc:
             return self._drop(job, f"cannot be read: {exc.strerror}")
         # One worker: no other job can finish between this read and the commit.
@@ -453,10 +467,27 @@ class Pipeline:
         """
         child = self.child if child is None else child
         started = time.monotonic()
-        result = child.measure(config, job.path, job.size, self.stop)
+        target, size = job.path, job.size
+        if self._is_vendor(job):
+            converted = self._convert(config, job)
+            if isinstance(converted, ChildResult):
+                log.warning("run.unreadable", kind=converted.error_kind, reason=converted.error)
+                return converted
+            target, size = converted, converted.stat().st_size
+        result = child.measure(config, target, size, self.stop)
         if result.error_kind == "killed":
             log.warning("child.killed", reason=result.error, measuring_again=True)
-            result = child.measure(config, job.path, job.size, self.stop)
+            result = child.measure(config, target, size, self.stop)
+        if result.metrics is not None and target != job.path:
+            # Measured, recorded, reported and alerted under the vendor run's own name.
+            note = f"converted from the vendor run by {Path(config.convert.command[0]).name}"
+            result = ChildResult(
+                replace(
+                    result.metrics,
+                    file=job.path.name,
+                    notes=(*result.metrics.notes, shown(note)),
+                )
+            )
         if result.metrics is not None:
             log.info(
                 "run.measured",
@@ -466,6 +497,30 @@ class Pipeline:
         else:
             log.warning("run.unreadable", kind=result.error_kind, reason=result.error)
         return result
+
+    def _is_vendor(self, job: jobs.Job) -> bool:
+        """Whether the job is a vendor run for the converter (``convert.patterns``)."""
+        cfg = self.config
+        return vendor.is_vendor_name(job.path.name, cfg.convert.patterns, cfg.watch.ignore)
+
+    def _convert(self, config: Config, job: jobs.Job) -> Path | ChildResult:
+        """The converted run file of a vendor run, or the failure that makes it unreadable."""
+        out_dir = convert.output_dir(state_dir_of(config), job.id)
+        started = time.monotonic()
+        try:
+            written = convert.convert(job.path, config.convert, out_dir, self.stop)
+        except convert.ConvertStopped:
+            raise Stopped from None
+        except convert.ConvertFailed as exc:
+            return ChildResult(None, "convert", exc.reason)
+        except OSError as exc:  # the state folder refuses the output folder
+            return ChildResult(None, "convert", f"converter output folder: {exc.strerror}")
+        log.info(
+            "run.converted",
+            output=shown(written.name),
+            duration_s=round(time.monotonic() - started, 3),
+        )
+        return written
 
     def _commit(
         self, config: Config, job: jobs.Job, sha256: str | None, result: ChildResult

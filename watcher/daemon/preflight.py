@@ -9,6 +9,7 @@ runtime errors (exit 3).
 from __future__ import annotations
 
 import os
+import shutil
 from typing import TYPE_CHECKING
 
 from watcher.config import state_dir_of
@@ -43,6 +44,10 @@ def problems(config: Config) -> list[ConfigProblem]:
     why = _state_dir_problem(state_dir)
     if why is not None:
         add("state_dir", f"{state_dir}: {why}")
+    if config.convert.command:
+        why = converter_problem(config.convert.command[0])
+        if why is not None:
+            add("convert.command[0]", why)
     from watcher.notify import deliver
 
     for i, channel in enumerate(config.alerts.channels):
@@ -78,4 +83,22 @@ def _state_dir_problem(state_dir: Path) -> str | None:
         parent = parent.parent
     if not parent.is_dir() or not os.access(parent, os.W_OK | os.X_OK):
         return f"cannot be created ({parent} is not a writable folder)"
+    return None
+
+
+def converter_problem(program: str) -> str | None:
+    """Whether the converter program can be run: a path that is an executable file, or a bare
+    name found in PATH (as ``subprocess`` looks it up, without a shell)."""
+    if "{" in program:
+        return f"{program}: the program itself cannot be a placeholder"
+    if os.sep not in program:
+        if shutil.which(program) is None:
+            return f"{program}: no such program in PATH"
+        return None
+    if not os.path.exists(program):
+        return f"{program}: does not exist"
+    if not os.path.isfile(program):
+        return f"{program}: is not a file"
+    if not os.access(program, os.X_OK):
+        return f"{program}: is not executable (chmod +x)"
     return None

@@ -10,8 +10,10 @@ run history (``runs``, ``metrics``) is not pruned here: it is the baseline the r
 from __future__ import annotations
 
 import os
+import stat
 from typing import TYPE_CHECKING
 
+from watcher.intake import vendor
 from watcher.store import db, jobs
 
 if TYPE_CHECKING:
@@ -40,11 +42,18 @@ def folders_present(folders: Sequence[Path]) -> bool:
 
 
 def file_unchanged(job: jobs.Job) -> bool:
-    """The job's file is still at its path with the size and mtime it was queued with."""
+    """The job's file is still at its path with the size and mtime it was queued with.
+
+    A vendor run folder is compared by its tree (``vendor.tree_stat``), as it was queued: its
+    own stat never matches, and a dropped row would have it converted once more.
+    """
     try:
         st = job.path.stat()
     except OSError:
         return False
+    if stat.S_ISDIR(st.st_mode):
+        tree = vendor.tree_stat(job.path)
+        return tree is not None and (tree.size, tree.mtime_ns) == (job.size, job.mtime_ns)
     return (st.st_size, st.st_mtime_ns) == (job.size, job.mtime_ns)
 
 

@@ -68,7 +68,9 @@ def is_run_path(path: Path, root: Path, patterns: Sequence[str], ignore: Sequenc
     return is_run_name(path.name, patterns, ignore)
 
 
-def _walk(root: Path, *, recursive: bool, ignore: Sequence[str]) -> Iterator[os.DirEntry[str]]:
+def _walk(
+    root: Path, *, recursive: bool, ignore: Sequence[str], vendor: Sequence[str] = ()
+) -> Iterator[os.DirEntry[str]]:
     stack = [root]
     while stack:
         folder = stack.pop()
@@ -77,7 +79,11 @@ def _walk(root: Path, *, recursive: bool, ignore: Sequence[str]) -> Iterator[os.
                 for entry in entries:
                     try:
                         if entry.is_dir(follow_symlinks=False):
-                            if recursive and not is_ignored(entry.name, ignore):
+                            if is_ignored(entry.name, ignore):
+                                continue
+                            if vendor and is_run_name(entry.name, vendor, ignore):
+                                yield entry  # a vendor run folder is one run: not walked into
+                            elif recursive:
                                 stack.append(Path(entry.path))
                         elif entry.is_file():
                             yield entry
@@ -93,14 +99,27 @@ def walk(
     ignore: Sequence[str],
     *,
     recursive: bool,
+    vendor: Sequence[str] = (),
 ) -> list[Seen]:
-    """Every run file under the folders, oldest first by mtime (then path, for a stable order)."""
+    """Every run file under the folders, oldest first by mtime (then path, for a stable order).
+
+    ``vendor`` (``convert.patterns``) names vendor runs, files or folders; a folder's stat is
+    its whole tree's (``watcher.intake.vendor.tree_stat``).
+    """
+    from watcher.intake.vendor import tree_stat
+
     found: list[Seen] = []
+    every = (*patterns, *vendor)
     for root in folders:
-        for entry in _walk(root, recursive=recursive, ignore=ignore):
-            if not is_run_name(entry.name, patterns, ignore):
+        for entry in _walk(root, recursive=recursive, ignore=ignore, vendor=vendor):
+            if not is_run_name(entry.name, every, ignore):
                 continue
             try:
+                if entry.is_dir(follow_symlinks=False):
+                    tree = tree_stat(Path(entry.path))
+                    if tree is not None:
+                        found.append(Seen(Path(entry.path), tree))
+                    continue
                 st = entry.stat()
             except OSError:
                 continue

@@ -2,9 +2,11 @@
 
 Intake and measure both ask two questions of a file before any spectrum is parsed: what format is
 it (decided from content: gzip magic, then the root element or the MGF header lines, never only
-the name), and is it whole (tail tag, indexedmzML offset and SHA-1, MGF BEGIN/END balance, full
-gzip stream)? Readers hand out intact spectra of a truncated file without complaint, so
-completeness is the only proof that a run was copied whole (docs/reliability.md, item 2).
+the name), and is it whole (tail tag, MGF BEGIN/END balance, full gzip stream)? The indexedmzML
+offset and SHA-1 are asked separately (``index_problem``, ``checksum_ok``): a whole file whose
+index is stale is read without it, and its checksum is a metric, not a refusal. Readers hand
+out intact spectra of a truncated file without complaint, so completeness is the only proof
+that a run was copied whole (docs/reliability.md, item 2).
 
 Imports only ``records``/``errors`` of the project, so intake can use it without pulling in
 lxml, numpy or pyteomics.
@@ -87,7 +89,7 @@ def completeness(
     With ``whole_gzip=False`` a .gz file gets only the cheap checks here (size, head, format):
     the caller proves the stream whole while reading it (``GunzipCheck``). With ``deep=False``
     (the daemon's settle check, on its main loop) every check reads a bounded number of bytes
-    whatever the file's size: head, tail, the index offset; no SHA-1, no MGF block count, no
+    whatever the file's size: head and tail; no MGF block count, no
     gzip stream. The measuring child does those once, with its time and memory limits, so that
     a 20 GiB sparse file or a gzip bomb never holds up the loop that pings systemd's watchdog.
     ``max_inflated_bytes`` bounds the gzip stream (``GunzipCheck``).
@@ -112,7 +114,7 @@ def completeness(
         tail = _read_tail(path, size)
         if found.format == "MGF":
             return _mgf_completeness(path, tail, deep=deep)
-        return _xml_completeness(path, found.root, tail, size, deep=deep)
+        return _xml_completeness(found.root, tail)
     except ReadError as exc:
         return exc.reason if exc.kind in ("empty", "io") else None
     except OSError as exc:
@@ -273,23 +275,39 @@ def _tail_problem(tail: bytes) -> tuple[bytes, str | None]:
     return stripped, None
 
 
-def _xml_completeness(
-    path: Path, root: str | None, tail: bytes, size: int, *, deep: bool
-) -> str | None:
+def _xml_completeness(root: str | None, tail: bytes) -> str | None:
     stripped, problem = _tail_problem(tail)
     if problem:
         return problem
     closing = f"</{root}>".encode()
     if not stripped.endswith(closing):
         return f"XML ends before </{root}> (truncated while copying?)"
-    if root != "indexedmzML":
-        return None
-    with path.open("rb") as fh:
-        return _index_problem(fh, tail, size, deep=deep)
+    # The index and the fileChecksum are not completeness questions: a file that ends with its
+    # closing root tag is whole even when a tool patched it afterwards, a transfer turned LF
+    # into CRLF (every offset moves) or files were merged. Its index is only a shortcut
+    # (``index_problem``; the reader then streams) and its checksum a metric (``checksum_ok``).
+    return None
 
 
-def _index_problem(fh: BinaryIO, tail: bytes, size: int, *, deep: bool = True) -> str | None:
-    """indexListOffset must land on <indexList; the SHA-1 must match. ``fh`` is seekable."""
+def index_problem(path: Path) -> str | None:
+    """Why a plain indexedmzML's ``indexListOffset`` cannot be trusted, or None when it lands.
+
+    Bounded reads only (the tail and 256 bytes at the offset). A file of another root, or a
+    .gz, has no index to doubt here: None.
+    """
+    try:
+        size = path.stat().st_size
+        if sniff(path).root != "indexedmzML" or _read_head(path)[:2] == _GZIP_MAGIC:
+            return None
+        tail = _read_tail(path, size)
+        with path.open("rb") as fh:
+            return _offset_problem(fh, tail, size)
+    except (OSError, ReadError):
+        return None  # the reader names what is wrong with such a file
+
+
+def _offset_problem(fh: BinaryIO, tail: bytes, size: int) -> str | None:
+    """indexListOffset must land on <indexList. ``fh`` is seekable."""
     offsets = _INDEX_OFFSET_RE.findall(tail)
     if not offsets:
         return "indexedmzML has no indexListOffset"
@@ -300,16 +318,35 @@ def _index_problem(fh: BinaryIO, tail: bytes, size: int, *, deep: bool = True) -
     # psims writes the offset a few bytes early, at the preceding newline: allow whitespace.
     if not fh.read(256).lstrip().startswith(b"<indexList"):
         return f"indexListOffset {offset} does not point at <indexList>"
+    return None
+
+
+def checksum_ok(path: Path) -> bool | None:
+    """Whether a plain indexedmzML's SHA-1 ``fileChecksum`` matches its bytes; None when the
+    file carries none (or no 40-digit hex one), is not indexedmzML, or is a .gz (the gzip pass
+    answers for those: ``GunzipCheck.checksum_ok``).
+
+    mzML 1.1 (indexedmzML schema): the SHA-1 covers every byte up to and including the
+    ``<fileChecksum>`` tag. Reads the whole file once, in 4 MiB chunks.
+
+    Raises:
+        OSError: the file cannot be read.
+    """
+    size = path.stat().st_size
+    try:
+        if sniff(path).root != "indexedmzML" or _read_head(path)[:2] == _GZIP_MAGIC:
+            return None
+    except ReadError:
+        return None
+    tail = _read_tail(path, size)
     sums = _CHECKSUM_RE.findall(tail)
-    if not sums or not deep:
-        return None  # fileChecksum is optional in practice; the tail tag and offset held
+    if not sums:
+        return None
     expected = sums[-1].decode().lower()
     tag_at = tail.rfind(_CHECKSUM_TAG)  # the last tag of the file lies in its tail
-    fh.seek(0)
-    actual = _sha1_of_prefix(fh, size - len(tail) + tag_at + len(_CHECKSUM_TAG))
-    if actual != expected:
-        return "indexedmzML SHA-1 mismatch (file changed or damaged after writing)"
-    return None
+    with path.open("rb") as fh:
+        actual = _sha1_of_prefix(fh, size - len(tail) + tag_at + len(_CHECKSUM_TAG))
+    return bool(actual == expected)
 
 
 def _sha1_of_prefix(fh: BinaryIO, length: int) -> str:
@@ -450,14 +487,27 @@ class GunzipCheck:
         root = self._root
         if not stripped.endswith(f"</{root}>".encode()):
             return f"XML inside gzip ends before </{root}> (truncated before compressing?)"
-        if root != "indexedmzML":
+        return None  # the index and the checksum are not completeness questions (see below)
+
+    def checksum_ok(self) -> bool | None:
+        """Whether the inner indexedmzML's SHA-1 fileChecksum matches (None: it has none);
+        call after ``drain``."""
+        tail = self._held
+        if self._root != "indexedmzML" or self._problem is not None:
             return None
         sums = _CHECKSUM_RE.findall(tail)
-        if sums:
-            sha = self._sha.copy()
-            sha.update(tail[: tail.rfind(_CHECKSUM_TAG) + len(_CHECKSUM_TAG)])
-            if sha.hexdigest() != sums[-1].decode().lower():
-                return "indexedmzML SHA-1 mismatch inside gzip"
+        if not sums:
+            return None
+        sha = self._sha.copy()
+        sha.update(tail[: tail.rfind(_CHECKSUM_TAG) + len(_CHECKSUM_TAG)])
+        return bool(sha.hexdigest() == sums[-1].decode().lower())
+
+    def index_problem(self) -> str | None:
+        """Why the inner indexedmzML's indexListOffset cannot be trusted, or None when it
+        lands on ``<indexList`` (the .gz reader streams either way); call after ``drain``."""
+        tail = self._held
+        if self._root != "indexedmzML" or self._problem is not None:
+            return None
         offsets = _INDEX_OFFSET_RE.findall(tail)
         if not offsets:
             return "indexedmzML has no indexListOffset"

@@ -17,7 +17,7 @@ from typing import TYPE_CHECKING
 
 import structlog
 
-from watcher.intake import folderwalk, watch
+from watcher.intake import folderwalk, vendor, watch
 from watcher.intake import readiness as settle
 
 if TYPE_CHECKING:
@@ -40,8 +40,9 @@ class Settled:
 class Settler:
     """Pending files and their settle checks, under the current ``watch`` settings."""
 
-    def __init__(self, watch_settings: Watch) -> None:
+    def __init__(self, watch_settings: Watch, vendor: tuple[str, ...] = ()) -> None:
         self.watch = watch_settings  # replaced on reload; pending files keep their state
+        self.vendor = vendor  # convert.patterns: vendor runs (files or folders), also on reload
         self.pending: dict[Path, settle.Pending] = {}
         self._links_skipped: set[Path] = set()  # each reported once, not on every scan
 
@@ -52,7 +53,9 @@ class Settler:
             known: the (path, size, mtime_ns) identities already in the job table.
         """
         w = self.watch
-        seen = folderwalk.walk(w.folders, w.patterns, w.ignore, recursive=w.recursive)
+        seen = folderwalk.walk(
+            w.folders, w.patterns, w.ignore, recursive=w.recursive, vendor=self.vendor
+        )
         added = 0
         for item in folderwalk.unknown(seen, known):
             if item.path not in self.pending and not self._link_out(item.path):
@@ -83,9 +86,17 @@ class Settler:
         if not hint.is_dir:
             self._note(hint.path, now_s)
             return
-        # A folder moved in carries its files without an event per file: scan it.
         w = self.watch
-        for item in folderwalk.walk([hint.path], w.patterns, w.ignore, recursive=w.recursive):
+        if vendor.inside_vendor_run(hint.path, self._roots(), self.vendor, w.ignore):
+            return  # a sub-folder of a vendor run folder: part of that run
+        if vendor.is_vendor_name(hint.path.name, self.vendor, w.ignore):
+            self._note(hint.path, now_s)  # a vendor run folder: one run, settled as a tree
+            return
+        # A folder moved in carries its files without an event per file: scan it.
+        walked = folderwalk.walk(
+            [hint.path], w.patterns, w.ignore, recursive=w.recursive, vendor=self.vendor
+        )
+        for item in walked:
             self._note(item.path, now_s)
 
     def due(self, now_s: float, is_known: IsKnown) -> list[Settled]:
@@ -99,13 +110,15 @@ class Settler:
         for path, pending in list(self.pending.items()):
             if pending.next_check_s > now_s:
                 continue
-            stat = _stat(path)
+            is_vendor = vendor.is_vendor_name(path.name, self.vendor, self.watch.ignore)
+            stat = vendor.tree_stat(path) if is_vendor else _stat(path)
             decision, nxt = self._decide(pending, stat, now_s, None)
             if decision is settle.Decision.READY and stat is not None:
                 if is_known(path, stat):
                     del self.pending[path]
                     continue
-                why = _completeness(path)
+                # A vendor run has no format to check here: its converter reads it.
+                why = None if is_vendor else _completeness(path)
                 if why is not None:
                     decision, nxt = self._decide(pending, stat, now_s, why)
             if decision is settle.Decision.READY and stat is not None:
@@ -148,6 +161,17 @@ class Settler:
             stall_s=self.watch.stall_s,
         )
 
+    def _roots(self) -> list[Path]:
+        """The watched folders as given and as resolved (watchdog reports resolved paths)."""
+        out: list[Path] = []
+        for folder in self.watch.folders:
+            out.append(Path(folder))
+            try:
+                out.append(Path(folder).resolve())
+            except OSError:
+                continue
+        return out
+
     def _link_out(self, path: Path) -> bool:
         """Whether ``path`` is a link out of the watched folders that must not be read.
 
@@ -168,6 +192,8 @@ class Settler:
         return True
 
     def _note(self, path: Path, now_s: float) -> None:
+        if vendor.inside_vendor_run(path, self._roots(), self.vendor, self.watch.ignore):
+            return  # a file or folder inside a vendor run folder is part of that run
         if path not in self.pending and not self._link_out(path):
             self.pending[path] = settle.new_pending(path, now_s, self.watch.settle_s)
             log.info("run.detected", file=str(path))

@@ -96,6 +96,12 @@ def measure_in_blocks(
     header, joined = results[0]
     for _, traces in results[1:]:
         joined.extend(traces)
+    spectra = len(joined.signal.ms1_rt_s) + joined.signal.ms2_count
+    if joined.damaged and joined.damaged == spectra:
+        return None  # nothing readable: one pass words the error
+    from watcher.intake import formats
+
+    header.checksum_ok = formats.checksum_ok(path)  # as the one-pass reader sets it
     return joined.metrics(header, config, file_name=path.name)
 
 

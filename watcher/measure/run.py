@@ -28,13 +28,14 @@ from watcher.measure.xic import XicTrace, absent
 from watcher.records import (
     CalibrantDrift,
     ExpectedIonResult,
+    FileChecks,
     ReadFailure,
     RunMetrics,
     SignalMetrics,
 )
 
 if TYPE_CHECKING:
-    from collections.abc import Callable, Iterable
+    from collections.abc import Callable, Iterable, Iterator
     from pathlib import Path
 
     from watcher.config import Config, ExpectedIon, IonSpec
@@ -83,7 +84,7 @@ class RunTraces:
     blocks of one run, ``extend``ed in file order, are exactly the traces of one pass (the
     parallel reader of indexed mzML, watcher/measure/parallel.py, relies on it)."""
 
-    __slots__ = ("calibrants", "expected", "ms1_with_arrays", "polarities", "signal")
+    __slots__ = ("calibrants", "damaged", "expected", "ms1_with_arrays", "polarities", "signal")
 
     def __init__(self, config: Config) -> None:
         self.calibrants = [CalibrantTrace(ion) for ion in _resolve_all(config, "calibrants")]
@@ -100,11 +101,13 @@ class RunTraces:
         ]
         self.signal = SignalTrace()
         self.ms1_with_arrays = 0
+        self.damaged = 0  # spectra read as empty: their peak arrays were missing or short
         self.polarities: Counter[int | None] = Counter()  # MS1 scans by polarity (None: unsaid)
 
     def add(self, scan: Scan) -> None:
         """Take one spectrum (in file order)."""
         self.signal.add(scan)
+        self.damaged += scan.arrays_damaged
         calibrants, expected = self.calibrants, self.expected
         if scan.ms_level != 1 or not (calibrants or expected):
             return
@@ -131,6 +134,7 @@ class RunTraces:
         for xic, other in zip(self.expected, later.expected, strict=True):
             xic.extend(other)
         self.ms1_with_arrays += later.ms1_with_arrays
+        self.damaged += later.damaged
         self.polarities.update(later.polarities)
 
     def metrics(
@@ -144,7 +148,9 @@ class RunTraces:
         """The run's metrics from everything taken so far (and the chromatograms kept)."""
         calibrants, expected = self.calibrants, self.expected
         signal_metrics = self.signal.summary(config.signal)
-        notes: list[str] = []
+        notes: list[str] = list(header.notes)
+        if self.damaged:
+            notes.append(damaged_note(self.damaged))
         drifts: tuple[CalibrantDrift, ...] = tuple(cal.summary() for cal in calibrants)
         if (
             chromatograms is not None
@@ -179,6 +185,7 @@ class RunTraces:
             mass_correction=mass_correction(drifts) if len(drifts) >= 2 else None,
             expected_ions=ions,
             notes=tuple(notes),
+            file_checks=FileChecks(checksum_ok=header.checksum_ok),
         )
 
 
@@ -272,9 +279,15 @@ def measure_file(
         max_inflated_bytes=config.limits.max_inflated_mb * 1024 * 1024,
         chromatograms=wish,
     ) as (header, scans):
-        metrics = measure_scans(header, scans, config, file_name=path.name, chromatograms=kept)
+        tally = _Tally(scans)
+        metrics = measure_scans(header, tally, config, file_name=path.name, chromatograms=kept)
     if metrics.signal.ms1_count + metrics.signal.ms2_count == 0 and kept.count == 0:
         raise ReadError(path, "no spectra or chromatograms in file", kind="empty")
+    if tally.count and tally.damaged == tally.count:
+        # Every spectrum empty for want of its arrays: nothing of the run could be read.
+        raise ReadError(
+            path, f"no spectrum can be read: {damaged_note(tally.damaged)}", kind="corrupt"
+        )
     return metrics
 
 
@@ -325,6 +338,30 @@ def _with_transitions(
     by_name, notes = transition_results(found, searchable=found.transition_count > 0)
     by_name.update((ion.name, ion) for ion in ions)
     return tuple(by_name[spec.ion.name] for spec in config.expected_ions), notes
+
+
+def damaged_note(count: int) -> str:
+    """The run's one note on spectra read as empty because their peak arrays were unusable."""
+    what = "spectrum" if count == 1 else "spectra"
+    return (
+        f"{count} {what} without usable peak arrays (an m/z or intensity array missing, or "
+        "fewer values than declared); counted as empty"
+    )
+
+
+class _Tally:
+    """The scans, passed through, counted: how many there were and how many were damaged."""
+
+    def __init__(self, scans: Iterable[Scan]) -> None:
+        self._scans = scans
+        self.count = 0
+        self.damaged = 0
+
+    def __iter__(self) -> Iterator[Scan]:
+        for scan in self._scans:
+            self.count += 1
+            self.damaged += scan.arrays_damaged
+            yield scan
 
 
 def _searched_ions(

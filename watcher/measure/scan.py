@@ -11,7 +11,7 @@ index-guided mzML reader does, to read a tenth of the bytes per MS2 header.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import numpy.typing as npt
@@ -43,6 +43,9 @@ class Scan:
     polarity: int | None = None  # +1, -1 or None
     mz: FloatArray | None = None  # sorted ascending (readers sort if needed)
     intensity: FloatArray | None = None
+    # The spectrum's peak arrays were missing or shorter than declared: it is read as empty
+    # (no peaks) and counted for the run's note, not a reason to refuse the whole file.
+    arrays_damaged: bool = False
 
 
 @dataclass(slots=True, kw_only=True)
@@ -52,3 +55,9 @@ class RunHeader:
     format: str  # "mzML", "mzML.gz", "mzXML", "MGF"
     acquired_at_iso: str | None = None  # run startTimeStamp as written, ISO-8601
     n_spectra_declared: int | None = None
+    # SHA-1 fileChecksum of an indexedmzML against its bytes; None: none written, or another
+    # format. Known once the scans are consumed (a .gz is hashed in the reading pass).
+    checksum_ok: bool | None = None
+    # What the reader had to work around in a whole file (a stale index); filled while the
+    # scans are consumed, read after the last one.
+    notes: list[str] = field(default_factory=list)

@@ -84,6 +84,8 @@ def metric_label(path: str) -> str:
         return "expected ions found"
     if path == "expected_ions.missing_count":
         return "expected ions missing"
+    if path == "file.checksum_ok":
+        return "file checksum matches"
     return path.replace(".", " ").replace("_", " ")
 
 
@@ -114,6 +116,8 @@ def advice(path: str) -> str:
         return _ADVICE_SIGNAL
     if family in ("expected_ion", "expected_ions"):
         return _ADVICE_QC_IONS
+    if family == "file":
+        return "the file changed after it was written: check how it was copied or edited"
     return "review this run"
 
 

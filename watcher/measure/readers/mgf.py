@@ -44,7 +44,7 @@ def _scan(spectrum: dict[str, Any], index: int) -> Scan:
     scan = Scan(
         index=index,
         ms_level=2,
-        rt_s=None if rt is None else float(rt),
+        rt_s=_rt_s(rt),
         tic=float(intensity.sum()),
         base_peak_mz=None,
         base_peak_intensity=None,
@@ -56,3 +56,11 @@ def _scan(spectrum: dict[str, Any], index: int) -> Scan:
         top = int(np.argmax(intensity))
         scan.base_peak_mz, scan.base_peak_intensity = float(mz[top]), float(intensity[top])
     return scan
+
+
+def _rt_s(value: Any) -> float | None:
+    """RTINSECONDS as seconds; a negative value (``RTINSECONDS=-1``) is a writer's "unknown"."""
+    if value is None:
+        return None
+    rt_s = float(value)
+    return None if rt_s < 0 else rt_s

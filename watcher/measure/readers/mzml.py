@@ -13,6 +13,7 @@ Never pyteomics' byte indexer, which is quadratic on crafted input (docs/reliabi
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
@@ -163,7 +164,11 @@ def scan_from_element(
     if not (want_arrays and ms_level == 1):
         return scan, False
     if arrays_element is None:
-        return scan, _declared_length(element) > 0
+        declared = _declared_length(element) > 0
+        # Values declared but no arrays at all: an empty spectrum, unless ``element`` is a
+        # header fragment (the caller then reads the whole element and asks again).
+        scan.arrays_damaged = declared
+        return scan, declared
     decode_arrays(arrays_element, scan, groups, where, _declared_length(element))
     return scan, False
 
@@ -196,7 +201,8 @@ def _read_scan_list(scan_list: Any, scan: Scan, groups: Groups, where: str) -> N
         if rt is not None:
             factor = _time_factor_s(rt)
             value = params.number(SCAN_START_TIME, where)
-            scan.rt_s = None if factor is None or value is None else value * factor
+            # A negative time is a writer's "unknown" (-1 is the usual sentinel), not a time.
+            scan.rt_s = None if factor is None or value is None or value < 0 else value * factor
         injection = params.values.get(INJECTION_TIME)
         if injection is not None:
             value = params.number(INJECTION_TIME, where)
@@ -301,14 +307,19 @@ def _decode_parts(
                 text, compression=compression, dtype=dtype, expected_length=expected
             )
         except ArrayDecodeError as exc:
-            raise SpectrumError(f"{where}: {_kind_name(kind)}: {exc}") from None
+            if not _shorter_than_declared(exc):
+                raise SpectrumError(f"{where}: {_kind_name(kind)}: {exc}") from None
+            # A writer that declared more values than it wrote (an empty <binary/> under a
+            # non-zero defaultArrayLength): the text decoded cleanly, so the file is sound and
+            # only this spectrum is empty. More values than declared stays an error: that is
+            # also how an inflate past the declared size (a zip bomb) shows.
+            scan.arrays_damaged = True
     mz = arrays.get(MZ_ARRAY)
     intensity = arrays.get(INTENSITY_ARRAY)
-    if mz is None or intensity is None:
-        if default_length == 0:
-            mz = intensity = np.zeros(0, dtype=np.float64)
-        else:
-            raise SpectrumError(f"{where}: m/z or intensity array missing")
+    if scan.arrays_damaged or mz is None or intensity is None:
+        # A spectrum without an m/z or intensity array has no peaks to read: empty, counted.
+        scan.arrays_damaged = scan.arrays_damaged or default_length > 0
+        mz = intensity = np.zeros(0, dtype=np.float64)
     if mz.size != intensity.size:
         raise SpectrumError(f"{where}: {mz.size} m/z values but {intensity.size} intensities")
     if mz.size > 1 and np.any(mz[1:] < mz[:-1]):
@@ -323,6 +334,15 @@ def _decode_parts(
             scan.base_peak_mz, scan.base_peak_intensity = float(mz[top]), float(intensity[top])
     elif scan.tic is None:
         scan.tic = 0.0
+
+
+_SHORT_RE = re.compile(r"array holds (\d+) values, (\d+) declared")
+
+
+def _shorter_than_declared(exc: ArrayDecodeError) -> bool:
+    """Whether ``decode_array`` refused an array only for holding fewer values than declared."""
+    found = _SHORT_RE.fullmatch(str(exc))
+    return found is not None and int(found.group(1)) < int(found.group(2))
 
 
 def _compression(params: _Params, where: str) -> str:

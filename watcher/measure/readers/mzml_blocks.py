@@ -16,6 +16,7 @@ from contextlib import ExitStack, contextmanager
 from typing import TYPE_CHECKING
 
 from watcher.errors import ReadError
+from watcher.intake import formats
 from watcher.intake.formats import sniff
 from watcher.measure.readers import mzml, safexml
 from watcher.measure.readers import mzml_index as mzmlindex
@@ -42,6 +43,8 @@ def block_bounds(
         found = sniff(path)
         if found.format != "mzML" or found.root != "indexedmzML":
             return None
+        if formats.index_problem(path) is not None:
+            return None  # stale offsets: the one-pass reader streams it, with its note
         fd = os.open(path, os.O_RDONLY)
         try:
             index = mzmlindex.load_offset_index(fd, os.fstat(fd).st_size)

@@ -18,9 +18,28 @@ if TYPE_CHECKING:
     from collections.abc import Iterator
 
 
+class _Reader(mzxml.MzXML):  # type: ignore[misc]
+    """pyteomics' sequential mzXML reader, except that a scan with an empty ``<peaks/>`` is a
+    scan without peaks: pyteomics 5.0 raises KeyError('m/z array') on it, which would make
+    the whole file unreadable for one empty scan (instrument software writes them for scans
+    that recorded nothing)."""
+
+    def _decode_peaks(self, info: dict[str, Any]) -> None:
+        peaks = info.get("peaks")
+        first = peaks[0] if isinstance(peaks, list) and peaks else peaks
+        if isinstance(peaks, dict | list) and not (
+            isinstance(first, dict) and all(k in first for k in self._array_keys)
+        ):
+            info.pop("peaks")
+            for key in self._array_keys:
+                info[key] = None
+            return
+        super()._decode_peaks(info)
+
+
 def read_scans(source: IO[bytes], *, want_arrays: bool) -> Iterator[Scan]:
     """Yield one Scan per ``<scan>``; arrays decoded only for MS1 when ``want_arrays``."""
-    with mzxml.read(source, use_index=False, decode_binary=False, huge_tree=False) as reader:
+    with _Reader(source, use_index=False, decode_binary=False, huge_tree=False) as reader:
         for index, record in enumerate(reader):
             yield _scan(record, index, want_arrays=want_arrays)
 
@@ -52,10 +71,12 @@ def _scan(record: dict[str, Any], index: int, *, want_arrays: bool) -> Scan:
     if want_arrays and ms_level == 1:
         mz = _decoded(record.get("m/z array"))
         intensity = _decoded(record.get("intensity array"))
-        if mz.size != intensity.size:
-            raise ValueError(
-                f"scan {record.get('num')}: {mz.size} m/z values, {intensity.size} intensities"
-            )
+        declared = _int(record.get("peaksCount"))
+        if mz.size != intensity.size or (declared is not None and mz.size < declared):
+            # Peaks missing or fewer than peaksCount says: the scan is read as empty and
+            # counted (RunMetrics notes), so one damaged scan does not lose the run.
+            scan.arrays_damaged = True
+            mz = intensity = np.zeros(0, dtype=np.float64)
         if mz.size > 1 and np.any(mz[1:] < mz[:-1]):
             order = np.argsort(mz, kind="stable")
             mz, intensity = mz[order], intensity[order]
@@ -78,10 +99,28 @@ def _decoded(record: Any) -> np.ndarray:
 def _rt_s(value: Any) -> float | None:
     if value is None:
         return None
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        # pyteomics leaves a duration it cannot convert as text: "-PT1S" is a negative one.
+        text = str(value).strip()
+        if text.startswith("-"):
+            return None
+        raise ValueError(f"retentionTime {text[:40]!r} is not an xs:duration") from None
+    if number < 0:
+        return None  # a negative time is a writer's "unknown" (-1 is the usual sentinel)
+    value = value if hasattr(value, "unit_info") else number
     unit = getattr(getattr(value, "unit_info", None), "lower", lambda: "minute")()
     # pyteomics converts the xs:duration (PT353.43S) to minutes and says so in unit_info.
     factor = 1.0 if unit.startswith("second") else 60.0
     return float(value) * factor
+
+
+def _int(value: Any) -> int | None:
+    try:
+        return None if value is None else int(value)
+    except (TypeError, ValueError):
+        return None
 
 
 def _float(value: Any) -> float | None:

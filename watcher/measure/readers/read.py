@@ -27,6 +27,7 @@ from typing import IO, TYPE_CHECKING, Any
 from lxml import etree  # type: ignore[import-untyped, unused-ignore]
 
 from watcher.errors import ReadError
+from watcher.intake import formats
 from watcher.intake.formats import GunzipCheck, sniff
 from watcher.measure.readers import mzml, mzml_chrom, safexml
 from watcher.measure.readers import mzml_index as mzmlindex
@@ -55,6 +56,7 @@ class ChromatogramWish:
     with_spectra: bool = False
 
 
+STALE_INDEX_NOTE = "index offsets are stale; read without the index"
 _PROGRESS_INTERVAL_S = 0.05  # at most ~20 progress calls per second
 _PATH_RE = re.compile(r"(?:[A-Za-z]:)?(?:[\\/][^\s'\"\\/:]+)+[\\/]([^\s'\"\\/:]+)")
 
@@ -153,7 +155,7 @@ def _open(
                 raise
             header = _mzml_header(found.format, pre)
             scans = _streamed(events, pre, want_arrays=ms1_arrays, wish=wish)
-            return header, _then_whole(path, scans, check)
+            return header, _then_whole(path, scans, check, header)
         gz = gzip.GzipFile(fileobj=_Counted(raw, throttle))
         stack.callback(gz.close)
         source: IO[bytes] = gz  # type: ignore[assignment]
@@ -169,6 +171,12 @@ def _open(
     pre = mzml.read_preamble(events)
     header = _mzml_header(found.format, pre)
     if found.format == "mzML" and found.root == "indexedmzML":
+        header.checksum_ok = formats.checksum_ok(path)
+        stale = formats.index_problem(path)
+        if stale is not None:
+            # Patched, CRLF-converted or merged files: whole, but their offsets point elsewhere.
+            header.notes.append(f"{STALE_INDEX_NOTE} ({stale})")
+            return header, _streamed(events, pre, want_arrays=ms1_arrays, wish=wish)
         fd = os.open(path, os.O_RDONLY)
         stack.callback(os.close, fd)
         index = mzmlindex.load_offset_index(fd, os.fstat(fd).st_size)
@@ -182,9 +190,34 @@ def _open(
                 on_offset=throttle.at,
             )
             return header, _with_fallback(
-                path, scans, stack, ms1_arrays=ms1_arrays, wish=wish, fd=fd, index=index, pre=pre
+                path,
+                scans,
+                stack,
+                header,
+                ms1_arrays=ms1_arrays,
+                wish=wish,
+                fd=fd,
+                index=index,
+                pre=pre,
             )
+        if _indexes_spectra(fd, os.fstat(fd).st_size):
+            # Offsets given but refused on loading (not ascending, past the index, spectra
+            # after the last one): a patched or merged file.
+            header.notes.append(f"{STALE_INDEX_NOTE} (spectrum offsets do not fit the file)")
     return header, _streamed(events, pre, want_arrays=ms1_arrays, wish=wish)
+
+
+_SPECTRUM_INDEX_RE = re.compile(rb'<index\s+name="spectrum"\s*>\s*<offset\s')
+_TAIL_OFFSET_RE = re.compile(rb"<indexListOffset>\s*(\d+)\s*</indexListOffset>")
+
+
+def _indexes_spectra(fd: int, size: int) -> bool:
+    """Whether the file's offset index lists any spectrum (an empty one doubts nothing)."""
+    found = _TAIL_OFFSET_RE.findall(os.pread(fd, 4096, max(0, size - 4096)))
+    if not found or not 0 < int(found[-1]) < size:
+        return False
+    at = int(found[-1])
+    return _SPECTRUM_INDEX_RE.search(os.pread(fd, min(size - at, 1 << 16), at)) is not None
 
 
 def _mzml_header(fmt: str, pre: mzml.Preamble) -> RunHeader:
@@ -218,6 +251,7 @@ def _with_fallback(
     path: Path,
     scans: Iterator[Scan],
     stack: ExitStack,
+    header: RunHeader,
     *,
     ms1_arrays: bool,
     wish: ChromatogramWish | None,
@@ -236,6 +270,9 @@ def _with_fallback(
             seen += 1
             yield scan
     except mzmlindex.IndexDoubt as doubt:
+        header.notes.append(
+            f"{STALE_INDEX_NOTE} (spectrum {doubt.position} is not at its indexed offset)"
+        )
         source = stack.enter_context(path.open("rb"))
         events = safexml.safe_iterparse(source, events=("start", "end"), tag=mzml.stream_tags())
         pre = mzml.read_preamble(events)
@@ -267,8 +304,14 @@ def _with_fallback(
         wish.add(chromatogram)
 
 
-def _then_whole(path: Path, scans: Iterator[Scan], check: GunzipCheck) -> Iterator[Scan]:
-    """The scans, then the rest of the gzip stream checked: a cut stream ends in a ReadError."""
+def _then_whole(
+    path: Path, scans: Iterator[Scan], check: GunzipCheck, header: RunHeader
+) -> Iterator[Scan]:
+    """The scans, then the rest of the gzip stream checked: a cut stream ends in a ReadError.
+
+    A whole stream then gives the inner file's checksum verdict and index note to ``header``
+    (a .mzML.gz is always streamed: its stale index costs nothing, but is said all the same).
+    """
     try:
         yield from scans
     except (GeneratorExit, MemoryError):
@@ -279,6 +322,10 @@ def _then_whole(path: Path, scans: Iterator[Scan], check: GunzipCheck) -> Iterat
         _raise_stream_problem(path, check)
         raise
     _raise_stream_problem(path, check)
+    header.checksum_ok = check.checksum_ok()
+    stale = check.index_problem()
+    if stale is not None:
+        header.notes.append(f"{STALE_INDEX_NOTE} ({stale})")
 
 
 def _raise_stream_problem(path: Path, check: GunzipCheck) -> None:
