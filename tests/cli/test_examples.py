@@ -107,6 +107,7 @@ def _schema_sections(schema: dict[str, Any]) -> dict[str, set[str]]:
         "channel": set(defs["channel"]["properties"]),
         "health_log": set(props["health_log"]["properties"]),
         "limits": set(props["limits"]["properties"]),
+        "maintenance": set(props["maintenance"]["items"]["properties"]),
     }
 
 

@@ -36,6 +36,7 @@ _SECTIONS: dict[str, tuple[type, ...]] = {
     "channel": (model.Channel,),
     "health_log": (model.HealthLog,),
     "limits": (model.Limits,),
+    "maintenance": (model.PlannedWindow,),
 }
 # Fields that hold a nested record rather than a key's value of their own.
 _NESTED = {(model.ExpectedIon, "ion")}
