@@ -18,7 +18,9 @@ if TYPE_CHECKING:
     from watcher.config.values import Values
     from watcher.config.yamllines import KeyPath
 
-_EVERY_RE = re.compile(r"^\s*(?P<days>[a-z,\-]+)\s+(?P<start>\d{1,2}:\d{2})\s*-\s*(?P<end>\d{1,2}:\d{2})\s*$")
+_EVERY_RE = re.compile(
+    r"^\s*(?P<days>[a-z,\-]+)\s+(?P<start>\d{1,2}:\d{2})\s*-\s*(?P<end>\d{1,2}:\d{2})\s*$"
+)
 _LOCAL_FORMS = ("%Y-%m-%d %H:%M", "%Y-%m-%dT%H:%M", "%Y-%m-%d %H:%M:%S", "%Y-%m-%dT%H:%M:%S")
 EVERY_FORM = '"DAYS HH:MM-HH:MM" with DAYS mon..sun, a list (sat,sun), a range (mon-fri) or daily'
 
