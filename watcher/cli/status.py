@@ -42,6 +42,7 @@ def collect(config: Config, state_dir: Path, *, now_s: float) -> dict[str, Any]:
             waiting = outbox.messages(
                 conn, statuses=(outbox.DeliveryStatus.PENDING, outbox.DeliveryStatus.ABANDONED)
             )
+            people = _people(conn, config, now_s, runs)
     finally:
         conn.close()
     masks = {c.name: masked_url(c, config.alerts) for c in config.alerts.channels}
@@ -52,7 +53,7 @@ def collect(config: Config, state_dir: Path, *, now_s: float) -> dict[str, Any]:
             return None
         return datetime.fromtimestamp(epoch_s, tz).isoformat(timespec="seconds")
 
-    return {
+    state = {
         "state_dir": str(state_dir),
         "instrument": config.instrument.name,
         "last_runs": [
@@ -112,6 +113,67 @@ def collect(config: Config, state_dir: Path, *, now_s: float) -> dict[str, Any]:
             or now_s - (m.finished_at_s or m.created_at_s) <= RECENT_ABANDONED_S
         ],
     }
+    return _with_people(state, people, alerts, local)
+
+
+def _people(conn: Any, config: Config, now_s: float, runs: list[Any]) -> dict[str, Any]:
+    """Acknowledgements, the silences and maintenance windows in force, and which of the last
+    runs were judged while their alerts were held back (still judged, recorded and shown)."""
+    from watcher.notify import quiet
+    from watcher.store import controls
+
+    instrument = config.instrument.name
+    acks = controls.acks(conn, instrument=instrument)
+    all_silences = controls.silences(conn, instrument=instrument)
+    periods = [quiet.silence_period(s) for s in all_silences]
+    if runs:
+        oldest = min(r.judged_at.timestamp() for r in runs)
+        periods += quiet.maintenance_periods(config, oldest, now_s + 1)
+    else:
+        periods += quiet.maintenance_periods(config, now_s, now_s + 1)
+    silenced_runs = {
+        r.run_id
+        for r in runs
+        if any(
+            p.covers(f.check, f.subject, r.judged_at.timestamp())
+            for f in r.findings
+            for p in periods
+        )
+    }
+    active = [p for p in periods if p.start_s <= now_s < p.end_s]
+    return {"acks": acks, "active": active, "silenced_runs": silenced_runs}
+
+
+def _with_people(
+    state: dict[str, Any], people: dict[str, Any], alerts: list[Any], local: Any
+) -> dict[str, Any]:
+    from watcher.store import controls
+
+    acked: dict[tuple[str, str], str] = {}
+    for a in alerts:
+        if a.state.acked_at_s is None:
+            continue
+        ack = controls.ack_of(people["acks"], a.check, a.subject, a.state.raised_at_s)
+        if ack is not None:
+            note = f": {ack.note}" if ack.note else ""
+            acked[(a.check, a.subject)] = f"acknowledged by {ack.by} at {local(ack.at_s)}{note}"
+    by_key = {(a.check, a.subject): a for a in alerts}
+    for problem, key in zip(state["open_problems"], list(dict.fromkeys(by_key)), strict=False):
+        problem["acknowledged"] = acked.get(key)
+    for entry in state["open_alerts"]:
+        entry["acknowledged"] = acked.get((entry["check"], entry["subject"]))
+    for run in state["last_runs"]:
+        run["silenced"] = run["run_id"] in people["silenced_runs"]
+    state["quiet_now"] = [
+        {
+            "source": p.source,
+            "until": local(p.end_s),
+            "reason": p.reason,
+            "scope": ", ".join(p.checks) or (p.subject or "every alert"),
+        }
+        for p in people["active"]
+    ]
+    return state
 
 
 def _open_problems(alerts: list[Any], local: Any) -> list[dict[str, Any]]:
@@ -178,6 +240,7 @@ def render(state: dict[str, Any]) -> str:
         lines.append("  (none yet)")
     for r in state["last_runs"]:
         extra = f"  {r['error']}" if r["error"] else ""
+        extra += "  (silenced)" if r.get("silenced") else ""
         lines.append(
             f"  {r['judged_at']}  {r['status']:<10} {r['file']}  findings {r['findings']}{extra}"
         )
@@ -202,6 +265,12 @@ def render(state: dict[str, Any]) -> str:
             f"  {p['severity']:<8} {p['check']}, {p['subject']}: {p['value']} since {p['since']}"
             f"{run} [{', '.join(p['channels'])}]"
         )
+        if p.get("acknowledged"):
+            lines.append(f"           {p['acknowledged']}: no reminders at this severity")
+    if state.get("quiet_now"):
+        lines += ["", "quiet now (alerts held back, runs still judged):"]
+        for q in state["quiet_now"]:
+            lines.append(f"  {q['source']}: {q['scope']} until {q['until']}, {q['reason']}")
     lines += ["", f"undelivered messages: {len(state['undelivered'])}"]
     for m in state["undelivered"]:
         lines.append(
