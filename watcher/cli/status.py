@@ -131,14 +131,16 @@ def _people(conn: Any, config: Config, now_s: float, runs: list[Any]) -> dict[st
         periods += quiet.maintenance_periods(config, oldest, now_s + 1)
     else:
         periods += quiet.maintenance_periods(config, now_s, now_s + 1)
+
+    def keys(run: Any) -> list[tuple[str, str]]:
+        # an unreadable run's alert is the pseudo-check "unreadable" on subject "file"
+        found = [(f.check, f.subject) for f in run.findings]
+        return [*found, ("unreadable", "file")] if str(run.status) == "unreadable" else found
+
     silenced_runs = {
         r.run_id
         for r in runs
-        if any(
-            p.covers(f.check, f.subject, r.judged_at.timestamp())
-            for f in r.findings
-            for p in periods
-        )
+        if any(p.covers(c, s, r.judged_at.timestamp()) for c, s in keys(r) for p in periods)
     }
     active = [p for p in periods if p.start_s <= now_s < p.end_s]
     return {"acks": acks, "active": active, "silenced_runs": silenced_runs}

@@ -140,6 +140,15 @@ def in_maintenance(config: Config, now_s: float) -> bool:
     )
 
 
+def quiet_queue_expected(config: Config, now_s: float, every_s: float) -> bool:
+    """Whether the no-run alert should hold: a maintenance window covering every check is open
+    now, or ended less than ``every_s`` ago (the wait for the next run starts at its end)."""
+    return any(
+        p.covers_all() and p.start_s <= now_s and now_s - p.end_s < every_s
+        for p in maintenance_periods(config, now_s - every_s, now_s + 1)
+    )
+
+
 def silence_period(silence: Silence) -> QuietPeriod:
     return QuietPeriod(
         start_s=silence.start_s,
