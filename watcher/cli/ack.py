@@ -71,6 +71,7 @@ def acknowledge(
                 raised_at_s=alert.state.raised_at_s,
                 by=by,
                 note=note,
+                run_file=alert.run_file,
             )
             controls.log_entry(
                 conn,

@@ -509,7 +509,9 @@ def build_digest(conn: sqlite3.Connection, config: Config, day: date) -> Digest:
     day_runs = _collect(conn, config, day)
     runs = day_runs.runs
     start, end = day_bounds(day, config.instrument.timezone)
-    day_controls = digest_controls.collect(conn, config, start, end)
+    day_controls = digest_controls.collect(
+        conn, config, start, end, run_files={r.file_name for r in runs}
+    )
     marks = day_controls.marks
     reset = controls.last_reset(conn, instrument=config.instrument.name, before=start)
     if reset is not None:  # the rules' baselines start again after the event, so do the charts'

@@ -18,6 +18,7 @@ from watcher.store import controls
 
 if TYPE_CHECKING:
     import sqlite3
+    from collections.abc import Collection
 
     from watcher.config import Config
     from watcher.notify.plots import Mark
@@ -75,15 +76,23 @@ def label(event: EventRow) -> str:
 
 
 def collect(
-    conn: sqlite3.Connection, config: Config, start: datetime, end: datetime
+    conn: sqlite3.Connection,
+    config: Config,
+    start: datetime,
+    end: datetime,
+    run_files: Collection[str] = (),
 ) -> DayControls:
-    """The controls of the day ``[start, end)`` (aware datetimes)."""
+    """The controls of the day ``[start, end)`` (aware datetimes). Acknowledgements are those
+    made that day and those of alerts the day's runs (``run_files``) raised, whenever made: the
+    night's alert acknowledged after midnight belongs to the night's digest."""
     tz = ZoneInfo(config.instrument.timezone)
     instrument = config.instrument.name
     notes = controls.notes_between(conn, instrument=instrument, start=start, end=end)
     start_s, end_s = start.timestamp(), end.timestamp()
     acks = [
-        a for a in controls.acks(conn, instrument=instrument, since_s=start_s) if a.at_s < end_s
+        a
+        for a in controls.acks(conn, instrument=instrument)
+        if start_s <= a.at_s < end_s or (a.run_file is not None and a.run_file in run_files)
     ]
     silences = controls.silences_between(conn, instrument=instrument, start_s=start_s, end_s=end_s)
     periods = [quiet.silence_period(s) for s in silences]

@@ -45,6 +45,7 @@ class Ack:
     raised_at_s: float  # the alert it was for: a later alert on the same key is a new one
     by: str
     note: str | None
+    run_file: str | None = None  # the run that raised the alert (the digest lists it that day)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -113,11 +114,12 @@ def add_ack(
     raised_at_s: float,
     by: str,
     note: str | None,
+    run_file: str | None = None,
 ) -> int:
     cur = conn.execute(
         "INSERT INTO acks (at_s, instrument, check_name, subject, severity, raised_at_s, by_name,"
-        " note) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
-        (at_s, instrument, check, subject, str(severity), raised_at_s, by, note),
+        " note, run_file) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+        (at_s, instrument, check, subject, str(severity), raised_at_s, by, note, run_file),
     )
     return int(cur.lastrowid or 0)
 
@@ -139,6 +141,7 @@ def acks(conn: sqlite3.Connection, *, instrument: str, since_s: float = 0.0) -> 
             raised_at_s=r["raised_at_s"],
             by=r["by_name"],
             note=r["note"],
+            run_file=r["run_file"],
         )
         for r in rows
     ]

@@ -95,7 +95,8 @@ MIGRATIONS: tuple[Migration, ...] = (
             severity TEXT NOT NULL,
             raised_at_s REAL NOT NULL,
             by_name TEXT NOT NULL,
-            note TEXT
+            note TEXT,
+            run_file TEXT
         );
         CREATE INDEX IF NOT EXISTS acks_by_key ON acks (instrument, check_name, subject, at_s);
         CREATE TABLE IF NOT EXISTS silences (
