@@ -132,14 +132,6 @@ def maintenance_periods(config: Config, from_s: float, to_s: float) -> list[Quie
     return sorted(out, key=lambda p: (p.start_s, p.end_s))
 
 
-def in_maintenance(config: Config, now_s: float) -> bool:
-    """Whether a maintenance window covering every check is open at ``now_s`` (no-run alert)."""
-    return any(
-        p.covers_all() and p.start_s <= now_s < p.end_s
-        for p in maintenance_periods(config, now_s, now_s + 1)
-    )
-
-
 def quiet_queue_expected(config: Config, now_s: float, every_s: float) -> bool:
     """Whether the no-run alert should hold: a maintenance window covering every check is open
     now, or ended less than ``every_s`` ago (the wait for the next run starts at its end)."""
