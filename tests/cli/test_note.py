@@ -121,8 +121,11 @@ def test_a_forecast_does_not_extrapolate_across_a_reset(tmp_path: Path) -> None:
 def test_note_refusals(tmp_path: Path) -> None:
     cfg = _lab(tmp_path, "lab")
     future = _cli(cfg, "note", "later", "--at", "2099-01-01 00:00")
-    assert future.returncode == 2 and "in the future" in future.stderr
+    assert future.returncode == 2
+    assert "in the future" in future.stderr
     bad = _cli(cfg, "note", "x", "--at", "yesterday")
-    assert bad.returncode == 2 and "--at" in bad.stderr
+    assert bad.returncode == 2
+    assert "--at" in bad.stderr
     kind = _cli(cfg, "note", "x", "--kind", "pump")
-    assert kind.returncode == 2 and "invalid choice: 'pump'" in kind.stderr
+    assert kind.returncode == 2
+    assert "invalid choice: 'pump'" in kind.stderr

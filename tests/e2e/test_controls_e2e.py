@@ -180,7 +180,8 @@ def test_silence_holds_every_message_and_summarizes_once(
     # raise drift, raise unreadable, clear both, raise drift again
     assert lines[4] == "5 alert change(s) were held back while quiet"
     assert message_kinds(lab) == ["summary"]
-    assert events(lab, "silence.added") and events(lab, "silence.ended")
+    assert events(lab, "silence.added")
+    assert events(lab, "silence.ended")
 
 
 def test_maintenance_window_holds_alerts_and_the_no_run_alert(
@@ -212,7 +213,8 @@ def test_maintenance_window_holds_alerts_and_the_no_run_alert(
     assert d.stop() == 0
     first = receiver.bodies[0]
     assert first["title"] == f"{INSTRUMENT}: QUIET TIME OVER, STILL OPEN"
-    assert "maintenance" in first["message"] and "source cleaning" in first["message"]
+    assert "maintenance" in first["message"]
+    assert "source cleaning" in first["message"]
     assert "STILL critical:" in first["message"]
     assert events(lab, "maintenance.ended")
 
@@ -233,10 +235,13 @@ def test_commands_refuse_what_does_not_exist(lab: Lab, receiver: Receiver) -> No
     assert "did you mean 'calibration drift'?" in typo.stderr
     assert cli(lab, "silence", "end", "42").returncode == 5
     other = cli(lab, "note", "column replaced", "--instrument", "Osprey-1")
-    assert other.returncode == 5 and "no instrument named 'Osprey-1'" in other.stderr
+    assert other.returncode == 5
+    assert "no instrument named 'Osprey-1'" in other.stderr
     unknown = cli(lab, "silence", "add", "--for", "1h", "--subject", "caffeine", "--reason", "x")
-    assert unknown.returncode == 5 and "no subject named 'caffeine'" in unknown.stderr
+    assert unknown.returncode == 5
+    assert "no subject named 'caffeine'" in unknown.stderr
     zero = cli(lab, "silence", "add", "--for", "0s", "--reason", "x")
-    assert zero.returncode == 2 and "--for" in zero.stderr
+    assert zero.returncode == 2
+    assert "--for" in zero.stderr
     assert d.stop() == 0
     assert json.loads(cli(lab, "silence", "list", "--json", "--all").stdout)["silences"] == []

@@ -124,7 +124,8 @@ def test_demo_acknowledges_an_alert_and_records_an_event(demo: tuple[Result, Pat
         for f in sorted((workdir / "state" / "health").glob("health-*.jsonl"))
         for line in f.read_text().splitlines()
     ]
-    assert "alert.acknowledged" in kinds and "note.recorded" in kinds
+    assert "alert.acknowledged" in kinds
+    assert "note.recorded" in kinds
     html = (workdir / "state" / "digest-2026-11-27.html").read_text()
     assert '<tr class="event"><td data-label="time">20:52</td>' in html
     assert "queued re-calibration ran" in html

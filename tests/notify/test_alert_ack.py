@@ -18,17 +18,22 @@ def test_acknowledged_alert_is_not_reminded_but_escalates_and_clears() -> None:
     warning = make_finding(Severity.WARNING, value=3.4)
     critical = make_finding(Severity.CRITICAL, value=6.1)
     state, action = machine.step(None, warning, 0.0, remind_every_s=HOUR_S)
-    assert action is AlertAction.RAISE and state is not None
+    assert action is AlertAction.RAISE
+    assert state is not None
     acked = machine.acknowledge(state, 60.0)
     assert acked.acked_at_s == 60.0
     # Same severity, long past the reminder period: nothing, from a run or from the timer.
     same, action = machine.step(acked, warning, 5 * HOUR_S, remind_every_s=HOUR_S)
-    assert action is None and same is not None and same.acked_at_s == 60.0
+    assert action is None
+    assert same is not None
+    assert same.acked_at_s == 60.0
     assert machine.remind_due(same, 9 * HOUR_S, remind_every_s=HOUR_S) == (same, None)
     # Worse: sent, and the acknowledgement lapses, so reminders resume at critical.
     worse, action = machine.step(same, critical, 10 * HOUR_S, remind_every_s=HOUR_S)
-    assert action is AlertAction.ESCALATE and worse is not None
-    assert worse.acked_at_s is None and worse.severity is Severity.CRITICAL
+    assert action is AlertAction.ESCALATE
+    assert worse is not None
+    assert worse.acked_at_s is None
+    assert worse.severity is Severity.CRITICAL
     _, action = machine.remind_due(worse, 11 * HOUR_S, remind_every_s=HOUR_S)
     assert action is AlertAction.REMIND
     # Fine again: cleared, with its message, acknowledged or not.
@@ -56,4 +61,6 @@ def test_a_lower_severity_keeps_the_acknowledgement() -> None:
     kept, action = machine.step(
         machine.acknowledge(state, 1.0), warning, 5 * HOUR_S, remind_every_s=HOUR_S
     )
-    assert action is None and kept is not None and kept.acked_at_s == 1.0
+    assert action is None
+    assert kept is not None
+    assert kept.acked_at_s == 1.0

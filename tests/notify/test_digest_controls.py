@@ -155,7 +155,8 @@ def test_the_digest_lists_and_draws_the_days_controls(state: Path) -> None:
     assert built.open_problems[0].acked is not None
     assert built.open_problems[0].acked.startswith("acknowledged by dana at 2026-03-10 08:45")
     # every chart of the day carries the event's mark
-    assert built.charts and all(len(_mark_columns(c.png)) == 1 for c in built.charts)
+    assert built.charts
+    assert all(len(_mark_columns(c.png)) == 1 for c in built.charts)
 
 
 @pytest.mark.skipif(browser.CHROMIUM is None, reason="chromium is not installed (CI installs it)")
@@ -168,6 +169,7 @@ def test_the_page_shows_the_events_in_chromium(state: Path, tmp_path: Path) -> N
     assert "Uncaught" not in dom.stderr
     assert dom.stdout.count('<tr class="event">') == 1
     assert "C18 column replaced (lot 4471)" in dom.stdout
-    assert '<li class="ack">' in dom.stdout and "recalibrating" in dom.stdout
+    assert '<li class="ack">' in dom.stdout
+    assert "recalibrating" in dom.stdout
     assert '<li class="quiet">silence 1:' in dom.stdout
     assert "(silenced)" in dom.stdout

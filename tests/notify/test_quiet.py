@@ -12,17 +12,17 @@ from datetime import UTC, datetime
 
 import pytest
 
-from watcher.config import load_config_text
+from watcher.config import Config, load_config_text
 from watcher.errors import ConfigError
 from watcher.notify import quiet
 
 BERLIN = "Europe/Berlin"
 
 
-def _config(every: str, tz: str = BERLIN) -> object:
+def _config(every: str, tz: str = BERLIN) -> Config:
     return load_config_text(
-        f'instrument: {{name: Kestrel-2 Q-TOF, timezone: {tz}}}\nmaintenance:\n  - every: "{every}"\n'
-        "    reason: weekly cleaning\n",
+        f"instrument: {{name: Kestrel-2 Q-TOF, timezone: {tz}}}\n"
+        f'maintenance:\n  - every: "{every}"\n    reason: weekly cleaning\n',
         source="lab.yaml",
     )
 
@@ -35,7 +35,7 @@ def test_window_across_midnight_and_the_autumn_change_is_five_real_hours() -> No
     """``sat 23:00-03:00`` on 24/25 Oct 2026: 23:00 CEST is 21:00 UTC; the clocks go back at
     01:00 UTC (03:00 CEST -> 02:00 CET), so 03:00 CET is 02:00 UTC: five hours."""
     config = _config("sat 23:00-03:00")
-    (window,) = config.maintenance  # type: ignore[attr-defined]
+    (window,) = config.maintenance
     spans = quiet.occurrences(window, BERLIN, _utc(2026, 10, 24, 12), _utc(2026, 10, 25, 12))
     assert spans == [(_utc(2026, 10, 24, 21), _utc(2026, 10, 25, 2))]
     # Inside the hour the clocks show twice (02:30 CEST = 00:30 UTC, 02:30 CET = 01:30 UTC)
@@ -46,7 +46,7 @@ def test_window_across_midnight_and_the_autumn_change_is_five_real_hours() -> No
         (_utc(2026, 10, 24, 20, 59), False),
         (_utc(2026, 10, 25, 2, 0), False),
     ):
-        periods = quiet.active_periods(config, [], at_s)  # type: ignore[arg-type]
+        periods = quiet.active_periods(config, [], at_s)
         assert (
             quiet.is_quiet(periods, "calibration drift", "calibrant.x.median_ppm", at_s) is inside
         )
@@ -55,7 +55,7 @@ def test_window_across_midnight_and_the_autumn_change_is_five_real_hours() -> No
 def test_window_across_midnight_and_the_spring_change_is_three_real_hours() -> None:
     """``sat 23:00-03:00`` on 28/29 Mar 2026: 23:00 CET is 22:00 UTC; 03:00 CEST is 01:00 UTC."""
     config = _config("sat 23:00-03:00")
-    (window,) = config.maintenance  # type: ignore[attr-defined]
+    (window,) = config.maintenance
     spans = quiet.occurrences(window, BERLIN, _utc(2026, 3, 28, 12), _utc(2026, 3, 29, 12))
     assert spans == [(_utc(2026, 3, 28, 22), _utc(2026, 3, 29, 1))]
 
@@ -63,7 +63,7 @@ def test_window_across_midnight_and_the_spring_change_is_three_real_hours() -> N
 def test_a_window_open_at_the_start_of_a_range_is_found() -> None:
     """A window that began the day before the range (it ends after midnight) still counts."""
     config = _config("daily 22:00-02:00", tz="UTC")
-    (window,) = config.maintenance  # type: ignore[attr-defined]
+    (window,) = config.maintenance
     spans = quiet.occurrences(window, "UTC", _utc(2026, 12, 3, 1), _utc(2026, 12, 3, 1, 1))
     assert spans == [(_utc(2026, 12, 2, 22), _utc(2026, 12, 3, 2))]
 
@@ -99,7 +99,8 @@ def test_bad_windows_name_the_file_line_and_key(every: str, fragment: str) -> No
     with pytest.raises(ConfigError) as err:
         load_config_text(text, source="lab.yaml")
     message = str(err.value)
-    assert "lab.yaml:3" in message and "maintenance[0].every" in message
+    assert "lab.yaml:3" in message
+    assert "maintenance[0].every" in message
     assert fragment in message
 
 
@@ -109,7 +110,8 @@ def test_one_off_window_needs_both_ends_in_order() -> None:
             'maintenance:\n  - {from: "2026-12-24 18:00", until: "2026-12-24 08:00"}\n',
             source="lab.yaml",
         )
-    assert "maintenance[0].until" in str(err.value) and "is not after from" in str(err.value)
+    assert "maintenance[0].until" in str(err.value)
+    assert "is not after from" in str(err.value)
     with pytest.raises(ConfigError) as err:
         load_config_text('maintenance:\n  - {from: "2026-12-24 18:00"}\n', source="lab.yaml")
     assert "both from and until" in str(err.value)

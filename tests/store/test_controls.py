@@ -3,14 +3,17 @@ version 4, and the history that starts again after a baseline-resetting event.""
 
 from __future__ import annotations
 
-import sqlite3
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from tests.helpers.records import make_metrics
 from tests.helpers.store import copy_fixture
 from watcher.records import RunFile, Status, TrendState, Verdict
 from watcher.store import controls, db, history, outbox
+
+if TYPE_CHECKING:
+    import sqlite3
 
 T0 = datetime(2026, 11, 27, 18, 0, tzinfo=UTC)
 PATH = "calibrant.siloxane-445.median_ppm"
@@ -121,7 +124,8 @@ def test_history_starts_again_after_a_resetting_note(tmp_path: Path) -> None:
     first_after = T0 + timedelta(hours=5)
     assert reset.trend_state("drift", PATH, before=first_after) is None
     state = reset.trend_state("drift", PATH, before=after)
-    assert state is not None and state.n_runs == 6
+    assert state is not None
+    assert state.n_runs == 6
     # Another instrument's event is not this one's.
     other = controls.ResettableHistory(conn, instrument="Osprey-1")
     assert len(other.series(PATH, before=after, limit=20)) == 6

@@ -125,15 +125,18 @@ def _add(args: argparse.Namespace, config: Config, now_s: float) -> int:
 
 
 def _list(args: argparse.Namespace, config: Config, now_s: float) -> int:
+    from watcher.config import state_dir_of
     from watcher.store import controls, db
 
     instrument = instrument_of(config, args.instrument)
-    conn = open_store(config, must_exist=False)
-    try:
-        with db.read(conn):
-            found = controls.silences(conn, instrument=instrument)
-    finally:
-        conn.close()
+    found: list[Silence] = []
+    if (state_dir_of(config) / db.DB_NAME).exists():  # a listing creates no store
+        conn = open_store(config, must_exist=True)
+        try:
+            with db.read(conn):
+                found = controls.silences(conn, instrument=instrument)
+        finally:
+            conn.close()
     rows = [describe(s, config.instrument.timezone, now_s) for s in found]
     if not args.all:
         rows = [r for r in rows if r["state"] in ("in force", "later")]
