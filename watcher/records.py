@@ -407,12 +407,15 @@ class AlertState:
         raised_at_s: epoch seconds of the raise.
         last_sent_at_s: epoch seconds of the last raise, escalation or reminder sent.
         finding: the latest finding behind the alert (reminders repeat its value).
+        acked_at_s: epoch seconds of a person's acknowledgement at ``severity``; None: not
+            acknowledged. An escalation drops it (the worse state is news again).
     """
 
     severity: Severity
     raised_at_s: float
     last_sent_at_s: float
     finding: Finding
+    acked_at_s: float | None = None
 
 
 def _jsonable(value: Any) -> Any:

@@ -109,6 +109,7 @@ def _schema_sections(schema: dict[str, Any]) -> dict[str, set[str]]:
         "limits": set(props["limits"]["properties"]),
         "central": set(props["central"]["properties"]),
         "convert": set(props["convert"]["properties"]),
+        "maintenance": set(props["maintenance"]["items"]["properties"]),
     }
 
 

@@ -41,11 +41,12 @@ _SECTIONS: dict[str, tuple[str, tuple[type, ...]]] = {
     "limits.": ("limits", (model.Limits,)),
     "central.": ("central", (model.Central,)),
     "convert.": ("convert", (model.Convert,)),
+    "maintenance[].": ("maintenance", (model.PlannedWindow,)),
 }
 # Keys that hold a section of their own (documented by their sub-keys) or a loader-only value.
 _SECTION_KEYS: dict[str, set[str]] = {
     "config": {"instrument", "watch", "calibrants", "expected_ions", "signal", "checks"}
-    | {"alerts", "health_log", "limits", "central", "convert"},
+    | {"alerts", "health_log", "limits", "central", "convert", "maintenance"},
     "check": {"baseline"},
     "alerts": {"channels"},
 }

@@ -66,3 +66,37 @@ def test_the_cli_refuses_a_store_from_a_newer_version_with_exit_2(tmp_path: Path
     done = run_cli("status", "-c", str(cfg), cwd=tmp_path)
     assert done.returncode == 2, done.stderr
     assert str(path) in done.stderr
+
+
+def test_the_upgraded_version_1_store_takes_an_acknowledgement(tmp_path: Path) -> None:
+    """On the committed v1 store, once the daemon upgraded it: ``ack`` marks its open alert, the
+    running daemon writes the health-log event, and ``status`` shows who acknowledged it."""
+    import io
+    from contextlib import redirect_stdout
+
+    from tests.helpers.wait import wait_for
+
+    copy_fixture(tmp_path / "state")
+    cfg = write_lab_config(tmp_path, health_log={"keep_days": 36500})
+    daemon = Daemon(config_mod.load(cfg))
+    daemon.start()
+    try:
+        assert cli_main(["ack", "-c", str(cfg), "--by", "dana", "--note", "on my way"]) == 0
+
+        def logged() -> bool:
+            daemon.step()
+            return any(
+                '"kind": "alert.acknowledged"' in line
+                for f in (tmp_path / "state" / "health").glob("health-*.jsonl")
+                for line in f.read_text().splitlines()
+            )
+
+        wait_for(logged, 10, "the acknowledgement in the health log")
+    finally:
+        daemon.close()
+    out = io.StringIO()
+    with redirect_stdout(out):
+        assert cli_main(["status", "-c", str(cfg), "--json"]) == 1  # still open, acknowledged
+    (problem,) = json.loads(out.getvalue())["open_problems"]
+    assert problem["acknowledged"].startswith("acknowledged by dana at ")
+    assert problem["acknowledged"].endswith(": on my way")

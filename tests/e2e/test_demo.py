@@ -107,3 +107,26 @@ def test_demo_writes_the_digest(demo: tuple[Result, Path]) -> None:
     assert "<script src=" not in html
     assert "http://" not in html
     assert "https://" not in html
+
+
+def test_demo_acknowledges_an_alert_and_records_an_event(demo: tuple[Result, Path]) -> None:
+    """The person on call acknowledges the drift warning (the escalation is still sent, the
+    order test above) and puts the re-calibration on the record: the daemon logs both, and the
+    digest lists the event and draws it on its charts."""
+    proc, workdir = demo
+    assert "$ ionwarden ack --check" in proc.stdout
+    assert "acknowledged: calibration drift, calibrant.siloxane-445.median_ppm (warning)" in (
+        proc.stdout
+    )
+    assert "event 1 recorded: calibration at 2026-11-27 20:52" in proc.stdout
+    kinds = [
+        json.loads(line).get("kind")
+        for f in sorted((workdir / "state" / "health").glob("health-*.jsonl"))
+        for line in f.read_text().splitlines()
+    ]
+    assert "alert.acknowledged" in kinds
+    assert "note.recorded" in kinds
+    html = (workdir / "state" / "digest-2026-11-27.html").read_text()
+    assert '<tr class="event"><td data-label="time">20:52</td>' in html
+    assert "queued re-calibration ran" in html
+    assert '<li class="ack">' in html

@@ -106,8 +106,9 @@ def test_one_message_per_run_gathers_all_findings(harness: Harness, receiver: Re
     )
     harness.run("QC_010.mzML", drift, missing)
     (body,) = receiver.wait_for(1)
-    *lines, id_line = body["message"].splitlines()  # the last line is the message's id
+    *lines, hint, id_line = body["message"].splitlines()  # the last line is the message's id
     assert id_line.startswith("id: kestrel-2-q-tof-")
+    assert hint.startswith("seen it? ionwarden ack -c ")  # how to quiet it, one line
     assert len(lines) == 3
     assert lines[1] == (
         "NEW critical: caffeine present, caffeine: not found"

@@ -165,9 +165,9 @@ def _check_one(
 
     history = None
     if conn is not None:
-        from watcher.store.history import StoreHistory
+        from watcher.store.controls import ResettableHistory
 
-        history = StoreHistory(conn)
+        history = ResettableHistory(conn, instrument=config.instrument.name)
     with ProgressBar(shown(path.name), enabled=None if show_progress else False) as bar:
         verdict = check_file(path, config, history=history, progress=bar)
     if record and conn is not None:

@@ -184,7 +184,9 @@ def main(args: argparse.Namespace) -> int:
             env={**os.environ, "PYTHONUNBUFFERED": "1"},
         )
         try:
-            code = _feed(queue, drop, exports, state_dir, daemon, fast=args.fast)
+            code = _feed(
+                queue, drop, exports, state_dir, daemon, fast=args.fast, config=config_path
+            )
             _wait_delivered(state_dir, receiver, daemon)
         finally:
             if daemon.poll() is None:
@@ -229,8 +231,10 @@ def _feed(
     daemon: subprocess.Popen[bytes],
     *,
     fast: bool,
+    config: Path,
 ) -> int:
-    """Hand the runs over one by one and print each verdict as the daemon records it."""
+    """Hand the runs over one by one and print each verdict as the daemon records it; after
+    the runs named in ``PEOPLE``, do what the person on call does (while the daemon runs)."""
     for item in queue:
         name = item["file"]
         stamp = datetime.fromisoformat(item["acquired_at"]).strftime("%H:%M")
@@ -250,9 +254,51 @@ def _feed(
                 return 3
             time.sleep(0.1)
         print(f"       {'':26s} judged   {status.upper()}", flush=True)
+        for command in PEOPLE.get(name, ()):
+            _person(command, config)
         if not fast:
             time.sleep(0.3)
     return 0
+
+
+# What the person on call does after these runs, as the commands they would type: the drift
+# warning is acknowledged (the escalation that follows is still sent), and the re-calibration
+# that ran before S05 is put on the record, so the digest's charts show why the drift stepped.
+PEOPLE: dict[str, tuple[tuple[str, ...], ...]] = {
+    "S04_plasma-A04.mzML": (
+        (
+            "ack",
+            "--check",
+            "calibration drift",
+            "--by",
+            "night operator",
+            "--note",
+            "re-calibration queued after the next QC",
+        ),
+    ),
+    "S05_plasma-A05.mzML": (
+        (
+            "note",
+            "queued re-calibration ran",
+            "--kind",
+            "calibration",
+            "--at",
+            "2026-11-27T20:52:00+01:00",
+            "--by",
+            "night operator",
+        ),
+    ),
+}
+
+
+def _person(command: tuple[str, ...], config: Path) -> None:
+    from watcher.cli import main as cli_main
+
+    shown = " ".join(f'"{part}"' if " " in part else part for part in command)
+    print(f"       {'':26s} $ ionwarden {shown}", flush=True)
+    code = cli_main([*command, "-c", str(config)])
+    if code != 0:
+        print(f"       {'':26s} (exit {code})", flush=True)
 
 
 def _wait_delivered(state_dir: Path, receiver: _Receiver, daemon: subprocess.Popen[bytes]) -> None:

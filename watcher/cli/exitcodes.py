@@ -23,5 +23,8 @@ class ExitCode(IntEnum):
     NO_INPUT = 4
     """``check``: a file named on the command line does not exist or cannot be opened (the
     other files are still checked and reported)."""
+    NO_TARGET = 5
+    """``ack``, ``silence``, ``note``: what the command names does not exist (no open alert, no
+    such check, instrument or silence); nothing was changed."""
     INTERRUPTED = 130
     """Interrupted (Ctrl-C)."""

@@ -59,6 +59,27 @@ EXIT_CODES: dict[str, tuple[tuple[ExitCode, str], ...]] = {
         (ExitCode.RUNTIME, "the demo's daemon exited or a run got no verdict in time"),
         (ExitCode.INTERRUPTED, "interrupted (Ctrl-C)"),
     ),
+    "ack": (
+        (ExitCode.OK, "the open alerts named are acknowledged (the daemon acts within a second)"),
+        (ExitCode.USAGE, _USAGE),
+        (ExitCode.RUNTIME, "no state database yet (the daemon never ran)"),
+        (ExitCode.NO_TARGET, "no such open alert, check, subject or instrument: nothing changed"),
+        (ExitCode.INTERRUPTED, "interrupted (Ctrl-C)"),
+    ),
+    "silence": (
+        (ExitCode.OK, "the silence is added, listed or ended"),
+        (ExitCode.USAGE, "a bad --for / --until time, or a config problem"),
+        (ExitCode.RUNTIME, "no state database yet (the daemon never ran)"),
+        (ExitCode.NO_TARGET, "no such silence, check, subject or instrument: nothing changed"),
+        (ExitCode.INTERRUPTED, "interrupted (Ctrl-C)"),
+    ),
+    "note": (
+        (ExitCode.OK, "the event is recorded (and marked on the digest charts)"),
+        (ExitCode.USAGE, "a bad --at time, or a config problem"),
+        (ExitCode.RUNTIME, "no state database yet (the daemon never ran)"),
+        (ExitCode.NO_TARGET, "no such instrument: nothing changed"),
+        (ExitCode.INTERRUPTED, "interrupted (Ctrl-C)"),
+    ),
 }
 
 

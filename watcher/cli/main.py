@@ -10,6 +10,8 @@ Exit codes (every command; each command's ``--help`` lists its own, from ``helpt
     2    usage or configuration error, a state database written by a newer ionwarden, or a
          damaged state database: a restart cannot fix it (systemd RestartPreventExitStatus=2)
     3    runtime failure (state folder unusable, alert channel refused, ...)
+    5    ``ack``, ``silence``, ``note``: the alert, check, subject, silence or instrument named
+         does not exist; nothing was changed
     130  interrupted (Ctrl-C)
 """
 
@@ -23,6 +25,7 @@ from typing import TYPE_CHECKING
 from watcher import __version__
 from watcher.cli import helptext
 from watcher.cli.exitcodes import ExitCode
+from watcher.config.model import NOTE_KINDS
 from watcher.errors import (
     ConfigError,
     DaemonRunningError,
@@ -43,6 +46,9 @@ _COMMANDS = {
     "digest": "watcher.cli.digest",
     "status": "watcher.cli.status",
     "demo": "watcher.cli.demo",
+    "ack": "watcher.cli.ack",
+    "silence": "watcher.cli.silence",
+    "note": "watcher.cli.note",
 }
 
 
@@ -128,6 +134,71 @@ def build_parser() -> argparse.ArgumentParser:
     config_arg(p, required=True)
     p.add_argument("--json", action="store_true", help="print the state as one JSON object")
     central_args(p)
+
+    def target_args(p: argparse.ArgumentParser) -> None:
+        p.add_argument(
+            "--instrument", metavar="N", help="the instrument (default: the config's instrument)"
+        )
+        p.add_argument("--check", metavar="C", help="only this check's alerts (default: all)")
+        p.add_argument(
+            "--subject",
+            metavar="S",
+            help="only alerts on this calibrant, expected ion or metric path (default: all)",
+        )
+
+    def by_arg(p: argparse.ArgumentParser) -> None:
+        p.add_argument("--by", metavar="NAME", help="who (default: your login name)")
+
+    p = command(
+        "ack",
+        "acknowledge open alerts: no reminders at this severity; a worse state and the "
+        "recovery are still sent",
+    )
+    config_arg(p, required=True)
+    target_args(p)
+    by_arg(p)
+    p.add_argument("--note", metavar="TEXT", help="what you are doing about it")
+
+    p = command("silence", "no alert messages for a while (runs are still judged and recorded)")
+    silence = p.add_subparsers(dest="silence_command", required=True, metavar="ACTION")
+    q = silence.add_parser("add", help="start a silence now")
+    config_arg(q, required=True)
+    target_args(q)
+    by_arg(q)
+    when = q.add_mutually_exclusive_group(required=True)
+    when.add_argument("--for", dest="for_", metavar="DURATION", help="e.g. 30min, 4h, 1h30min")
+    when.add_argument(
+        "--until",
+        metavar="TIME",
+        help='instrument time: 08:00 (the next one) or "YYYY-MM-DD HH:MM"',
+    )
+    q.add_argument("--reason", required=True, metavar="TEXT", help="why (shown in every summary)")
+    q = silence.add_parser("list", help="silences in force or still to come")
+    config_arg(q, required=True)
+    q.add_argument("--instrument", metavar="N", help="the instrument (default: the config's)")
+    q.add_argument("--all", action="store_true", help="also those that are over")
+    q.add_argument("--json", action="store_true", help="print the silences as JSON")
+    q = silence.add_parser("end", help="end a silence now; what is still open is sent once")
+    q.add_argument("id", type=int, metavar="ID")
+    config_arg(q, required=True)
+    q.add_argument("--instrument", metavar="N", help="the instrument (default: the config's)")
+
+    p = command(
+        "note", "record an event (column replaced, source cleaned...): marked on the digest charts"
+    )
+    p.add_argument("text", metavar="TEXT", help="what happened")
+    config_arg(p, required=True)
+    p.add_argument("--kind", choices=NOTE_KINDS, default="other", help="default: other")
+    p.add_argument(
+        "--at", metavar="TIME", help='instrument time: 14:30 or "YYYY-MM-DD HH:MM" (default: now)'
+    )
+    p.add_argument(
+        "--reset-baselines",
+        action="store_true",
+        help="baselines, Westgard/EWMA/CUSUM and forecasts start again from the runs after it",
+    )
+    p.add_argument("--instrument", metavar="N", help="the instrument (default: the config's)")
+    by_arg(p)
 
     p = command("demo", "the whole pipeline on the bundled demo runs")
     p.add_argument("--notify-url", metavar="URL", help="also send the alerts to this apprise URL")

@@ -43,6 +43,7 @@ def collect(config: Config, state_dir: Path, *, now_s: float) -> dict[str, Any]:
                 conn, statuses=(outbox.DeliveryStatus.PENDING, outbox.DeliveryStatus.ABANDONED)
             )
             queued = _central_queue(conn) if config.central.url is not None else None
+            people = _people(conn, config, now_s, runs)
     finally:
         conn.close()
     masks = {c.name: masked_url(c, config.alerts) for c in config.alerts.channels}
@@ -62,7 +63,7 @@ def collect(config: Config, state_dir: Path, *, now_s: float) -> dict[str, Any]:
             "waiting": queued[0],
             "oldest_queued": local(queued[1]),
         }
-    return {
+    state = {
         "state_dir": str(state_dir),
         "instrument": config.instrument.name,
         # entries not yet in the central store (central.url set), else None
@@ -124,6 +125,69 @@ def collect(config: Config, state_dir: Path, *, now_s: float) -> dict[str, Any]:
             or now_s - (m.finished_at_s or m.created_at_s) <= RECENT_ABANDONED_S
         ],
     }
+    return _with_people(state, people, alerts, local)
+
+
+def _people(conn: Any, config: Config, now_s: float, runs: list[Any]) -> dict[str, Any]:
+    """Acknowledgements, the silences and maintenance windows in force, and which of the last
+    runs were judged while their alerts were held back (still judged, recorded and shown)."""
+    from watcher.notify import quiet
+    from watcher.store import controls
+
+    instrument = config.instrument.name
+    acks = controls.acks(conn, instrument=instrument)
+    all_silences = controls.silences(conn, instrument=instrument)
+    periods = [quiet.silence_period(s) for s in all_silences]
+    if runs:
+        oldest = min(r.judged_at.timestamp() for r in runs)
+        periods += quiet.maintenance_periods(config, oldest, now_s + 1)
+    else:
+        periods += quiet.maintenance_periods(config, now_s, now_s + 1)
+
+    def keys(run: Any) -> list[tuple[str, str]]:
+        # an unreadable run's alert is the pseudo-check "unreadable" on subject "file"
+        found = [(f.check, f.subject) for f in run.findings]
+        return [*found, ("unreadable", "file")] if str(run.status) == "unreadable" else found
+
+    silenced_runs = {
+        r.run_id
+        for r in runs
+        if any(p.covers(c, s, r.judged_at.timestamp()) for c, s in keys(r) for p in periods)
+    }
+    active = [p for p in periods if p.start_s <= now_s < p.end_s]
+    return {"acks": acks, "active": active, "silenced_runs": silenced_runs}
+
+
+def _with_people(
+    state: dict[str, Any], people: dict[str, Any], alerts: list[Any], local: Any
+) -> dict[str, Any]:
+    from watcher.store import controls
+
+    acked: dict[tuple[str, str], str] = {}
+    for a in alerts:
+        if a.state.acked_at_s is None:
+            continue
+        ack = controls.ack_of(people["acks"], a.check, a.subject, a.state.raised_at_s)
+        if ack is not None:
+            note = f": {ack.note}" if ack.note else ""
+            acked[(a.check, a.subject)] = f"acknowledged by {ack.by} at {local(ack.at_s)}{note}"
+    by_key = {(a.check, a.subject): a for a in alerts}
+    for problem, key in zip(state["open_problems"], list(dict.fromkeys(by_key)), strict=False):
+        problem["acknowledged"] = acked.get(key)
+    for entry in state["open_alerts"]:
+        entry["acknowledged"] = acked.get((entry["check"], entry["subject"]))
+    for run in state["last_runs"]:
+        run["silenced"] = run["run_id"] in people["silenced_runs"]
+    state["quiet_now"] = [
+        {
+            "source": p.source,
+            "until": local(p.end_s),
+            "reason": p.reason,
+            "scope": ", ".join(p.checks) or (p.subject or "every alert"),
+        }
+        for p in people["active"]
+    ]
+    return state
 
 
 def _central_queue(conn: Any) -> tuple[int, float | None]:
@@ -196,6 +260,7 @@ def render(state: dict[str, Any]) -> str:
         lines.append("  (none yet)")
     for r in state["last_runs"]:
         extra = f"  {r['error']}" if r["error"] else ""
+        extra += "  (silenced)" if r.get("silenced") else ""
         lines.append(
             f"  {r['judged_at']}  {r['status']:<10} {r['file']}  findings {r['findings']}{extra}"
         )
@@ -220,6 +285,12 @@ def render(state: dict[str, Any]) -> str:
             f"  {p['severity']:<8} {p['check']}, {p['subject']}: {p['value']} since {p['since']}"
             f"{run} [{', '.join(p['channels'])}]"
         )
+        if p.get("acknowledged"):
+            lines.append(f"           {p['acknowledged']}: no reminders at this severity")
+    if state.get("quiet_now"):
+        lines += ["", "quiet now (alerts held back, runs still judged):"]
+        for q in state["quiet_now"]:
+            lines.append(f"  {q['source']}: {q['scope']} until {q['until']}, {q['reason']}")
     central = state.get("central")
     if central is not None:
         behind = f" (oldest queued {central['oldest_queued']})" if central["waiting"] else ""

@@ -38,6 +38,7 @@ _SECTIONS: dict[str, tuple[type, ...]] = {
     "limits": (model.Limits,),
     "central": (model.Central,),
     "convert": (model.Convert,),
+    "maintenance": (model.PlannedWindow,),
 }
 # Fields that hold a nested record rather than a key's value of their own.
 _NESTED = {(model.ExpectedIon, "ion")}

@@ -21,7 +21,7 @@ from watcher.records import Severity
 
 if TYPE_CHECKING:
     from collections.abc import Iterable, Sequence
-    from datetime import time
+    from datetime import datetime, time
 
 REGEX_PREFIX = "re:"  # an applies_to entry starting so is a regular expression, not a glob
 YAML_KEY = "yaml_key"  # field metadata: the YAML key, where it is not the field's name
@@ -411,6 +411,40 @@ class Central:
     )
 
 
+NOTE_KINDS: tuple[str, ...] = ("column", "source", "calibration", "other")
+"""Kinds of events on the record (``ionwarden note --kind``); ``reset_baselines_on`` names some."""
+
+WEEKDAYS: tuple[str, ...] = ("mon", "tue", "wed", "thu", "fri", "sat", "sun")  # date.weekday()
+
+
+@dataclass(frozen=True, slots=True)
+class Weekly:
+    """A recurring local time window: on each of ``days`` from ``start`` to ``end``.
+
+    ``end`` at or before ``start`` ends on the next day (``sat 23:00-03:00`` ends Sunday 03:00).
+    """
+
+    days: tuple[int, ...]  # 0 = Monday, as date.weekday()
+    start: time
+    end: time
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class PlannedWindow:
+    """A planned quiet time: recurring (``every``) or one-off (``from`` .. ``until``).
+
+    Times are the instrument's local wall-clock times. During a window the alerts of ``checks``
+    (all when empty) reach no channel, as under ``ionwarden silence``, and the no-run alert is off.
+    """
+
+    every: Weekly | None = None
+    from_at: datetime | None = field(default=None, metadata=_key("from"))  # naive: local time
+    until_at: datetime | None = field(default=None, metadata=_key("until"))  # naive: local time
+    reason: str = "maintenance"
+    checks: tuple[str, ...] = ()
+    line: int | None = field(default=None, metadata=_key(None))  # YAML line, for messages
+
+
 @dataclass(frozen=True, slots=True, kw_only=True)
 class Config:
     # the YAML file, None for built-in defaults
@@ -429,6 +463,9 @@ class Config:
     convert: Convert = field(default_factory=Convert)
     digest_at: time | None = None  # local time of day (YAML "07:30"): the daemon sends the digest
     log_keep_days: int = field(default=30, metadata=_within(1, 36_500))
+    maintenance: tuple[PlannedWindow, ...] = ()
+    # event kinds (NOTE_KINDS) whose note restarts baselines and trends, as --reset-baselines
+    reset_baselines_on: tuple[str, ...] = ()
 
 
 WESTGARD_RULES: tuple[str, ...] = ("1-2s", "1-3s", "2-2s", "R-4s", "4-1s", "10x")

@@ -12,6 +12,7 @@ from typing import TYPE_CHECKING, Any
 
 from watcher.config.checks import build_checks
 from watcher.config.keys import KEYS
+from watcher.config.maintenance import build_maintenance, build_reset_kinds
 from watcher.config.model import (
     CONVERT_PLACEHOLDERS,
     Alerts,
@@ -88,6 +89,9 @@ def build_config(v: Values, data: Any, source: Path) -> Config:
         "log_keep_days",
         lambda p, x: v.integer(p, x, range_of(Config, "log_keep_days")),
     )
+    checks_and_pseudo = {c.name for c in kw["checks"]} | {"unreadable", "heartbeat"}
+    kw["maintenance"] = build_maintenance(v, top.get("maintenance"), checks_and_pseudo)
+    v.put(kw, top, (), "reset_baselines_on", lambda p, x: build_reset_kinds(v, p, x))
     return Config(source=source, **kw)
 
 

@@ -50,6 +50,7 @@ EVENTS: frozenset[str] = frozenset(
         "alert.cleared",
         "alert.escalated",
         "alert.reminded",
+        "alert.held_back",
         "healthlog.pruned",
         "healthlog.write_failed",
         "healthlog.caught_up",

@@ -1,5 +1,8 @@
 """The heartbeat: no new run for ``expect_run_every`` during active hours is an event.
 
+It is off during a maintenance window that covers every check (``maintenance:`` in the config),
+and the wait starts again at the window's end: nobody queues runs during a planned stop.
+
 The state ("missed" raised or not) lives in the SQLite file, so a restart neither repeats the
 event nor forgets it; the next arrival clears it. The daemon's main loop calls ``check`` each
 tick and ``resume`` inside the transaction that queues new runs.
@@ -13,6 +16,7 @@ from zoneinfo import ZoneInfo
 
 import structlog
 
+from watcher.notify import quiet
 from watcher.records import DaemonEvent
 from watcher.store import db, jobs
 
@@ -53,6 +57,8 @@ def check(
         return
     if not in_active_hours(now_s, config.instrument.timezone, config.alerts.active_hours):
         return
+    if config.maintenance and quiet.quiet_queue_expected(config, now_s, every_s):
+        return  # a planned stop: no runs are expected (the silence of the queue is the plan)
     if jobs.get_state(conn, STATE_KEY) == "1":
         return
     silent_s = round(now_s - last_arrival_s)

@@ -34,7 +34,7 @@ from watcher.daemon import cgroup, convert
 from watcher.daemon.child import HEADER, READY, frame
 from watcher.intake import folderwalk, vendor
 from watcher.records import DaemonEvent, RunFile, RunMetrics, Status, Verdict, run_time, shown
-from watcher.store import db, history, jobs
+from watcher.store import controls, db, history, jobs
 
 if TYPE_CHECKING:
     import sqlite3
@@ -638,7 +638,8 @@ class Pipeline:
             file_name=run_file.path.name,
             acquired_at=acquired_at,
             checks=config.checks,
-            history=history.StoreHistory(self.conn),
+            # the history starts again after an event that resets baselines (ionwarden note)
+            history=controls.ResettableHistory(self.conn, instrument=config.instrument.name),
         )
         return Verdict(
             run_file=run_file,

@@ -51,8 +51,15 @@ def step(
     if finding is None:
         return None, AlertAction.CLEAR
     if finding.severity.rank > previous.severity.rank:
+        # An acknowledgement holds at the severity it was given for: a worse state is news.
         return (
-            replace(previous, severity=finding.severity, last_sent_at_s=now_s, finding=finding),
+            replace(
+                previous,
+                severity=finding.severity,
+                last_sent_at_s=now_s,
+                finding=finding,
+                acked_at_s=None,
+            ),
             AlertAction.ESCALATE,
         )
     # Same or lower severity: still open. A drop does not lower ``severity``, so flapping between
@@ -64,10 +71,25 @@ def step(
 def remind_due(
     state: AlertState, now_s: float, *, remind_every_s: float | None
 ) -> tuple[AlertState, AlertAction | None]:
-    """A reminder when ``remind_every_s`` has passed since the last send (runs and ``tick()``)."""
+    """A reminder when ``remind_every_s`` has passed since the last send (runs and ``tick()``).
+
+    An acknowledged alert is never reminded of: a person said they have seen it.
+    """
+    if state.acked_at_s is not None:
+        return state, None
     if remind_every_s is None or now_s - state.last_sent_at_s < remind_every_s:
         return state, None
     return replace(state, last_sent_at_s=now_s), AlertAction.REMIND
+
+
+def acknowledge(state: AlertState, now_s: float) -> AlertState:
+    """The alert acknowledged now, at its current severity (again: the time of the latest)."""
+    return replace(state, acked_at_s=now_s)
+
+
+def summary_sent(state: AlertState, now_s: float) -> AlertState:
+    """The alert as told once more in the summary at a silence's end: reminders count from now."""
+    return replace(state, last_sent_at_s=now_s)
 
 
 def passes(channel: Channel, finding: Finding) -> bool:

@@ -12,13 +12,13 @@ import base64
 import html
 import statistics
 from collections import Counter
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from datetime import UTC, date, datetime, time, timedelta
 from typing import TYPE_CHECKING
 from zoneinfo import ZoneInfo
 
 from watcher.config import BaselineSpec, Check, Config
-from watcher.notify import plots
+from watcher.notify import digest_controls, plots
 from watcher.notify.alert_text import limit_words, subject_words, value_words
 from watcher.records import STATUS_RANK, Status
 from watcher.rules.baseline import Baseline, from_spec
@@ -52,6 +52,7 @@ class FindingRow:
     limit: str
     rule: str
     message: str
+    silenced: bool = False  # judged while a silence or maintenance window held its alert back
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -77,6 +78,7 @@ class OpenProblem:
     value: str
     since: str  # local "YYYY-MM-DD HH:MM"
     run_file: str | None
+    acked: str | None = None  # "acknowledged by NAME at HH:MM", while it stays at that severity
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -103,6 +105,7 @@ class Digest:
     worst: str = "ok"  # the worst run status of the day ("none" without runs)
     open_problems: tuple[OpenProblem, ...] = ()
     to_review: tuple[ReviewRun, ...] = ()
+    controls: digest_controls.DayControls = field(default_factory=digest_controls.DayControls)
 
 
 # -- reading the history ----------------------------------------------------------------------
@@ -222,9 +225,14 @@ def _collect(conn: sqlite3.Connection, config: Config, day: date) -> _DayRuns:
     )
 
 
-def _finding_rows(runs: Sequence[RunRow], tz: ZoneInfo) -> list[FindingRow]:
+def _finding_rows(
+    runs: Sequence[RunRow],
+    tz: ZoneInfo,
+    day_controls: digest_controls.DayControls | None = None,
+) -> list[FindingRow]:
     rows: list[FindingRow] = []
     for run in runs:
+        judged_s = run.judged_at.timestamp()
         when = run.acquired_at.astimezone(tz).strftime("%H:%M")
         for f in run.findings:
             rows.append(
@@ -239,6 +247,8 @@ def _finding_rows(runs: Sequence[RunRow], tz: ZoneInfo) -> list[FindingRow]:
                     limit=with_unit(f.limit, f.metric),
                     rule=f.rule,
                     message=f.message,
+                    silenced=day_controls is not None
+                    and day_controls.silenced(f.check, f.subject, judged_s),
                 )
             )
     return rows
@@ -309,9 +319,11 @@ def _levey_jennings(
     title: str,
     ylabel: str = "median mass error (ppm)",
     limits: Sequence[tuple[float, str]] = (),
+    marks: Sequence[plots.Mark] = (),
 ) -> bytes:
     return plots.levey_jennings(
         [(p[0].astimezone(tz), p[1]) for p in points],
+        marks=marks,
         limits=limits,
         mean=baseline.centre if baseline is not None else None,
         sd=baseline.sd if baseline is not None and baseline.sd > 0 else None,
@@ -352,8 +364,11 @@ def _found_line(
     ]
 
 
-def _run_charts(config: Config, runs: Sequence[RunRow], tz: ZoneInfo) -> list[Chart]:
-    """TIC, expected-ion intensity and RT, and the status timeline of the day."""
+def _run_charts(
+    config: Config, runs: Sequence[RunRow], tz: ZoneInfo, marks: Sequence[plots.Mark] = ()
+) -> list[Chart]:
+    """TIC, expected-ion intensity and RT, and the status timeline of the day; every chart
+    carries the day's events on the record as labelled vertical marks."""
     charts = [
         Chart(
             title="TIC (median MS1 total ion current) per run",
@@ -362,6 +377,7 @@ def _run_charts(config: Config, runs: Sequence[RunRow], tz: ZoneInfo) -> list[Ch
                 title="TIC",
                 ylabel="TIC (counts)",
                 log_y=True,
+                marks=marks,
             ),
             kind="tic",
         )
@@ -380,6 +396,7 @@ def _run_charts(config: Config, runs: Sequence[RunRow], tz: ZoneInfo) -> list[Ch
                     ylabel="apex intensity (counts)",
                     log_y=True,
                     missing=missing,
+                    marks=marks,
                 ),
                 kind="ion-intensity",
             )
@@ -388,7 +405,11 @@ def _run_charts(config: Config, runs: Sequence[RunRow], tz: ZoneInfo) -> list[Ch
             Chart(
                 title="Expected ions: apex retention time per run (x: not found)",
                 png=plots.series(
-                    apex_rt_min, title="apex RT", ylabel="apex RT (min)", missing=missing
+                    apex_rt_min,
+                    title="apex RT",
+                    ylabel="apex RT (min)",
+                    missing=missing,
+                    marks=marks,
                 ),
                 kind="ion-rt",
             )
@@ -397,7 +418,9 @@ def _run_charts(config: Config, runs: Sequence[RunRow], tz: ZoneInfo) -> list[Ch
     charts.append(
         Chart(
             title="Run status over the day",
-            png=plots.status_timeline(timeline, title="status", names=[r.file_name for r in runs]),
+            png=plots.status_timeline(
+                timeline, title="status", names=[r.file_name for r in runs], marks=marks
+            ),
             kind="status",
         )
     )
@@ -408,13 +431,21 @@ def _open_problems(
     conn: sqlite3.Connection, config: Config, tz: ZoneInfo
 ) -> tuple[OpenProblem, ...]:
     """The alerts open now, one per (check, subject) however many channels hold it."""
-    from watcher.store import outbox
+    from watcher.store import controls, outbox
 
     seen: dict[tuple[str, str], OpenProblem] = {}
+    acks = controls.acks(conn, instrument=config.instrument.name)
     for alert in outbox.load_alerts(conn, instrument=config.instrument.name):
         key = (alert.check, alert.subject)
         finding = alert.state.finding
         since = datetime.fromtimestamp(alert.state.raised_at_s, tz).strftime("%Y-%m-%d %H:%M")
+        ack = controls.ack_of(acks, alert.check, alert.subject, alert.state.raised_at_s)
+        acked = (
+            f"acknowledged by {ack.by} at "
+            f"{datetime.fromtimestamp(ack.at_s, tz).strftime('%Y-%m-%d %H:%M')}"
+            if ack is not None and alert.state.acked_at_s is not None
+            else None
+        )
         problem = OpenProblem(
             check=alert.check,
             subject=subject_words(alert.subject),
@@ -422,6 +453,7 @@ def _open_problems(
             value=value_words(finding.metric, finding.value),
             since=since,
             run_file=alert.run_file,
+            acked=acked,
         )
         if key not in seen or problem.since < seen[key].since:
             seen[key] = problem
@@ -474,9 +506,21 @@ def build_digest(conn: sqlite3.Connection, config: Config, day: date) -> Digest:
         config: the lab config (instrument, calibrants, expected ions, checks).
         day: the day in the instrument's time zone.
     """
+    from watcher.store import controls
+
     tz = ZoneInfo(config.instrument.timezone)
     day_runs = _collect(conn, config, day)
     runs = day_runs.runs
+    start, end = day_bounds(day, config.instrument.timezone)
+    day_controls = digest_controls.collect(
+        conn, config, start, end, run_files={r.file_name for r in runs}
+    )
+    marks = day_controls.marks
+    reset = controls.last_reset(conn, instrument=config.instrument.name, before=start)
+    if reset is not None:  # the rules' baselines start again after the event, so do the charts'
+        day_runs = _DayRuns(
+            runs=runs, earlier=[r for r in day_runs.earlier if r.acquired_at >= reset]
+        )
     charts: list[Chart] = []
     summaries: list[CalibrantSummary] = []
     for cal in config.calibrants:
@@ -491,12 +535,14 @@ def build_digest(conn: sqlite3.Connection, config: Config, day: date) -> Digest:
                 Chart(
                     title=f"Levey-Jennings: {cal.name} median ppm, {_covers(check)} "
                     f"(baseline: {source})",
-                    png=_levey_jennings(points, baseline, tz, title=title, limits=_limits(check)),
+                    png=_levey_jennings(
+                        points, baseline, tz, title=title, limits=_limits(check), marks=marks
+                    ),
                     kind="levey-jennings",
                 )
             )
     if runs:
-        charts.extend(_run_charts(config, runs, tz))
+        charts.extend(_run_charts(config, runs, tz, marks))
     worst = max((r.status for r in runs), key=lambda st: STATUS_RANK[st], default=None)
     return Digest(
         day=day,
@@ -505,7 +551,7 @@ def build_digest(conn: sqlite3.Connection, config: Config, day: date) -> Digest:
         run_count=len(runs),
         by_status=dict(Counter(str(r.status) for r in runs)),
         calibrants=tuple(summaries),
-        findings=tuple(_finding_rows(runs, tz)),
+        findings=tuple(_finding_rows(runs, tz, day_controls)),
         unreadable=tuple(
             (r.file_name, r.error or "unreadable") for r in runs if r.status is Status.UNREADABLE
         ),
@@ -513,6 +559,7 @@ def build_digest(conn: sqlite3.Connection, config: Config, day: date) -> Digest:
         worst="none" if worst is None else str(worst),
         open_problems=_open_problems(conn, config, tz),
         to_review=_to_review(runs, tz),
+        controls=day_controls,
     )
 
 
@@ -572,7 +619,11 @@ def render_text(d: Digest) -> str:
     for r in d.to_review:
         lines.append(f"  decide: {r.time} {r.file} {r.status}: {r.why}")
     for o in d.open_problems:
-        lines.append(f"  open: {o.check}, {o.subject}: {o.value} ({o.severity} since {o.since})")
+        acked = f", {o.acked}" if o.acked else ""
+        lines.append(
+            f"  open: {o.check}, {o.subject}: {o.value} ({o.severity} since {o.since}{acked})"
+        )
+    lines.extend(digest_controls.text_lines(d.controls))
     lines.append(f"runs: {d.run_count} ({_counts(d)})")
     for c in d.calibrants:
         lines.append(
@@ -583,7 +634,7 @@ def render_text(d: Digest) -> str:
     for f in d.findings[:20]:
         lines.append(
             f"  {f.time} {f.file} {f.severity} {f.check}, {f.subject}: {f.value} "
-            f"({f.limit}, {f.rule})"
+            f"({f.limit}, {f.rule})" + (" [silenced]" if f.silenced else "")
         )
     if len(d.findings) > 20:
         lines.append(f"  ... and {len(d.findings) - 20} more (see the HTML page)")
@@ -632,6 +683,7 @@ def _verdict_html(d: Digest) -> list[str]:
             f'<li class="{e(o.severity)}">{e(o.check)}, {e(o.subject)}: {e(o.value)} '
             f"({e(o.severity)} since {e(o.since)}"
             + (f", {e(o.run_file)}" if o.run_file else "")
+            + (f", {e(o.acked)}" if o.acked else "")
             + ")</li>"
             for o in d.open_problems
         )
@@ -689,7 +741,9 @@ def render_html(d: Digest) -> str:
             parts.append(
                 f'<tr class="finding"><td data-label="time">{e(f.time)}</td>'
                 f'<td data-label="file">{e(f.file)}</td>'
-                f'<td class="{e(f.severity)}" data-label="severity">{e(f.severity)}</td>'
+                f'<td class="{e(f.severity)}" data-label="severity">{e(f.severity)}'
+                + (" (silenced)" if f.silenced else "")
+                + "</td>"
                 f'<td data-label="check">{e(f.check)}</td>'
                 f'<td data-label="subject">{e(f.subject)}</td>'
                 f'<td class="num" data-label="value">{e(f.value)}</td>'
@@ -706,6 +760,7 @@ def render_html(d: Digest) -> str:
             f'<li class="unreadable">{e(name)}: {e(error)}</li>' for name, error in d.unreadable
         )
         parts.append("</ul>")
+    parts.extend(digest_controls.html_parts(d.controls))
     parts.append("<h2>Charts</h2>")
     for chart in d.charts:
         data = base64.b64encode(chart.png).decode("ascii")

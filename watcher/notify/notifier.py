@@ -16,7 +16,9 @@ from zoneinfo import ZoneInfo
 import structlog
 
 from watcher.notify import alert_state as machine
+from watcher.notify import controls
 from watcher.notify.alert_text import Item, Text, compose
+from watcher.notify.control_text import with_quiet_hint
 from watcher.notify.healthlog import HealthLog
 from watcher.records import AlertAction, DaemonEvent, Finding, Severity, Status, Verdict, shown
 from watcher.store import db, jobs, outbox
@@ -340,6 +342,7 @@ class Notifier:
         if remind_every_s is not None and self.config.alerts.channels:
             with db.write(conn):
                 self._remind(conn, now_s, remind_every_s)
+        controls.tick(conn, self.config, now_s, write_event=self.write_event)
         if self.config.digest_at:
             self._maybe_digest(conn, now_s)
         if self._last_prune_s is None or now_s - self._last_prune_s >= _PRUNE_EVERY_S:
@@ -444,15 +447,20 @@ class Notifier:
                     now_known=now_known,
                 )
             )
+        # Silences and maintenance windows: stepped as always, but held back from the channel.
+        items = controls.hold_back(conn, self.config, channel, items, now_s, run_file=run_file)
         # Worst first, so the phone's preview line shows what matters.
         items.sort(key=lambda i: (i.action is AlertAction.CLEAR, -i.finding.severity.rank))
         return items
 
     def _remind(self, conn: sqlite3.Connection, now_s: float, remind_every_s: float) -> None:
         instrument = self.config.instrument.name
+        quiet = controls.quiet_now(conn, self.config, now_s)
         for channel in self.config.alerts.channels:
             items: list[Item] = []
             for alert in outbox.load_alerts(conn, instrument=instrument, channel=channel.name):
+                if quiet(alert.check, alert.subject):
+                    continue  # the silence's end tells it once
                 state, action = machine.remind_due(
                     alert.state, now_s, remind_every_s=remind_every_s
                 )
@@ -549,7 +557,7 @@ class Notifier:
             ref=ref,
             created_at_s=now_s,
             title=text.title,
-            body=text.body,
+            body=with_quiet_hint(text.body, items, self.config.source),
             notify_type=text.notify_type,
             plot_metric=plot_metric,
         )

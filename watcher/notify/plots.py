@@ -22,6 +22,9 @@ if TYPE_CHECKING:
     from matplotlib.axes import Axes
 
 Point = tuple[datetime, float]
+Mark = tuple[datetime, str]  # an event on the record: its local time and its label
+
+MARK_COLOUR = "#00838f"  # events' vertical lines: a teal no status or limit uses
 
 STATUS_COLOURS = {
     "ok": "#2e7d32",
@@ -56,6 +59,28 @@ def _x(times: Sequence[datetime]) -> list[float]:
     return [float(date2num(t.replace(tzinfo=None))) for t in times]  # type: ignore[no-untyped-call]
 
 
+def event_marks(ax: Axes, marks: Sequence[Mark]) -> None:
+    """Each event as a vertical line at its time, labelled at the top of the plot area.
+
+    Drawn after the data, so the axis limits are the data's; an event outside them still shows
+    (matplotlib widens the view), which is what a column change just before the day needs.
+    """
+    for n, (at, label) in enumerate(marks):
+        x = _x([at])[0]
+        ax.axvline(x, color=MARK_COLOUR, linewidth=1.6, linestyle="-", zorder=5)
+        ax.annotate(
+            label,
+            xy=(x, 1.0),
+            xycoords=("data", "axes fraction"),
+            xytext=(3, -10 - 9 * (n % 3)),  # staggered: events close in time stay legible
+            textcoords="offset points",
+            fontsize=7,
+            color=MARK_COLOUR,
+            ha="left",
+            va="top",
+        )
+
+
 def _png(fig: Figure) -> bytes:
     FigureCanvasAgg(fig)
     buf = io.BytesIO()
@@ -78,6 +103,7 @@ def levey_jennings(
     ylabel: str = "median ppm",
     statuses: Sequence[str] | None = None,
     limits: Sequence[tuple[float, str]] = (),
+    marks: Sequence[Mark] = (),
 ) -> bytes:
     """A Levey-Jennings chart: one value per run with the mean and ±2 SD / ±3 SD lines.
 
@@ -88,6 +114,7 @@ def levey_jennings(
             to colour the markers; a legend names the colours.
         limits: the lab's fixed limits as (value, "warning" or "critical"), drawn as bold
             horizontal lines with their value, with or without a baseline.
+        marks: events on the record (``ionwarden note``), drawn as labelled vertical lines.
     """
     fig, ax = _figure(title)
     xs = _x([p[0] for p in points])
@@ -138,6 +165,7 @@ def levey_jennings(
             ha="left",
             va="center",
         )
+    event_marks(ax, marks)
     if ax.get_legend_handles_labels()[0]:
         ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.04, 1.0), borderaxespad=0)
     ax.set_ylabel(ylabel, fontsize=8)
@@ -160,6 +188,7 @@ def series(
     ylabel: str,
     log_y: bool = False,
     missing: Mapping[str, Sequence[datetime]] | None = None,
+    marks: Sequence[Mark] = (),
 ) -> bytes:
     """One or more named series over run time (TIC, ion intensities, apex RT).
 
@@ -172,12 +201,12 @@ def series(
     markers = "osD^v<>P*X"
     gaps = missing or {}
     for n, (name, points) in enumerate(lines.items()):
-        marks = sorted(gaps.get(name, ()))
-        if not points and not marks:
+        absent = sorted(gaps.get(name, ()))
+        if not points and not absent:
             continue
         any_points = True
         # A None value at each missing run breaks the line there (matplotlib skips NaN).
-        merged = sorted([(t, v) for t, v in points] + [(t, float("nan")) for t in marks])
+        merged = sorted([(t, v) for t, v in points] + [(t, float("nan")) for t in absent])
         (line,) = ax.plot(
             _x([p[0] for p in merged]),
             [p[1] for p in merged],
@@ -185,10 +214,10 @@ def series(
             markersize=3.5,
             label=name,
         )
-        if marks:
+        if absent:
             ax.scatter(
-                _x(marks),
-                [0.02] * len(marks),
+                _x(absent),
+                [0.02] * len(absent),
                 transform=ax.get_xaxis_transform(),
                 marker="x",
                 s=40,
@@ -202,6 +231,7 @@ def series(
     elif log_y:
         # Counts within one decade: a log axis only labels "9 x 10^5"-style minor ticks there.
         ax.yaxis.set_major_formatter(EngFormatter(sep=" "))
+    event_marks(ax, marks)
     if any_points:
         _dates(ax)
         if len(lines) > 1 or gaps:
@@ -216,6 +246,7 @@ def status_timeline(
     *,
     title: str,
     names: Sequence[str] | None = None,
+    marks: Sequence[Mark] = (),
 ) -> bytes:
     """Each run as a mark at its time, on the row of its status; with ``names`` (one per point)
     each mark is labelled with its run's file name (up to 40 runs; more would not be legible)."""
@@ -237,6 +268,7 @@ def status_timeline(
             )
     ax.set_yticks(range(len(_STATUS_ORDER)), _STATUS_ORDER, fontsize=8)
     ax.set_ylim(-0.5, len(_STATUS_ORDER) + 0.5)
+    event_marks(ax, marks)
     ax.set_xlabel("acquired (instrument time)", fontsize=8)
     if points:
         _dates(ax)

@@ -108,6 +108,71 @@ MIGRATIONS: tuple[Migration, ...] = (
             VALUES ('central.store_id', lower(hex(randomblob(16))))
         """,
     ),
+    Migration(
+        version=5,
+        summary="people's controls: acknowledgements, silences, events on the record, their log",
+        # alert_state.acked_at_s: the state machine's own input (no reminders while set). The
+        # other tables are written by the CLI commands while the daemon runs; control_log is
+        # the queue of health-log lines the daemon owes for them (only the daemon writes there).
+        sql="""
+        ALTER TABLE alert_state ADD COLUMN acked_at_s REAL;
+        CREATE TABLE IF NOT EXISTS acks (
+            ack_id INTEGER PRIMARY KEY AUTOINCREMENT,
+            at_s REAL NOT NULL,
+            instrument TEXT NOT NULL,
+            check_name TEXT NOT NULL,
+            subject TEXT NOT NULL,
+            severity TEXT NOT NULL,
+            raised_at_s REAL NOT NULL,
+            by_name TEXT NOT NULL,
+            note TEXT,
+            run_file TEXT
+        );
+        CREATE INDEX IF NOT EXISTS acks_by_key ON acks (instrument, check_name, subject, at_s);
+        CREATE TABLE IF NOT EXISTS silences (
+            silence_id INTEGER PRIMARY KEY AUTOINCREMENT,
+            instrument TEXT NOT NULL,
+            check_name TEXT,
+            subject TEXT,
+            reason TEXT NOT NULL,
+            by_name TEXT NOT NULL,
+            start_s REAL NOT NULL,
+            end_s REAL NOT NULL,
+            ended_early_s REAL,
+            summarized INTEGER NOT NULL DEFAULT 0
+        );
+        CREATE TABLE IF NOT EXISTS silenced_changes (
+            change_id INTEGER PRIMARY KEY AUTOINCREMENT,
+            at_s REAL NOT NULL,
+            instrument TEXT NOT NULL,
+            channel TEXT NOT NULL,
+            check_name TEXT NOT NULL,
+            subject TEXT NOT NULL,
+            action TEXT NOT NULL,
+            severity TEXT NOT NULL,
+            line TEXT NOT NULL,
+            reported INTEGER NOT NULL DEFAULT 0
+        );
+        CREATE TABLE IF NOT EXISTS notes (
+            note_id INTEGER PRIMARY KEY AUTOINCREMENT,
+            instrument TEXT NOT NULL,
+            at TEXT NOT NULL,
+            kind TEXT NOT NULL,
+            text TEXT NOT NULL,
+            reset_baselines INTEGER NOT NULL DEFAULT 0,
+            by_name TEXT NOT NULL,
+            recorded_at_s REAL NOT NULL
+        );
+        CREATE INDEX IF NOT EXISTS notes_by_time ON notes (instrument, at);
+        CREATE TABLE IF NOT EXISTS control_log (
+            entry_id INTEGER PRIMARY KEY AUTOINCREMENT,
+            at_s REAL NOT NULL,
+            kind TEXT NOT NULL,
+            fields_json TEXT NOT NULL,
+            logged INTEGER NOT NULL DEFAULT 0
+        )
+        """,
+    ),
 )
 
 

@@ -107,6 +107,12 @@ def _finding_from_json(text: str) -> Finding:
     return Finding(**data)
 
 
+def _acked_at_s(row: sqlite3.Row) -> float | None:
+    # The column comes with schema version 4 (watcher.store.migrations); a version-1 table
+    # read before the upgrade has none.
+    return row["acked_at_s"] if "acked_at_s" in row.keys() else None  # noqa: SIM118
+
+
 def load_alerts(
     conn: sqlite3.Connection, *, instrument: str | None = None, channel: str | None = None
 ) -> list[OpenAlert]:
@@ -132,6 +138,7 @@ def load_alerts(
                 raised_at_s=row["raised_at_s"],
                 last_sent_at_s=row["last_sent_at_s"],
                 finding=_finding_from_json(row["finding"]),
+                acked_at_s=_acked_at_s(row),
             ),
         )
         for row in conn.execute(sql, args)
@@ -158,10 +165,11 @@ def save_alert(
         return
     conn.execute(
         "INSERT INTO alert_state (instrument, check_name, subject, channel, severity, raised_at_s,"
-        " last_sent_at_s, run_file, finding) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)"
+        " last_sent_at_s, run_file, finding, acked_at_s) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)"
         " ON CONFLICT (instrument, check_name, subject, channel) DO UPDATE SET"
         " severity = excluded.severity, last_sent_at_s = excluded.last_sent_at_s,"
-        " run_file = COALESCE(excluded.run_file, alert_state.run_file), finding = excluded.finding",
+        " run_file = COALESCE(excluded.run_file, alert_state.run_file), finding = excluded.finding,"
+        " acked_at_s = excluded.acked_at_s",
         (
             instrument,
             check,
@@ -172,6 +180,7 @@ def save_alert(
             state.last_sent_at_s,
             run_file,
             json.dumps(state.finding.to_dict(), sort_keys=True),
+            state.acked_at_s,
         ),
     )
 
