@@ -86,4 +86,9 @@ def silence_summary(
 
 
 def cleared_what(check: str, subject: str) -> str:
-    return check if subject in (check, "file", "runs") else f"{check} ({subject})"
+    """``check, subject`` in words (the calibrant or ion name, never a metric path)."""
+    if subject in (check, "file", "runs"):
+        return check
+    from watcher.notify.alert_text import subject_words
+
+    return f"{check}, {subject_words(subject)}"
