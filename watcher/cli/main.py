@@ -39,6 +39,7 @@ _COMMANDS = {
     "digest": "watcher.cli.digest",
     "status": "watcher.cli.status",
     "demo": "watcher.cli.demo",
+    "serve": "watcher.cli.serve",
 }
 
 
@@ -92,6 +93,21 @@ def build_parser() -> argparse.ArgumentParser:
     )
     config_arg(p, required=True)
     p.add_argument("--json", action="store_true")
+
+    p = sub.add_parser(
+        "serve", help="the read-only floor page: every instrument's status, runs and charts"
+    )
+    p.add_argument(
+        "-c",
+        "--config",
+        required=True,
+        action="append",
+        metavar="CONFIG",
+        help="an instrument's lab config (YAML); repeat for each instrument on the page",
+    )
+    p.add_argument(
+        "--listen", metavar="HOST:PORT", help="address to serve on (default: serve.listen)"
+    )
 
     p = sub.add_parser("demo", help="the whole pipeline on the bundled demo runs")
     p.add_argument("--notify-url", metavar="URL", help="also send the alerts to this apprise URL")

@@ -36,6 +36,8 @@ _SECTIONS: dict[str, tuple[type, ...]] = {
     "channel": (model.Channel,),
     "health_log": (model.HealthLog,),
     "limits": (model.Limits,),
+    "metrics": (model.MetricsEndpoint,),
+    "serve": (model.Serve,),
 }
 # Fields that hold a nested record rather than a key's value of their own.
 _NESTED = {(model.ExpectedIon, "ion")}

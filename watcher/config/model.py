@@ -351,6 +351,45 @@ class Limits:
     max_inflated_mb: int = field(default=20000, metadata=_within(1, 1024 * 1024 * 1024))
 
 
+# The port a listen address may name: 0 (the kernel picks) is no address to scrape or open.
+PORT_RANGE = Range(1, 65535)
+LOOPBACK_HOSTS = ("127.0.0.1", "::1", "localhost")
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Listen:
+    """A TCP address to serve on, written ``"HOST:PORT"`` in YAML (``"[::1]:9464"`` for IPv6)."""
+
+    host: str
+    port: int = field(metadata=_within(PORT_RANGE.low, PORT_RANGE.high))
+
+    @property
+    def is_loopback(self) -> bool:
+        """Only this machine can connect: no token needed (watcher.view.app)."""
+        return self.host in LOOPBACK_HOSTS or self.host.startswith("127.")
+
+    def __str__(self) -> str:
+        return f"[{self.host}]:{self.port}" if ":" in self.host else f"{self.host}:{self.port}"
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class MetricsEndpoint:
+    """The Prometheus/OpenMetrics endpoint the daemon serves (watcher.view.metrics)."""
+
+    listen: Listen | None = None  # None: off
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Serve:
+    """``ionwarden serve``: the read-only floor page (watcher.view.app)."""
+
+    listen: Listen = field(default_factory=lambda: Listen(host="127.0.0.1", port=8470))
+    # Required when listen is not a loopback address; never logged or shown (secret).
+    token: str | None = None
+    # how often the page asks whether a new run was judged (the JSON poll)
+    refresh_s: float = field(default=3.0, metadata=_within(1.0, _HOUR_S))
+
+
 @dataclass(frozen=True, slots=True, kw_only=True)
 class Config:
     # the YAML file, None for built-in defaults
@@ -367,6 +406,8 @@ class Config:
     limits: Limits = field(default_factory=Limits)
     digest_at: time | None = None  # local time of day (YAML "07:30"): the daemon sends the digest
     log_keep_days: int = field(default=30, metadata=_within(1, 36_500))
+    metrics: MetricsEndpoint = field(default_factory=MetricsEndpoint)
+    serve: Serve = field(default_factory=Serve)
 
 
 WESTGARD_RULES: tuple[str, ...] = ("1-2s", "1-3s", "2-2s", "R-4s", "4-1s", "10x")

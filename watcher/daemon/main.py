@@ -26,6 +26,7 @@ import structlog
 from watcher import config as config_mod
 from watcher.config import Config, state_dir_of
 from watcher.daemon import lock, logs, norun_alert, preflight, retention, sdnotify
+from watcher.daemon.endpoint import start_endpoint, stop_endpoint
 from watcher.daemon.pipeline import JobOutcome, Pipeline, time_limit_s
 from watcher.errors import (
     ConfigError,
@@ -46,6 +47,7 @@ if TYPE_CHECKING:
     from types import FrameType
 
     from watcher.intake.readiness import FileStat
+    from watcher.view.metrics import MetricsServer
 
 log = structlog.get_logger("watcher.daemon")
 
@@ -100,6 +102,7 @@ class Daemon:
         self._fault_lock = threading.Lock()
         self.notifier: Notifier | None = None
         self.pipeline: Pipeline | None = None
+        self._endpoint: MetricsServer | None = None
 
     def _notifier(self) -> Notifier:
         if self.notifier is None:
@@ -167,6 +170,7 @@ class Daemon:
         self._full_scan("start-up")
         self._worker = threading.Thread(target=self._work, name="ionwarden-worker", daemon=True)
         self._worker.start()
+        self._endpoint = start_endpoint(self.config, self.state_dir)
         log.info(
             "daemon.started",
             state_dir=str(self.state_dir),
@@ -247,6 +251,8 @@ class Daemon:
         log.info("daemon.stopping")
         if self._observer is not None and self._overflow is not None:
             watch.stop_watching(self._observer, self._overflow)
+        stop_endpoint(self._endpoint)
+        self._endpoint = None
         self.stop_event.set()
         self.wake_worker.set()
         if self._worker is not None:
@@ -534,6 +540,9 @@ class Daemon:
                 new.watch, self.hints, self.rescan
             )
             self.rescan.set("watch settings changed")
+        if new.metrics != old.metrics or new.instrument.name != old.instrument.name:
+            stop_endpoint(self._endpoint)
+            self._endpoint = start_endpoint(new, self.state_dir)
         log.info("config.reloaded", config=str(source))
         sdnotify.notify("READY=1")
 

@@ -240,6 +240,19 @@ def runs_between(conn: sqlite3.Connection, start: datetime, end: datetime) -> li
     return [_run_row(r) for r in rows]
 
 
+def newest_between(
+    conn: sqlite3.Connection, start: datetime, end: datetime, *, limit: int
+) -> list[RunRow]:
+    """The newest ``limit`` runs acquired in ``[start, end)``, oldest first (the floor page's
+    range: bounded however many runs the range holds)."""
+    rows = conn.execute(
+        f"SELECT {_RUN_COLUMNS} FROM runs WHERE acquired_at >= ? AND acquired_at < ? "  # noqa: S608
+        "ORDER BY acquired_at DESC, run_id DESC LIMIT ?",
+        (to_text(start), to_text(end), limit),
+    ).fetchall()
+    return [_run_row(r) for r in reversed(rows)]
+
+
 def _point(r: sqlite3.Row | tuple[Any, ...]) -> HistoryPoint:
     value: float | bool | None = r[2]
     if value is not None and r[3]:

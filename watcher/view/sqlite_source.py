@@ -1,0 +1,211 @@
+"""``FloorSource`` over the daemon's own SQLite store: one instrument per state folder.
+
+Opens the store read-only (``mode=ro``, ``watcher.store.db.connect``) once and keeps the
+connection: every open runs ``PRAGMA quick_check``, which reads the whole file, so reopening per
+scrape would make a scrape's cost grow with the history. WAL lets this reader run beside the
+daemon's writes without blocking either (docs/reliability.md item 5). Each question is a few
+indexed SELECTs in one read transaction; one lock per store serialises the threads sharing the
+connection. A store that is missing, damaged or being upgraded is reported as unavailable with a
+short note (no paths), and opened again on the next call.
+"""
+
+from __future__ import annotations
+
+import re
+import sqlite3
+import threading
+from datetime import UTC, datetime
+from typing import TYPE_CHECKING, Any
+
+from watcher.errors import StoreError, StoreTooNewError
+from watcher.records import Status, shown
+from watcher.store import db, history, outbox
+from watcher.view.source import InstrumentNow, Problem, RunView
+
+if TYPE_CHECKING:
+    from collections.abc import Iterator, Sequence
+    from contextlib import AbstractContextManager
+    from pathlib import Path
+
+    from watcher.config import Check, Config
+    from watcher.records import HistoryPoint
+    from watcher.store.history import RunRow
+
+# An error text may quote the run's path (``ReadError`` names the file): the views show file
+# names only, so any absolute path in it is cut to its last part.
+_ABSOLUTE_PATH = re.compile(r"(?<![\w.])/(?:[^\s/'\"]+/)+(?=[^\s/'\"]*)")
+
+
+def strip_paths(text: str | None) -> str | None:
+    """``text`` with every absolute path reduced to its last part (the file name)."""
+    return None if text is None else _ABSOLUTE_PATH.sub("", text)
+
+
+def run_view(row: RunRow) -> RunView:
+    return RunView(
+        run_id=row.run_id,
+        file_name=shown(row.file_name),
+        acquired_at=row.acquired_at,
+        judged_at=row.judged_at,
+        status=str(row.status),
+        error=strip_paths(row.error),
+        metrics=row.metrics,
+        findings=row.findings,
+    )
+
+
+class SqliteFloorSource:
+    """One instrument: the config's ``instrument.name`` and checks, its ``state_dir`` store."""
+
+    def __init__(self, config: Config, state_dir: Path) -> None:
+        self.name = config.instrument.name
+        self._checks = config.checks
+        self._timezone = config.instrument.timezone
+        self._state_dir = state_dir
+        self._conn: sqlite3.Connection | None = None
+        self._lock = threading.Lock()
+
+    def names(self) -> Sequence[str]:
+        return (self.name,)
+
+    def checks(self, instrument: str) -> tuple[Check, ...]:
+        self._known(instrument)
+        return self._checks
+
+    def timezone(self, instrument: str) -> str:
+        self._known(instrument)
+        return self._timezone
+
+    def close(self) -> None:
+        with self._lock:
+            if self._conn is not None:
+                self._conn.close()
+                self._conn = None
+
+    def _known(self, instrument: str) -> None:
+        if instrument != self.name:
+            raise KeyError(instrument)
+
+    def _reading(self) -> AbstractContextManager[sqlite3.Connection]:
+        """The connection in one read transaction, under the lock; opened when needed."""
+        from contextlib import contextmanager
+
+        @contextmanager
+        def reading() -> Iterator[sqlite3.Connection]:
+            with self._lock:
+                if self._conn is None:
+                    self._conn = db.connect(self._state_dir, readonly=True)
+                try:
+                    with db.read(self._conn):
+                        yield self._conn
+                except sqlite3.DatabaseError:
+                    # Opened again next time: the file may have been replaced (a restore).
+                    self._conn.close()
+                    self._conn = None
+                    raise
+
+        return reading()
+
+    def instruments(self) -> list[InstrumentNow]:
+        try:
+            with self._reading() as conn:
+                return [self._now(conn)]
+        except StoreTooNewError:
+            note = "its store was written by a newer ionwarden"
+        except StoreError as exc:
+            note = "no state yet" if "no state database" in str(exc) else "store not readable now"
+        except sqlite3.Error:
+            note = "store not readable now"
+        return [InstrumentNow(name=self.name, available=False, note=note)]
+
+    def _now(self, conn: sqlite3.Connection) -> InstrumentNow:
+        last = history.recent_runs(conn, limit=1)
+        by_status = {str(s): 0 for s in Status}
+        for status, n in conn.execute("SELECT status, count(*) FROM runs GROUP BY status"):
+            by_status[status] = int(n)
+        deliveries = {str(s): 0 for s in outbox.DeliveryStatus}
+        for status, n in conn.execute("SELECT status, count(*) FROM deliveries GROUP BY status"):
+            deliveries[status] = int(n)
+        queued = conn.execute(
+            "SELECT count(*) FROM jobs WHERE state IN ('queued', 'measuring')"
+        ).fetchone()[0]
+        return InstrumentNow(
+            name=self.name,
+            available=True,
+            last_run=run_view(last[0]) if last else None,
+            problems=_problems(conn),
+            runs_by_status=by_status,
+            messages_delivered=deliveries[outbox.DeliveryStatus.DELIVERED],
+            messages_failed=deliveries[outbox.DeliveryStatus.ABANDONED],
+            messages_pending=deliveries[outbox.DeliveryStatus.PENDING],
+            queue_length=int(queued),
+        )
+
+    def runs(self, instrument: str, start: datetime, end: datetime, *, limit: int) -> list[RunView]:
+        """Runs acquired in ``[start, end)``, oldest first; the newest ``limit`` when more."""
+        self._known(instrument)
+        with self._reading() as conn:
+            return [run_view(r) for r in history.newest_between(conn, start, end, limit=limit)]
+
+    def before(
+        self,
+        instrument: str,
+        metric: str,
+        *,
+        before: datetime,
+        limit: int,
+        applies_to: Sequence[str] = (),
+    ) -> list[HistoryPoint]:
+        self._known(instrument)
+        with self._reading() as conn:
+            return history.StoreHistory(conn, applies_to=applies_to).series(
+                metric, before=before, limit=limit
+            )
+
+    def change_mark(self) -> str:
+        """The newest judged run's id and time, and the open alerts' count: cheap (indexes)."""
+        try:
+            with self._reading() as conn:
+                row = conn.execute(
+                    "SELECT run_id, judged_at FROM runs ORDER BY judged_at DESC, run_id DESC"
+                    " LIMIT 1"
+                ).fetchone()
+                alerts = conn.execute("SELECT count(*) FROM alert_state").fetchone()[0]
+        except (StoreError, StoreTooNewError, sqlite3.Error):
+            return "-"
+        return "-" if row is None else f"{row[0]}@{row[1]}#{alerts}"
+
+
+def _problems(conn: sqlite3.Connection) -> tuple[Problem, ...]:
+    """One per open (check, subject), the earliest raise and the highest severity among the
+    channels holding it (as ``ionwarden status`` merges them)."""
+    merged: dict[tuple[str, str], dict[str, Any]] = {}
+    rank = {"notice": 1, "warning": 2, "critical": 3}
+    for a in outbox.load_alerts(conn):
+        key = (a.check, a.subject)
+        severity = str(a.state.severity)
+        entry = merged.setdefault(
+            key,
+            {
+                "check": a.check,
+                "subject": a.subject,
+                "severity": severity,
+                "since_s": a.state.raised_at_s,
+                "run_file": None if a.run_file is None else shown(a.run_file),
+                "value": a.state.finding.value,
+            },
+        )
+        entry["since_s"] = min(entry["since_s"], a.state.raised_at_s)
+        if rank.get(severity, 0) > rank.get(entry["severity"], 0):
+            entry["severity"] = severity
+    return tuple(
+        Problem(
+            check=e["check"],
+            subject=e["subject"],
+            severity=e["severity"],
+            since=datetime.fromtimestamp(e["since_s"], UTC),
+            run_file=e["run_file"],
+            value=e["value"],
+        )
+        for e in merged.values()
+    )

@@ -1,0 +1,225 @@
+"""Inline SVG charts for the floor page: one value per run over time, with reference lines.
+
+Pure: points in, SVG text out (no files, no database). Every text that came from outside (run
+file names in the hover titles, calibrant and ion names) is XML-escaped here, so a file named
+``<script>.mzML`` is text on the page, never markup. The status colours are the digest's
+(``watcher.notify.plots.STATUS_COLOURS``), so a run reads the same on the page, in the digest
+and in an alert's attachment. Hand-written rather than drawn by matplotlib: a 30-day chart of a
+few thousand runs must render in well under the page's 500 ms budget (bench/serve_bench.py).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from datetime import datetime, timedelta
+from html import escape
+from typing import TYPE_CHECKING
+
+from watcher.notify.plots import STATUS_COLOURS, wants_log_axis
+
+if TYPE_CHECKING:
+    from collections.abc import Sequence
+
+WIDTH = 760
+HEIGHT = 230
+_LEFT, _RIGHT, _TOP, _BOTTOM = 64, 150, 26, 34
+_PALETTE = ("#1565c0", "#ef6c00", "#2e7d32", "#6a1b9a", "#00838f", "#ad1457", "#4e342e")
+
+
+@dataclass(frozen=True, slots=True)
+class Point:
+    at: datetime  # already in the zone the axis should read in
+    value: float
+    status: str | None = None  # colours the marker (the metric's own state in that run)
+    label: str = ""  # hover text: the run's file name
+
+
+@dataclass(frozen=True, slots=True)
+class Line:
+    name: str
+    points: Sequence[Point]
+    missing: Sequence[datetime] = ()  # looked for, not found: an x at the bottom
+
+
+@dataclass(frozen=True, slots=True)
+class Rule:
+    """A horizontal reference line: the baseline mean, ±2/±3 SD, the lab's limits."""
+
+    value: float
+    label: str
+    colour: str
+    dash: str = ""  # SVG stroke-dasharray
+
+
+def _nice_step(span: float, target: int = 5) -> float:
+    raw = span / max(target, 1)
+    if raw <= 0 or not math.isfinite(raw):
+        return 1.0
+    power = 10 ** math.floor(math.log10(raw))
+    for m in (1, 2, 2.5, 5, 10):
+        if raw <= m * power:
+            return float(m * power)
+    return float(10 * power)
+
+
+def _fmt(v: float) -> str:
+    if v != 0 and (abs(v) >= 1e5 or abs(v) < 1e-2):
+        return f"{v:.2g}"
+    return f"{v:.6g}"
+
+
+def _time_ticks(start: datetime, end: datetime) -> list[tuple[datetime, str]]:
+    span_s = (end - start).total_seconds()
+    steps = (
+        (600, "%H:%M"),
+        (3600, "%H:%M"),
+        (6 * 3600, "%d %b %H:%M"),
+        (86400, "%d %b"),
+        (7 * 86400, "%d %b"),
+        (30 * 86400, "%b %Y"),
+    )
+    step_s, fmt = next(((s, f) for s, f in steps if span_s / s <= 7), steps[-1])
+    first = datetime.fromtimestamp(math.ceil(start.timestamp() / step_s) * step_s, start.tzinfo)
+    ticks: list[tuple[datetime, str]] = []
+    at = first
+    while at <= end and len(ticks) < 12:
+        ticks.append((at, at.strftime(fmt)))
+        at += timedelta(seconds=step_s)
+    return ticks
+
+
+def chart(
+    lines: Sequence[Line],
+    *,
+    title: str,
+    ylabel: str,
+    start: datetime,
+    end: datetime,
+    rules: Sequence[Rule] = (),
+    log_y: bool = False,
+) -> str:
+    """An SVG chart of ``lines`` over ``[start, end]``; ``rules`` as horizontal lines."""
+    plot_w, plot_h = WIDTH - _LEFT - _RIGHT, HEIGHT - _TOP - _BOTTOM
+    values = [p.value for line in lines for p in line.points if math.isfinite(p.value)]
+    use_log = log_y and wants_log_axis(values)
+    scale_values = values + [r.value for r in rules]
+    if use_log:
+        scale_values = [v for v in scale_values if v > 0]
+
+    def tr(v: float) -> float:
+        return math.log10(v) if use_log else v
+
+    lo = min((tr(v) for v in scale_values), default=0.0)
+    hi = max((tr(v) for v in scale_values), default=1.0)
+    if hi - lo < 1e-12:
+        lo, hi = lo - 1.0, hi + 1.0
+    pad = (hi - lo) * 0.06
+    lo, hi = lo - pad, hi + pad
+    t0, t1 = start.timestamp(), max(end.timestamp(), start.timestamp() + 1)
+
+    def x(at: datetime) -> float:
+        return _LEFT + (at.timestamp() - t0) / (t1 - t0) * plot_w
+
+    def y(v: float) -> float:
+        return _TOP + (hi - tr(v)) / (hi - lo) * plot_h
+
+    out = [
+        f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {WIDTH} {HEIGHT}" role="img" '
+        f'class="chart" aria-label="{escape(title)}">',
+        f"<title>{escape(title)}</title>",
+        f'<text x="{_LEFT}" y="16" class="ct">{escape(title)}</text>',
+        f'<rect x="{_LEFT}" y="{_TOP}" width="{plot_w}" height="{plot_h}" class="frame"/>',
+    ]
+    # y grid and labels
+    if use_log:
+        ticks = [10.0**e for e in range(math.floor(lo), math.ceil(hi) + 1)]
+    else:
+        step = _nice_step(hi - lo)
+        first = math.ceil(lo / step) * step
+        ticks = [first + i * step for i in range(int((hi - first) / step) + 1)]
+    for v in ticks:
+        if not lo <= tr(v) <= hi:
+            continue
+        yy = y(v)
+        out.append(
+            f'<line x1="{_LEFT}" x2="{_LEFT + plot_w}" y1="{yy:.1f}" y2="{yy:.1f}" class="grid"/>'
+        )
+        out.append(f'<text x="{_LEFT - 4}" y="{yy + 3:.1f}" class="yl">{escape(_fmt(v))}</text>')
+    for at, text in _time_ticks(start, end):
+        xx = x(at)
+        out.append(
+            f'<line x1="{xx:.1f}" x2="{xx:.1f}" y1="{_TOP}" y2="{_TOP + plot_h}" class="grid"/>'
+        )
+        out.append(f'<text x="{xx:.1f}" y="{_TOP + plot_h + 14}" class="xl">{escape(text)}</text>')
+    out.append(
+        f'<text x="12" y="{_TOP + plot_h / 2:.0f}" class="yt" '
+        f'transform="rotate(-90 12 {_TOP + plot_h / 2:.0f})">{escape(ylabel)}</text>'
+    )
+    legend: list[tuple[str, str, str]] = []
+    for rule in rules:
+        if use_log and rule.value <= 0:
+            continue
+        yy = y(rule.value)
+        if not _TOP <= yy <= _TOP + plot_h:
+            continue
+        dash = f' stroke-dasharray="{rule.dash}"' if rule.dash else ""
+        out.append(
+            f'<line x1="{_LEFT}" x2="{_LEFT + plot_w}" y1="{yy:.1f}" y2="{yy:.1f}" '
+            f'stroke="{rule.colour}" stroke-width="1.4"{dash}><title>{escape(rule.label)} '
+            f"{escape(_fmt(rule.value))}</title></line>"
+        )
+        if (rule.label, rule.colour, rule.dash) not in legend:
+            legend.append((rule.label, rule.colour, rule.dash))
+    for n, line in enumerate(lines):
+        colour = _PALETTE[n % len(_PALETTE)] if len(lines) > 1 else "#78909c"
+        shown = [p for p in line.points if math.isfinite(p.value) and (p.value > 0 or not use_log)]
+        pts = sorted(((p.at, p) for p in shown), key=lambda item: item[0])
+        gaps = sorted(line.missing)
+        # The line breaks at a run where the ion was missing instead of bridging over it.
+        segments: list[list[str]] = [[]]
+        gi = 0
+        for at, p in pts:
+            while gi < len(gaps) and gaps[gi] < at:
+                gi += 1
+                if segments[-1]:
+                    segments.append([])
+            segments[-1].append(f"{x(at):.1f},{y(p.value):.1f}")
+        for seg in segments:
+            if len(seg) > 1:
+                out.append(
+                    f'<polyline fill="none" stroke="{colour}" stroke-width="1.2" '
+                    f'points="{" ".join(seg)}"/>'
+                )
+        for at, p in pts:
+            fill = STATUS_COLOURS.get(p.status or "", colour) if p.status else colour
+            tip = f"{p.label} {_fmt(p.value)}" if p.label else _fmt(p.value)
+            out.append(
+                f'<circle cx="{x(at):.1f}" cy="{y(p.value):.1f}" r="3" fill="{fill}" '
+                f'class="pt"><title>{escape(tip)}</title></circle>'
+            )
+        for at in gaps:
+            xx, yy = x(at), _TOP + plot_h - 6
+            out.append(
+                f'<path d="M{xx - 4:.1f},{yy - 4:.1f}L{xx + 4:.1f},{yy + 4:.1f}'
+                f'M{xx - 4:.1f},{yy + 4:.1f}L{xx + 4:.1f},{yy - 4:.1f}" stroke="{colour}" '
+                f'stroke-width="2"><title>{escape(line.name)}: not found</title></path>'
+            )
+        if len(lines) > 1 or gaps:
+            legend.append((line.name, colour, ""))
+    if not values:
+        out.append(
+            f'<text x="{_LEFT + plot_w / 2:.0f}" y="{_TOP + plot_h / 2:.0f}" class="empty">'
+            "no values in this range</text>"
+        )
+    for i, (label, colour, dash) in enumerate(legend[:10]):
+        ly = _TOP + 8 + i * 14
+        lx = _LEFT + plot_w + 8
+        dash_attr = f' stroke-dasharray="{dash}"' if dash else ""
+        out.append(
+            f'<line x1="{lx}" x2="{lx + 16}" y1="{ly}" y2="{ly}" stroke="{colour}" '
+            f'stroke-width="2"{dash_attr}/>'
+        )
+        out.append(f'<text x="{lx + 20}" y="{ly + 3}" class="lg">{escape(label[:22])}</text>')
+    out.append("</svg>")
+    return "".join(out)
