@@ -64,9 +64,21 @@ def _nice_step(span: float, target: int = 5) -> float:
 
 
 def _fmt(v: float) -> str:
-    if v != 0 and (abs(v) >= 1e5 or abs(v) < 1e-2):
-        return f"{v:.2g}"
-    return f"{v:.6g}"
+    """A value in a hover text or legend: four significant digits."""
+    return f"{v:.4g}"
+
+
+def tick_text(v: float, step: float) -> str:
+    """An axis label with as many decimals as the tick step needs; thousands and up with an SI
+    suffix (``800k``, ``3.5M``), as intensities are read."""
+    div, suffix = 1.0, ""
+    for d, suf in ((1e9, "G"), (1e6, "M"), (1e3, "k")):
+        if abs(v) >= d:
+            div, suffix = d, suf
+            break
+    scaled_step = f"{abs(step) / div:.6f}".rstrip("0")
+    decimals = min(len(scaled_step.partition(".")[2]), 4)
+    return f"{v / div:.{decimals}f}{suffix}"
 
 
 def _time_ticks(start: datetime, end: datetime) -> list[tuple[datetime, str]]:
@@ -112,8 +124,10 @@ def chart(
 
     lo = min((tr(v) for v in scale_values), default=0.0)
     hi = max((tr(v) for v in scale_values), default=1.0)
-    if hi - lo < 1e-12:
-        lo, hi = lo - 1.0, hi + 1.0
+    if hi - lo < 1e-9 * max(1.0, abs(hi)):
+        # One value (or all equal): a band around it, not a span of rounding noise.
+        half = 0.3 if use_log else max(abs(hi) * 0.1, 1.0)
+        lo, hi = lo - half, hi + half
     pad = (hi - lo) * 0.06
     lo, hi = lo - pad, hi + pad
     t0, t1 = start.timestamp(), max(end.timestamp(), start.timestamp() + 1)
@@ -133,19 +147,20 @@ def chart(
     ]
     # y grid and labels
     if use_log:
-        ticks = [10.0**e for e in range(math.floor(lo), math.ceil(hi) + 1)]
+        ticks = [(10.0**e, 10.0**e) for e in range(math.floor(lo), math.ceil(hi) + 1)]
     else:
         step = _nice_step(hi - lo)
         first = math.ceil(lo / step) * step
-        ticks = [first + i * step for i in range(int((hi - first) / step) + 1)]
-    for v in ticks:
+        ticks = [(first + i * step, step) for i in range(int((hi - first) / step) + 1)]
+    for v, tick_step in ticks:
         if not lo <= tr(v) <= hi:
             continue
         yy = y(v)
         out.append(
             f'<line x1="{_LEFT}" x2="{_LEFT + plot_w}" y1="{yy:.1f}" y2="{yy:.1f}" class="grid"/>'
         )
-        out.append(f'<text x="{_LEFT - 4}" y="{yy + 3:.1f}" class="yl">{escape(_fmt(v))}</text>')
+        label = escape(tick_text(v, tick_step))
+        out.append(f'<text x="{_LEFT - 4}" y="{yy + 3:.1f}" class="yl">{label}</text>')
     for at, text in _time_ticks(start, end):
         xx = x(at)
         out.append(
