@@ -38,8 +38,8 @@ STATUSES = tuple(str(s) for s in Status)
 
 
 def _last_values(now: InstrumentNow, group: str, field: str) -> list[tuple[str, float]]:
-    """(subject, value) of ``<group>.<subject>.<field>`` in the last run's flat metrics."""
-    run = now.last_run
+    """(subject, value) of ``<group>.<subject>.<field>`` in the last measured run's metrics."""
+    run = now.last_measured
     if run is None:
         return []
     head, tail = f"{group}.", f".{field}"
@@ -102,7 +102,7 @@ class FloorCollector:
         )
         tic = GaugeMetricFamily(
             "ionwarden_tic_median",
-            "last run's median MS1 total ion current (detector counts)",
+            "median MS1 total ion current of the last run measured (detector counts)",
             labels=inst,
         )
         open_alerts = GaugeMetricFamily(
@@ -145,9 +145,10 @@ class FloorCollector:
                 acquired.add_metric(name, run.acquired_at.timestamp())
                 judged.add_metric(name, run.judged_at.timestamp())
                 since.add_metric(name, max(0.0, now_s - run.acquired_at.timestamp()))
-                tic_value = run.metrics.get("signal.tic_median")
-                if tic_value is not None:
-                    tic.add_metric(name, float(tic_value))
+            measured = now.last_measured
+            tic_value = None if measured is None else measured.metrics.get("signal.tic_median")
+            if tic_value is not None:
+                tic.add_metric(name, float(tic_value))
             for calibrant, value in _last_values(now, "calibrant", "median_ppm"):
                 ppm.add_metric([now.name, calibrant], value)
             for ion, value in _last_values(now, "expected_ion", "found"):

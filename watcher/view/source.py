@@ -66,6 +66,9 @@ class InstrumentNow:
     available: bool  # False: its store cannot be read now (``note`` says why, without paths)
     note: str | None = None
     last_run: RunView | None = None
+    # The newest run that was not unreadable: where the last calibrant, ion and TIC values
+    # come from (an unreadable run has none, and must not blank them).
+    last_measured: RunView | None = None
     problems: tuple[Problem, ...] = ()
     runs_by_status: Mapping[str, int] = field(default_factory=dict)
     messages_delivered: int = 0

@@ -120,6 +120,15 @@ class SqliteFloorSource:
 
     def _now(self, conn: sqlite3.Connection) -> InstrumentNow:
         last = history.recent_runs(conn, limit=1)
+        measured = last
+        if last and last[0].status is Status.UNREADABLE:
+            # Walks the judged_at index back to the first readable run: a few rows, not all.
+            row = conn.execute(
+                "SELECT run_id FROM runs WHERE status != 'unreadable'"
+                " ORDER BY judged_at DESC, run_id DESC LIMIT 1"
+            ).fetchone()
+            found = None if row is None else history.get_run(conn, int(row[0]))
+            measured = [] if found is None else [found]
         by_status = {str(s): 0 for s in Status}
         for status, n in conn.execute("SELECT status, count(*) FROM runs GROUP BY status"):
             by_status[status] = int(n)
@@ -133,6 +142,7 @@ class SqliteFloorSource:
             name=self.name,
             available=True,
             last_run=run_view(last[0]) if last else None,
+            last_measured=run_view(measured[0]) if measured else None,
             problems=_problems(conn),
             runs_by_status=by_status,
             messages_delivered=deliveries[outbox.DeliveryStatus.DELIVERED],
