@@ -46,6 +46,7 @@ from starlette.responses import (
 )
 from starlette.routing import Route
 
+from watcher.rules.finding_text import subject_of
 from watcher.view.charts import instrument_charts
 from watcher.view.metrics import registry_for
 
@@ -286,7 +287,7 @@ def _tile(now: InstrumentNow, now_s: float, source: FloorSource) -> dict[str, An
             {
                 "severity": p.severity,
                 "check": p.check,
-                "subject": p.subject,
+                "subject": subject_of(p.subject) if "." in p.subject else p.subject,
                 "since": _local(p.since, tz),
                 "run_file": p.run_file,
                 "value": "" if p.value is None else _value(p.value),

@@ -64,6 +64,7 @@ class SqliteFloorSource:
         self._state_dir = state_dir
         self._conn: sqlite3.Connection | None = None
         self._lock = threading.Lock()
+        self._tally = _StatusTally()
 
     def names(self) -> Sequence[str]:
         return (self.name,)
@@ -95,6 +96,7 @@ class SqliteFloorSource:
             with self._lock:
                 if self._conn is None:
                     self._conn = db.connect(self._state_dir, readonly=True)
+                    self._tally = _StatusTally()
                 try:
                     with db.read(self._conn):
                         yield self._conn
@@ -129,9 +131,7 @@ class SqliteFloorSource:
             ).fetchone()
             found = None if row is None else history.get_run(conn, int(row[0]))
             measured = [] if found is None else [found]
-        by_status = {str(s): 0 for s in Status}
-        for status, n in conn.execute("SELECT status, count(*) FROM runs GROUP BY status"):
-            by_status[status] = int(n)
+        by_status = self._tally.update(conn)
         deliveries = {str(s): 0 for s in outbox.DeliveryStatus}
         for status, n in conn.execute("SELECT status, count(*) FROM deliveries GROUP BY status"):
             deliveries[status] = int(n)
@@ -184,6 +184,48 @@ class SqliteFloorSource:
         except (StoreError, StoreTooNewError, sqlite3.Error):
             return "-"
         return "-" if row is None else f"{row[0]}@{row[1]}#{alerts}"
+
+
+_STATUSES = tuple(str(s) for s in Status)
+
+
+class _StatusTally:
+    """Runs per status, kept up to date from the rows added or re-judged since the last call.
+
+    A ``GROUP BY status`` reads every run row (no index holds the status): 26 ms at 10,000 runs
+    here, linear beyond. The runs table is only ever appended to or updated in place (a re-judged
+    file identity keeps its ``run_id`` and gets a newer ``judged_at``; the history is never
+    pruned), so the rows with a higher ``run_id`` or a newer ``judged_at`` than seen before are
+    all that can change the counts: both are indexed (rowid, ``runs_by_judged``). One byte per
+    run remembers each run's status, to move a re-judged run from its old count to its new one.
+    """
+
+    def __init__(self) -> None:
+        self._status_of = bytearray()  # run_id -> 1 + index in _STATUSES; 0: not seen
+        self._counts = [0] * len(_STATUSES)
+        self._max_id = 0
+        self._judged = ""
+
+    def update(self, conn: sqlite3.Connection) -> dict[str, int]:
+        rows = conn.execute(
+            # Two index searches; a row found by both is applied twice, which changes nothing.
+            "SELECT run_id, status, judged_at FROM runs WHERE run_id > ?"
+            " UNION ALL SELECT run_id, status, judged_at FROM runs WHERE judged_at >= ?",
+            (self._max_id, self._judged),
+        ).fetchall()
+        for run_id, status, judged_at in rows:
+            code = _STATUSES.index(status) + 1 if status in _STATUSES else 0
+            if run_id >= len(self._status_of):
+                self._status_of.extend(bytes(run_id + 1 - len(self._status_of) + 1024))
+            old = self._status_of[run_id]
+            if old:
+                self._counts[old - 1] -= 1
+            if code:
+                self._counts[code - 1] += 1
+            self._status_of[run_id] = code
+            self._max_id = max(self._max_id, run_id)
+            self._judged = max(self._judged, judged_at)
+        return dict(zip(_STATUSES, self._counts, strict=True))
 
 
 def _problems(conn: sqlite3.Connection) -> tuple[Problem, ...]:
