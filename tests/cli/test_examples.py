@@ -107,6 +107,8 @@ def _schema_sections(schema: dict[str, Any]) -> dict[str, set[str]]:
         "channel": set(defs["channel"]["properties"]),
         "health_log": set(props["health_log"]["properties"]),
         "limits": set(props["limits"]["properties"]),
+        "metrics": set(props["metrics"]["properties"]),
+        "serve": set(props["serve"]["properties"]),
     }
 
 

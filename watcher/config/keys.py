@@ -36,7 +36,7 @@ _SECTIONS: dict[str, tuple[type, ...]] = {
     "channel": (model.Channel,),
     "health_log": (model.HealthLog,),
     "limits": (model.Limits,),
-    "metrics": (model.MetricsEndpoint,),
+    "metrics": (model.MetricsConfig,),
     "serve": (model.Serve,),
 }
 # Fields that hold a nested record rather than a key's value of their own.

@@ -373,7 +373,7 @@ class Listen:
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
-class MetricsEndpoint:
+class MetricsConfig:
     """The Prometheus/OpenMetrics endpoint the daemon serves (watcher.view.metrics)."""
 
     listen: Listen | None = None  # None: off
@@ -387,7 +387,7 @@ class Serve:
     # Required when listen is not a loopback address; never logged or shown (secret).
     token: str | None = None
     # how often the page asks whether a new run was judged (the JSON poll)
-    refresh_s: float = field(default=3.0, metadata=_within(1.0, _HOUR_S))
+    refresh_s: float = field(default=3.0, metadata=_positive(_HOUR_S))
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -406,7 +406,7 @@ class Config:
     limits: Limits = field(default_factory=Limits)
     digest_at: time | None = None  # local time of day (YAML "07:30"): the daemon sends the digest
     log_keep_days: int = field(default=30, metadata=_within(1, 36_500))
-    metrics: MetricsEndpoint = field(default_factory=MetricsEndpoint)
+    metrics: MetricsConfig = field(default_factory=MetricsConfig)
     serve: Serve = field(default_factory=Serve)
 
 

@@ -21,7 +21,7 @@ from watcher.config.model import (
     IonSpec,
     Limits,
     Listen,
-    MetricsEndpoint,
+    MetricsConfig,
     Serve,
     SignalSettings,
     Watch,
@@ -88,7 +88,7 @@ def build_config(v: Values, data: Any, source: Path) -> Config:
         v,
         top.get("metrics"),
         ("metrics",),
-        MetricsEndpoint,
+        MetricsConfig,
         {"listen": lambda p, x: None if x is None else listen_address(v, p, x)},
     )
     kw["serve"] = _section(
