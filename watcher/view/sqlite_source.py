@@ -17,7 +17,7 @@ import threading
 from datetime import UTC, datetime
 from typing import TYPE_CHECKING, Any
 
-from watcher.errors import StoreError, StoreTooNewError
+from watcher.errors import IonwardenError, StoreCorruptError, StoreError, StoreTooNewError
 from watcher.records import Status, shown
 from watcher.store import db, history, outbox
 from watcher.view.source import InstrumentNow, Problem, RunView
@@ -114,6 +114,8 @@ class SqliteFloorSource:
                 return [self._now(conn)]
         except StoreTooNewError:
             note = "its store was written by a newer ionwarden"
+        except StoreCorruptError:
+            note = "its store is damaged (see ionwarden status on its machine)"
         except StoreError as exc:
             note = "no state yet" if "no state database" in str(exc) else "store not readable now"
         except sqlite3.Error:
@@ -181,7 +183,7 @@ class SqliteFloorSource:
                     " LIMIT 1"
                 ).fetchone()
                 alerts = conn.execute("SELECT count(*) FROM alert_state").fetchone()[0]
-        except (StoreError, StoreTooNewError, sqlite3.Error):
+        except (IonwardenError, sqlite3.Error):
             return "-"
         return "-" if row is None else f"{row[0]}@{row[1]}#{alerts}"
 
