@@ -64,15 +64,19 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--instruments", type=int, default=20)
     parser.add_argument("--runs", type=int, default=5000)
     parser.add_argument("--requests", type=int, default=30)
+    parser.add_argument(
+        "--keep", metavar="DIR", help="build the stores here once and reuse them on later runs"
+    )
     args = parser.parse_args(argv)
     with tempfile.TemporaryDirectory() as tmp:
-        root = Path(tmp)
+        root = Path(args.keep) if args.keep else Path(tmp)
         started = time.perf_counter()
         configs = []
         for i in range(args.instruments):
             name = f"Larkfield unit {i + 1:02d}"
-            base = root / f"i{i:02d}"
-            build_store(base / "state", name, args.runs, T0, seed=i)
+            base = root / f"i{i:02d}-{args.runs}"
+            if not (base / "lab.yaml").exists():
+                build_store(base / "state", name, args.runs, T0, seed=i)
             configs.append(write_config(base, name))
         built_s = time.perf_counter() - started
         port = _free_port()

@@ -204,7 +204,8 @@ def _run_row(r: sqlite3.Row | tuple[Any, ...]) -> RunRow:
         judged_at=from_text(r[4]),
         status=Status(r[5]),
         error=r[6],
-        findings=tuple(_finding(d) for d in json.loads(r[7])),
+        # Most runs have no finding: skip the parse of their "[]" (a 30-day chart reads thousands).
+        findings=() if r[7] == "[]" else tuple(_finding(d) for d in json.loads(r[7])),
         metrics=json.loads(r[8]),
         size=int(r[9]),
         mtime_ns=int(r[10]),

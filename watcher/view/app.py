@@ -214,7 +214,7 @@ def build_app(
         start = datetime.combine(first, dtime(0), tz).astimezone(UTC)
         end = datetime.combine(last + timedelta(days=1), dtime(0), tz).astimezone(UTC)
         mark = source.change_mark()
-        now = next(i for i in source.instruments() if i.name == name)
+        now = source.instrument(name)
         runs = source.runs(name, start, end, limit=RUNS_CHARTED) if now.available else []
         charts = instrument_charts(source, name, runs, start=start, end=end, tz=tz)
         context = {

@@ -57,6 +57,8 @@ def _number(value: object) -> float | None:
 
 
 def _state(run: RunView, metric: str) -> str:
+    if not run.findings:  # most runs: no finding at all
+        return "unreadable" if run.status == "unreadable" else "ok"
     ranks = {"notice": 1, "warning": 2, "critical": 3}
     worst = max(
         (str(f.severity) for f in run.findings if f.metric == metric),
@@ -69,13 +71,12 @@ def _state(run: RunView, metric: str) -> str:
 def subjects(runs: Sequence[RunView], group: str, field: str) -> list[str]:
     """The calibrants or ions that have ``<group>.<name>.<field>`` in any of the runs."""
     head, tail = f"{group}.", f".{field}"
-    names = {
+    paths: set[str] = set().union(*(run.metrics.keys() for run in runs))
+    return sorted(
         path[len(head) : -len(tail)]
-        for run in runs
-        for path in run.metrics
+        for path in paths
         if path.startswith(head) and path.endswith(tail)
-    }
-    return sorted(names)
+    )
 
 
 def _rules(

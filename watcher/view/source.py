@@ -3,7 +3,8 @@
 A source answers four questions, each with frozen records and nothing to write:
 
 - ``instruments()``: every instrument now (last run, its status and times, open problems and
-  the counters the metrics endpoint exports), one ``InstrumentNow`` each;
+  the counters the metrics endpoint exports), one ``InstrumentNow`` each; ``instrument(name)``
+  the same for one;
 - ``runs(instrument, start, end, limit=)``: one instrument's runs acquired in ``[start, end)``,
   oldest first, with their flat metrics and findings (the charts and the run table);
 - ``before(instrument, metric, before=, limit=, applies_to=)``: the metric's values of the last
@@ -84,6 +85,8 @@ class FloorSource(Protocol):
 
     def instruments(self) -> list[InstrumentNow]: ...
 
+    def instrument(self, instrument: str) -> InstrumentNow: ...
+
     def runs(
         self, instrument: str, start: datetime, end: datetime, *, limit: int
     ) -> list[RunView]: ...
@@ -129,6 +132,9 @@ class MultiSource:
 
     def instruments(self) -> list[InstrumentNow]:
         return [i for s in self._sources for i in s.instruments()]
+
+    def instrument(self, instrument: str) -> InstrumentNow:
+        return self._of(instrument).instrument(instrument)
 
     def runs(self, instrument: str, start: datetime, end: datetime, *, limit: int) -> list[RunView]:
         return self._of(instrument).runs(instrument, start, end, limit=limit)

@@ -108,6 +108,10 @@ class SqliteFloorSource:
 
         return reading()
 
+    def instrument(self, instrument: str) -> InstrumentNow:
+        self._known(instrument)
+        return self.instruments()[0]
+
     def instruments(self) -> list[InstrumentNow]:
         try:
             with self._reading() as conn:

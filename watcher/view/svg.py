@@ -132,11 +132,13 @@ def chart(
     lo, hi = lo - pad, hi + pad
     t0, t1 = start.timestamp(), max(end.timestamp(), start.timestamp() + 1)
 
+    x_scale, y_scale = plot_w / (t1 - t0), plot_h / (hi - lo)
+
     def x(at: datetime) -> float:
-        return _LEFT + (at.timestamp() - t0) / (t1 - t0) * plot_w
+        return _LEFT + (at.timestamp() - t0) * x_scale
 
     def y(v: float) -> float:
-        return _TOP + (hi - tr(v)) / (hi - lo) * plot_h
+        return _TOP + (hi - (math.log10(v) if use_log else v)) * y_scale
 
     out = [
         f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {WIDTH} {HEIGHT}" role="img" '
@@ -190,28 +192,30 @@ def chart(
         colour = _PALETTE[n % len(_PALETTE)] if len(lines) > 1 else "#78909c"
         shown = [p for p in line.points if math.isfinite(p.value) and (p.value > 0 or not use_log)]
         pts = sorted(((p.at, p) for p in shown), key=lambda item: item[0])
+        # Each point's position once: a 30-day chart holds thousands (bench/serve_bench.py).
+        xy = [(f"{x(at):.1f}", f"{y(p.value):.1f}") for at, p in pts]
         gaps = sorted(line.missing)
         # The line breaks at a run where the ion was missing instead of bridging over it.
         segments: list[list[str]] = [[]]
         gi = 0
-        for at, p in pts:
+        for (at, _), (px, py) in zip(pts, xy, strict=True):
             while gi < len(gaps) and gaps[gi] < at:
                 gi += 1
                 if segments[-1]:
                     segments.append([])
-            segments[-1].append(f"{x(at):.1f},{y(p.value):.1f}")
+            segments[-1].append(f"{px},{py}")
         for seg in segments:
             if len(seg) > 1:
                 out.append(
                     f'<polyline fill="none" stroke="{colour}" stroke-width="1.2" '
                     f'points="{" ".join(seg)}"/>'
                 )
-        for at, p in pts:
-            fill = STATUS_COLOURS.get(p.status or "", colour) if p.status else colour
-            tip = f"{p.label} {_fmt(p.value)}" if p.label else _fmt(p.value)
+        for (_, p), (px, py) in zip(pts, xy, strict=True):
+            fill = STATUS_COLOURS.get(p.status, colour) if p.status else colour
+            tip = escape(f"{p.label} {p.value:.4g}" if p.label else f"{p.value:.4g}")
             out.append(
-                f'<circle cx="{x(at):.1f}" cy="{y(p.value):.1f}" r="3" fill="{fill}" '
-                f'class="pt"><title>{escape(tip)}</title></circle>'
+                f'<circle cx="{px}" cy="{py}" r="3" fill="{fill}" class="pt">'
+                f"<title>{tip}</title></circle>"
             )
         for at in gaps:
             xx, yy = x(at), _TOP + plot_h - 6
