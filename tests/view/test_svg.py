@@ -82,3 +82,23 @@ def test_a_flat_series_gets_distinct_ticks() -> None:
     labels = [el.text for el in root.iter(f"{NS}text") if el.get("class") == "yl"]
     assert len(labels) >= 3
     assert len(set(labels)) == len(labels)
+
+
+def test_time_ticks_fall_on_the_local_clock() -> None:
+    """Ticks read in the instrument's zone: 6-hour steps at 00/06/12/18 local, day steps at
+    local midnight across a DST change, month steps on the 1st (Europe/Oslo, tz database)."""
+    from zoneinfo import ZoneInfo
+
+    oslo = ZoneInfo("Europe/Oslo")
+    day = svg._time_ticks(datetime(2026, 11, 27, tzinfo=oslo), datetime(2026, 11, 28, tzinfo=oslo))
+    assert [t[1] for t in day] == [
+        "27 Nov 00:00",
+        "27 Nov 06:00",
+        "27 Nov 12:00",
+        "27 Nov 18:00",
+        "28 Nov 00:00",
+    ]
+    weeks = svg._time_ticks(datetime(2026, 10, 20, tzinfo=oslo), datetime(2026, 11, 3, tzinfo=oslo))
+    assert all(t[0].hour == 0 for t in weeks)  # 25 Oct 2026 is the 25-hour day
+    months = svg._time_ticks(datetime(2026, 9, 5, tzinfo=oslo), datetime(2026, 12, 4, tzinfo=oslo))
+    assert [t[1] for t in months] == ["Oct 2026", "Nov 2026", "Dec 2026"]

@@ -13,6 +13,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 from datetime import datetime, timedelta
+from datetime import time as dtime
 from html import escape
 from typing import TYPE_CHECKING
 
@@ -92,12 +93,32 @@ def _time_ticks(start: datetime, end: datetime) -> list[tuple[datetime, str]]:
         (30 * 86400, "%b %Y"),
     )
     step_s, fmt = next(((s, f) for s, f in steps if span_s / s <= 7), steps[-1])
-    first = datetime.fromtimestamp(math.ceil(start.timestamp() / step_s) * step_s, start.tzinfo)
     ticks: list[tuple[datetime, str]] = []
-    at = first
-    while at <= end and len(ticks) < 12:
+    if step_s < 86400:
+        # On the local clock's multiples of the step (06:00, 12:00 in the instrument's zone).
+        offset_s = (start.utcoffset() or timedelta(0)).total_seconds()
+        aligned = math.ceil((start.timestamp() + offset_s) / step_s) * step_s - offset_s
+        first = datetime.fromtimestamp(aligned, start.tzinfo)
+        at = first
+        while at <= end and len(ticks) < 12:
+            ticks.append((at, at.strftime(fmt)))
+            at += timedelta(seconds=step_s)
+        return ticks
+    # Day steps at local midnight (the axis reads in the instrument's zone, DST days included).
+    tz = start.tzinfo
+    day = start.date() if start.time() == dtime(0) else start.date() + timedelta(days=1)
+    days = step_s // 86400
+    if days >= 28 and day.day != 1:
+        day = (day.replace(day=1) + timedelta(days=32)).replace(day=1)
+    while len(ticks) < 12:
+        at = datetime.combine(day, dtime(0), tz)
+        if at > end:
+            break
         ticks.append((at, at.strftime(fmt)))
-        at += timedelta(seconds=step_s)
+        if days >= 28:  # month steps: the first of each month
+            day = (day.replace(day=1) + timedelta(days=32)).replace(day=1)
+        else:
+            day += timedelta(days=days)
     return ticks
 
 
