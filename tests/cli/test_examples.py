@@ -110,6 +110,8 @@ def _schema_sections(schema: dict[str, Any]) -> dict[str, set[str]]:
         "central": set(props["central"]["properties"]),
         "convert": set(props["convert"]["properties"]),
         "maintenance": set(props["maintenance"]["items"]["properties"]),
+        "metrics": set(props["metrics"]["properties"]),
+        "serve": set(props["serve"]["properties"]),
     }
 
 

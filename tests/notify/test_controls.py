@@ -82,10 +82,7 @@ def test_a_silence_of_one_check_holds_only_that_check(
     assert summary["title"] == "Kestrel-2 Q-TOF: QUIET TIME OVER, ALL CLEAR"
     lines = summary["message"].splitlines()
     assert lines[0].startswith("silence 1 over (recalibrating) | ")
-    assert lines[1] == (
-        "opened and cleared meanwhile: calibration drift, siloxane-445"
-        " (warning)"
-    )
+    assert lines[1] == ("opened and cleared meanwhile: calibration drift, siloxane-445 (warning)")
     assert lines[2] == "3 alert change(s) were held back while quiet"
     h.notifier.tick(h.conn, clock.advance(5))  # told once: nothing new is queued
     wait_for(lambda: h.notifier.pending_count() == 0, 10, "the outbox empty")

@@ -59,6 +59,12 @@ EXIT_CODES: dict[str, tuple[tuple[ExitCode, str], ...]] = {
         (ExitCode.RUNTIME, "the demo's daemon exited or a run got no verdict in time"),
         (ExitCode.INTERRUPTED, "interrupted (Ctrl-C)"),
     ),
+    "serve": (
+        (ExitCode.OK, "stopped (Ctrl-C or SIGTERM)"),
+        (ExitCode.USAGE, "a config problem, or an address off 127.0.0.1 without serve.token"),
+        (ExitCode.RUNTIME, "the address cannot be bound (in use, no permission)"),
+        (ExitCode.INTERRUPTED, "interrupted (Ctrl-C)"),
+    ),
     "ack": (
         (ExitCode.OK, "the open alerts named are acknowledged (the daemon acts within a second)"),
         (ExitCode.USAGE, _USAGE),

@@ -49,6 +49,7 @@ _COMMANDS = {
     "ack": "watcher.cli.ack",
     "silence": "watcher.cli.silence",
     "note": "watcher.cli.note",
+    "serve": "watcher.cli.serve",
 }
 
 
@@ -199,6 +200,19 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("--instrument", metavar="N", help="the instrument (default: the config's)")
     by_arg(p)
+
+    p = command("serve", "the read-only floor page: every instrument's status, runs and charts")
+    p.add_argument(
+        "-c",
+        "--config",
+        required=True,
+        action="append",
+        metavar="CONFIG",
+        help="an instrument's lab config (YAML); repeat for each instrument on the page",
+    )
+    p.add_argument(
+        "--listen", metavar="HOST:PORT", help="address to serve on (default: serve.listen)"
+    )
 
     p = command("demo", "the whole pipeline on the bundled demo runs")
     p.add_argument("--notify-url", metavar="URL", help="also send the alerts to this apprise URL")

@@ -39,6 +39,8 @@ _SECTIONS: dict[str, tuple[type, ...]] = {
     "central": (model.Central,),
     "convert": (model.Convert,),
     "maintenance": (model.PlannedWindow,),
+    "metrics": (model.MetricsConfig,),
+    "serve": (model.Serve,),
 }
 # Fields that hold a nested record rather than a key's value of their own.
 _NESTED = {(model.ExpectedIon, "ion")}

@@ -445,6 +445,45 @@ class PlannedWindow:
     line: int | None = field(default=None, metadata=_key(None))  # YAML line, for messages
 
 
+# The port a listen address may name: 0 (the kernel picks) is no address to scrape or open.
+PORT_RANGE = Range(1, 65535)
+LOOPBACK_HOSTS = ("127.0.0.1", "::1", "localhost")
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Listen:
+    """A TCP address to serve on, written ``"HOST:PORT"`` in YAML (``"[::1]:9464"`` for IPv6)."""
+
+    host: str
+    port: int = field(metadata=_within(PORT_RANGE.low, PORT_RANGE.high))
+
+    @property
+    def is_loopback(self) -> bool:
+        """Only this machine can connect: no token needed (watcher.view.app)."""
+        return self.host in LOOPBACK_HOSTS or self.host.startswith("127.")
+
+    def __str__(self) -> str:
+        return f"[{self.host}]:{self.port}" if ":" in self.host else f"{self.host}:{self.port}"
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class MetricsConfig:
+    """The Prometheus/OpenMetrics endpoint the daemon serves (watcher.view.metrics)."""
+
+    listen: Listen | None = None  # None: off
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Serve:
+    """``ionwarden serve``: the read-only floor page (watcher.view.app)."""
+
+    listen: Listen = field(default_factory=lambda: Listen(host="127.0.0.1", port=8470))
+    # Required when listen is not a loopback address; never logged or shown (secret).
+    token: str | None = None
+    # how often the page asks whether a new run was judged (the JSON poll)
+    refresh_s: float = field(default=3.0, metadata=_positive(_HOUR_S))
+
+
 @dataclass(frozen=True, slots=True, kw_only=True)
 class Config:
     # the YAML file, None for built-in defaults
@@ -466,6 +505,8 @@ class Config:
     maintenance: tuple[PlannedWindow, ...] = ()
     # event kinds (NOTE_KINDS) whose note restarts baselines and trends, as --reset-baselines
     reset_baselines_on: tuple[str, ...] = ()
+    metrics: MetricsConfig = field(default_factory=MetricsConfig)
+    serve: Serve = field(default_factory=Serve)
 
 
 WESTGARD_RULES: tuple[str, ...] = ("1-2s", "1-3s", "2-2s", "R-4s", "4-1s", "10x")

@@ -25,6 +25,9 @@ from watcher.config.model import (
     Instrument,
     IonSpec,
     Limits,
+    Listen,
+    MetricsConfig,
+    Serve,
     SignalSettings,
     Watch,
     range_of,
@@ -92,7 +95,67 @@ def build_config(v: Values, data: Any, source: Path) -> Config:
     checks_and_pseudo = {c.name for c in kw["checks"]} | {"unreadable", "heartbeat"}
     kw["maintenance"] = build_maintenance(v, top.get("maintenance"), checks_and_pseudo)
     v.put(kw, top, (), "reset_baselines_on", lambda p, x: build_reset_kinds(v, p, x))
+    kw["metrics"] = _section(
+        v,
+        top.get("metrics"),
+        ("metrics",),
+        MetricsConfig,
+        {"listen": lambda p, x: None if x is None else listen_address(v, p, x)},
+    )
+    kw["serve"] = _section(
+        v,
+        top.get("serve"),
+        ("serve",),
+        Serve,
+        {
+            "listen": lambda p, x: listen_address(v, p, x),
+            "token": lambda p, x: None if x is None else _token(v, p, x),
+            "refresh_s": lambda p, x: v.duration(p, x, range_of(Serve, "refresh_s")),
+        },
+    )
     return Config(source=source, **kw)
+
+
+# A token shorter than this is guessable by trying; 16 characters of a random password
+# generator are about 95 bits (common practice: `openssl rand -hex 16` gives 32).
+MIN_TOKEN_CHARS = 16
+
+
+def _token(v: Values, path: KeyPath, x: Any) -> str:
+    text = v.text(path, x)
+    if len(text) < MIN_TOKEN_CHARS or any(c.isspace() for c in text):
+        # The value itself is a secret: the message never quotes it.
+        raise v.fail(
+            path,
+            f"expected a token of at least {MIN_TOKEN_CHARS} characters without spaces "
+            "(e.g. the output of `openssl rand -hex 16`)",
+        )
+    return text
+
+
+def listen_address(v: Values, path: KeyPath, x: Any) -> Listen:
+    """``"HOST:PORT"`` (``"[::1]:PORT"`` for IPv6) -> Listen; the host must be an IP address or
+    ``localhost``, so that a typo never becomes a DNS lookup at start-up."""
+    import ipaddress
+
+    text = v.text(path, x).strip()
+    host, sep, port_text = text.rpartition(":")
+    if host.startswith("[") and host.endswith("]"):
+        host = host[1:-1]
+    expected = 'expected "HOST:PORT" such as "127.0.0.1:9464"'
+    if not sep or not host:
+        raise v.fail(path, f"{expected}, got {v.show(x)}")
+    if host != "localhost":
+        try:
+            ipaddress.ip_address(host)
+        except ValueError:
+            raise v.fail(
+                path, f"{expected}: the host must be an IP address or localhost, got {host!r}"
+            ) from None
+    if not port_text.isdigit():
+        raise v.fail(path, f"{expected}: the port must be a number, got {port_text!r}")
+    port = v.integer(path, int(port_text), range_of(Listen, "port"))
+    return Listen(host=host, port=port)
 
 
 Converter = Callable[[KeyPath, Any], Any]

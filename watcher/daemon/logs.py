@@ -45,6 +45,8 @@ EVENTS: frozenset[str] = frozenset(
         "state.lost",
         "heartbeat.missed",
         "heartbeat.resumed",
+        "metrics.listening",
+        "metrics.failed",
         # notify
         "alert.raised",
         "alert.cleared",

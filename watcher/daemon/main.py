@@ -28,6 +28,7 @@ import structlog
 from watcher import config as config_mod
 from watcher.config import Config, Watch, state_dir_of
 from watcher.daemon import convert, lock, logs, norun_alert, preflight, retention, sdnotify
+from watcher.daemon.endpoint import start_endpoint, stop_endpoint
 from watcher.daemon.pipeline import JobOutcome, Pipeline, time_limit_s
 from watcher.errors import (
     ConfigError,
@@ -50,6 +51,7 @@ if TYPE_CHECKING:
 
     from watcher.central.publish import Publisher
     from watcher.intake.readiness import FileStat
+    from watcher.view.metrics import MetricsServer
 
 log = structlog.get_logger("watcher.daemon")
 
@@ -105,6 +107,7 @@ class Daemon:
         self.notifier: Notifier | None = None
         self.pipeline: Pipeline | None = None
         self.publisher: Publisher | None = None
+        self._endpoint: MetricsServer | None = None
 
     def _notifier(self) -> Notifier:
         if self.notifier is None:
@@ -173,6 +176,7 @@ class Daemon:
         self._full_scan("start-up")
         self._worker = threading.Thread(target=self._work, name="ionwarden-worker", daemon=True)
         self._worker.start()
+        self._endpoint = start_endpoint(self.config, self.state_dir)
         log.info(
             "daemon.started",
             state_dir=str(self.state_dir),
@@ -253,6 +257,8 @@ class Daemon:
         log.info("daemon.stopping")
         if self._observer is not None and self._overflow is not None:
             watch.stop_watching(self._observer, self._overflow)
+        stop_endpoint(self._endpoint)
+        self._endpoint = None
         self.stop_event.set()
         self.wake_worker.set()
         if self._worker is not None:
@@ -552,6 +558,9 @@ class Daemon:
                 _watched(new), self.hints, self.rescan
             )
             self.rescan.set("watch settings changed")
+        if new.metrics != old.metrics or new.instrument.name != old.instrument.name:
+            stop_endpoint(self._endpoint)
+            self._endpoint = start_endpoint(new, self.state_dir)
         log.info("config.reloaded", config=str(source))
         sdnotify.notify("READY=1")
 

@@ -204,7 +204,8 @@ def _run_row(r: sqlite3.Row | tuple[Any, ...]) -> RunRow:
         judged_at=from_text(r[4]),
         status=Status(r[5]),
         error=r[6],
-        findings=tuple(_finding(d) for d in json.loads(r[7])),
+        # Most runs have no finding: skip the parse of their "[]" (a 30-day chart reads thousands).
+        findings=() if r[7] == "[]" else tuple(_finding(d) for d in json.loads(r[7])),
         metrics=json.loads(r[8]),
         size=int(r[9]),
         mtime_ns=int(r[10]),
@@ -238,6 +239,19 @@ def runs_between(conn: sqlite3.Connection, start: datetime, end: datetime) -> li
         (to_text(start), to_text(end)),
     ).fetchall()
     return [_run_row(r) for r in rows]
+
+
+def newest_between(
+    conn: sqlite3.Connection, start: datetime, end: datetime, *, limit: int
+) -> list[RunRow]:
+    """The newest ``limit`` runs acquired in ``[start, end)``, oldest first (the floor page's
+    range: bounded however many runs the range holds)."""
+    rows = conn.execute(
+        f"SELECT {_RUN_COLUMNS} FROM runs WHERE acquired_at >= ? AND acquired_at < ? "  # noqa: S608
+        "ORDER BY acquired_at DESC, run_id DESC LIMIT ?",
+        (to_text(start), to_text(end), limit),
+    ).fetchall()
+    return [_run_row(r) for r in reversed(rows)]
 
 
 def _point(r: sqlite3.Row | tuple[Any, ...]) -> HistoryPoint:
