@@ -25,14 +25,7 @@ from typing import TYPE_CHECKING
 from watcher import __version__
 from watcher.cli import helptext
 from watcher.cli.exitcodes import ExitCode
-from watcher.config.model import NOTE_KINDS
-from watcher.errors import (
-    ConfigError,
-    DaemonRunningError,
-    IonwardenError,
-    StoreCorruptError,
-    StoreTooNewError,
-)
+from watcher.kinds import NOTE_KINDS
 
 if TYPE_CHECKING:
     from collections.abc import Sequence
@@ -247,9 +240,18 @@ def main(argv: Sequence[str] | None = None) -> int:
         # output stays parseable) nor the daemon's log file; ``run`` sets up its own logging.
         import logging
 
-        from watcher.daemon import logs
+        from watcher.cli import clilog
 
-        logs.configure_cli(level=logging.INFO if args.verbose else logging.WARNING)
+        clilog.configure(logging.INFO if args.verbose else logging.WARNING)
+    # Imported after parsing: ``--help`` and usage errors need none of the program's modules.
+    from watcher.errors import (
+        ConfigError,
+        DaemonRunningError,
+        IonwardenError,
+        StoreCorruptError,
+        StoreTooNewError,
+    )
+
     try:
         module = importlib.import_module(_COMMANDS[args.command])
         code: int = module.main(args)

@@ -16,6 +16,7 @@ from fnmatch import fnmatchcase
 from pathlib import Path
 from typing import TYPE_CHECKING
 
+from watcher import kinds
 from watcher.errors import ConfigError, ConfigProblem
 from watcher.records import Severity
 
@@ -411,8 +412,8 @@ class Central:
     )
 
 
-NOTE_KINDS: tuple[str, ...] = ("column", "source", "calibration", "other")
-"""Kinds of events on the record (``ionwarden note --kind``); ``reset_baselines_on`` names some."""
+# Kinds of events on the record (``ionwarden note --kind``); ``reset_baselines_on`` names some.
+NOTE_KINDS = kinds.NOTE_KINDS
 
 WEEKDAYS: tuple[str, ...] = ("mon", "tue", "wed", "thu", "fri", "sat", "sun")  # date.weekday()
 
