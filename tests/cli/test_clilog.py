@@ -25,7 +25,10 @@ _PROBE = """
 import json, sys
 from watcher.cli.main import main
 code = main(sys.argv[1:])
-sys.stderr.write("\\nPROBE " + json.dumps({"code": code, "structlog": "structlog" in sys.modules}))
+loaded = sys.modules.get("structlog")
+configured = loaded is not None and loaded.is_configured()
+found = {"structlog": loaded is not None, "configured": configured}
+sys.stderr.write("\\nPROBE " + json.dumps(found))
 """
 
 
