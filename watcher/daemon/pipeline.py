@@ -19,7 +19,7 @@ import signal
 import subprocess
 import sys
 import time
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import ThreadPoolExecutor, wait
 from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
 from enum import StrEnum
@@ -47,6 +47,7 @@ if TYPE_CHECKING:
 log = structlog.get_logger("watcher.daemon.pipeline")
 
 _HASH_CHUNK = 1 << 20
+MAX_MEASURING_THREADS = 64  # limits.workers allows at most 64 runs measured at once
 HEALTH_RETRY_S = 5.0  # owed health lines are tried again this often while the folder refuses
 
 
@@ -272,6 +273,9 @@ class Pipeline:
     child: MeasuringChild = field(default_factory=MeasuringChild)
     # More measuring children for bursts (process_batch): slot 0 is ``child``.
     extra_children: list[MeasuringChild] = field(default_factory=list)
+    # The threads that wait on them live as long as the pipeline: a child dies with the thread
+    # that started it (PR_SET_PDEATHSIG is per thread), so a pool per batch would kill them.
+    _measuring_threads: ThreadPoolExecutor | None = None
     # Called after each run's commit: the central publisher's wake-up (None: no central store).
     after_commit: Callable[[], None] | None = None
     health_failing: bool = False  # the last try at the owed health lines failed
@@ -292,6 +296,9 @@ class Pipeline:
         self.child.close()
         for child in self.extra_children:
             child.close()
+        threads, self._measuring_threads = self._measuring_threads, None
+        if threads is not None:
+            threads.shutdown(wait=False)
 
     def process_batch(self, batch: list[jobs.Job]) -> list[JobOutcome]:
         """Take several claimed jobs to ``done`` with one measuring child each, at once.
@@ -363,13 +370,20 @@ class Pipeline:
         while len(self.extra_children) < len(batch) - 1:
             self.extra_children.append(MeasuringChild())
         children = [self.child, *self.extra_children]
-        with ThreadPoolExecutor(max_workers=len(batch), thread_name_prefix="measure") as pool:
-            futures = {
-                job.id: pool.submit(self._measure, config, job, child)
-                for job, child in zip(batch, children, strict=False)
-            }
-            # result() re-raises Stopped / ChildStartError from a child: the batch goes back.
-            return {job_id: future.result() for job_id, future in futures.items()}
+        if self._measuring_threads is None:
+            # Threads start as tasks need them, up to this bound; idle ones wait for the next.
+            self._measuring_threads = ThreadPoolExecutor(
+                max_workers=MAX_MEASURING_THREADS, thread_name_prefix="measure"
+            )
+        pool = self._measuring_threads
+        futures = {
+            job.id: pool.submit(self._measure, config, job, child)
+            for job, child in zip(batch, children, strict=False)
+        }
+        # Every child answers (or dies) before the batch goes on, so that no child is still
+        # busy when the next batch takes it; result() then re-raises Stopped / ChildStartError.
+        wait(futures.values())
+        return {job_id: future.result() for job_id, future in futures.items()}
 
     def process(self, job: jobs.Job) -> JobOutcome:
         """Take a claimed job to ``done`` (back to ``queued`` when stopping); returns outcome."""
