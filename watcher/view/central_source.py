@@ -70,11 +70,11 @@ _BEFORE = (
     "SELECT r.file_name, m.acquired_at, r.metrics -> m.metric, r.status, m.file_key"
     " FROM run_metrics AS m JOIN runs AS r"
     " ON r.instrument = m.instrument AND r.file_key = m.file_key"
-    " WHERE m.instrument = %s AND m.metric = %s AND {where}"
-    f" ORDER BY m.acquired_at DESC, m.file_key DESC LIMIT {_PAGE}"
+    " WHERE m.instrument = %s AND m.metric = %s AND "
 )
-_BEFORE_FIRST = _BEFORE.format(where="m.acquired_at < %s")
-_BEFORE_NEXT = _BEFORE.format(where="(m.acquired_at, m.file_key) < (%s, %s)")
+_ORDER = " ORDER BY m.acquired_at DESC, m.file_key DESC LIMIT %s"
+_BEFORE_FIRST = _BEFORE + "m.acquired_at < %s" + _ORDER
+_BEFORE_NEXT = _BEFORE + "(m.acquired_at, m.file_key) < (%s, %s)" + _ORDER
 
 
 def _finding(d: dict[str, Any]) -> Finding:
@@ -303,7 +303,7 @@ class CentralFloorSource:
                 params: tuple[Any, ...] = (before,) if cursor is None else cursor
                 rows = conn.execute(
                     _BEFORE_FIRST if cursor is None else _BEFORE_NEXT,
-                    (instrument, metric, *params),
+                    (instrument, metric, *params, _PAGE),
                 ).fetchall()
                 for file_name, acquired_at, value, status, _key in rows:
                     name = shown(file_name)
