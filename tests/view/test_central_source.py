@@ -340,3 +340,25 @@ def test_serve_all_without_a_central_url_says_so(tmp_path: Path) -> None:
     assert result.returncode == 2
     assert "central.url is not set" in result.stderr
     assert len(result.stderr.strip().splitlines()) == 1
+
+
+def test_the_page_survives_the_store_going_away(facility: Facility) -> None:
+    """PostgreSQL stopped while the page server runs: the floor still answers, every tile
+    shows its instrument as unknown with a note and no address; after the restart the tiles
+    are back, through a new connection."""
+    facility.pg.stop("fast")
+    try:
+        status, body = facility.get("/")
+        assert status == 200
+        assert body.count('data-status="unknown"') == 3
+        assert "central store not readable now" in body
+        assert str(facility.pg.sockets) not in body
+    finally:
+        facility.pg.start()
+
+    def back() -> bool:
+        status, body = facility.get("/")
+        return status == 200 and 'data-status="unknown"' not in body
+
+    wait_for(back, 10, "the tiles back")
+    assert facility.serve.proc.poll() is None
