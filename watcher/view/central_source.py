@@ -20,11 +20,13 @@ is the caller's one-line error (``StoreError`` from the constructor).
 from __future__ import annotations
 
 import threading
+import time
 from datetime import UTC, datetime
 from typing import TYPE_CHECKING, Any
 from zoneinfo import ZoneInfo
 
 from watcher.central import reader
+from watcher.central.url import masked, scrub
 from watcher.config import matches_applies_to
 from watcher.errors import StoreError
 from watcher.records import Finding, HistoryPoint, Severity, Status, shown
@@ -40,6 +42,7 @@ if TYPE_CHECKING:
     from watcher.config import Check, Config
 
 UNREACHABLE = "central store not readable now"
+RETRY_S = 2.0  # after a failed connection, the next attempt waits this long
 _EPOCH = datetime.fromtimestamp(0, UTC)  # an open alert published without its raise time
 _PAGE = 500  # metric rows read per round trip while the kind filter drops some
 
@@ -142,9 +145,16 @@ class CentralFloorSource:
         self._own = {c.instrument.name: c for c in own}
         self._lock = threading.Lock()
         self._conn: psycopg.Connection[Any] | None = connect(url, connect_timeout_s)
+        self._retry_at = 0.0
         self._zones: dict[str, str] = {}
-        with self._reading() as conn:
-            self._refresh_names(conn)
+        import psycopg
+
+        try:
+            with self._reading() as conn:
+                self._refresh_names(conn)
+        except psycopg.Error as exc:  # e.g. no SELECT right on the tables
+            first = (str(exc).strip().splitlines() or [type(exc).__name__])[0]
+            raise StoreError(f"central store {masked(url)}: {scrub(first, url)}") from exc
 
     def close(self) -> None:
         with self._lock:
@@ -162,6 +172,11 @@ class CentralFloorSource:
         def reading() -> Iterator[psycopg.Connection[Any]]:
             with self._lock:
                 if self._conn is None:
+                    # An unreachable host costs connect_timeout_s per attempt: at most one
+                    # attempt per RETRY_S, not one per question of every page.
+                    if time.monotonic() < self._retry_at:
+                        raise StoreError(UNREACHABLE)
+                    self._retry_at = time.monotonic() + RETRY_S
                     self._conn = self._connect(self._url, self._timeout_s)
                 try:
                     yield self._conn
