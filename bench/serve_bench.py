@@ -6,15 +6,21 @@ starts the real ``ionwarden serve`` on them in a subprocess and times, over HTTP
 TIC and ion charts as SVG, and the run table). Targets: floor under 300 ms, 30-day page under
 500 ms with 20 instruments x 5,000 runs.
 
+With ``--central`` the stores are published into a throwaway PostgreSQL cluster
+(tests/helpers/postgres.py) the way the daemon publishes (the queue filled, a ``Publisher``
+emptying it), and ``serve -c CONFIG --all`` is timed over the central store instead.
+
 Usage::
 
     python bench/serve_bench.py                       # 20 instruments x 5,000 runs, 30 requests
     python bench/serve_bench.py --instruments 3 --runs 1000
+    python bench/serve_bench.py --central             # the same pages from PostgreSQL
 """
 
 from __future__ import annotations
 
 import argparse
+import json
 import re
 import socket
 import statistics
@@ -51,6 +57,35 @@ def _time(url: str, n: int) -> tuple[list[float], int]:
     return times_ms, size
 
 
+def _publish(url: str, state: Path, name: str) -> None:
+    """Every run of the store queued as the pipeline queues it, then published."""
+    from watcher.central import queue
+    from watcher.central.publish import Publisher
+    from watcher.config import Central
+    from watcher.store import db
+
+    conn = db.connect(state, daemon=True)
+    try:
+        ids = [int(r[0]) for r in conn.execute("SELECT run_id FROM runs ORDER BY run_id")]
+        with db.write(conn):
+            for run_id in ids:
+                queue.queue_judged(conn, name, run_id, time.time())
+    finally:
+        conn.close()
+    publisher = Publisher(Central(url=url, batch_max=2000), state, name)
+    try:
+        while True:
+            publisher.step()
+            local = db.connect(state, readonly=True)
+            try:
+                if queue.length(local) == 0:
+                    return
+            finally:
+                local.close()
+    finally:
+        publisher.close()
+
+
 def _line(what: str, times_ms: list[float], size: int) -> str:
     rest = times_ms[1:] or times_ms
     return (
@@ -67,7 +102,11 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument(
         "--keep", metavar="DIR", help="build the stores here once and reuse them on later runs"
     )
+    parser.add_argument(
+        "--central", action="store_true", help="publish the stores and serve --all from them"
+    )
     args = parser.parse_args(argv)
+    pg = None
     with tempfile.TemporaryDirectory() as tmp:
         root = Path(args.keep) if args.keep else Path(tmp)
         started = time.perf_counter()
@@ -81,6 +120,22 @@ def main(argv: list[str] | None = None) -> int:
         built_s = time.perf_counter() - started
         port = _free_port()
         cmd = [sys.executable, "-m", "watcher", "serve", "--listen", f"127.0.0.1:{port}"]
+        published = ""
+        if args.central:
+            from tests.helpers.postgres import make_cluster
+
+            pg = make_cluster()
+            url = pg.url(pg.new_database())
+            started = time.perf_counter()
+            for i, c in enumerate(configs):
+                _publish(url, c.parent / "state", f"Larkfield unit {i + 1:02d}")
+            published = f", published in {time.perf_counter() - started:.0f} s"
+            first_cfg = json.loads(configs[0].read_text())
+            first_cfg["central"] = {"url": url}
+            central_cfg = Path(tmp) / "central.yaml"
+            central_cfg.write_text(json.dumps(first_cfg))
+            configs = [central_cfg]
+            cmd.append("--all")
         for c in configs:
             cmd += ["-c", str(c)]
         proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
@@ -101,9 +156,12 @@ def main(argv: list[str] | None = None) -> int:
         finally:
             proc.terminate()
             proc.wait(timeout=20)
+            if pg is not None:
+                pg.close()
+    where = "central store" if args.central else "local stores"
     print(
-        f"{args.instruments} instruments x {args.runs} runs (stores built in {built_s:.0f} s), "
-        f"{args.requests} requests each:"
+        f"{args.instruments} instruments x {args.runs} runs, {where} (stores built in "
+        f"{built_s:.0f} s{published}), {args.requests} requests each:"
     )
     print(_line("floor page", floor_ms, floor_size))
     print(_line(f"30-day instrument page ({first} to {last})", page_ms, page_size))

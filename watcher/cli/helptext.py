@@ -61,8 +61,16 @@ EXIT_CODES: dict[str, tuple[tuple[ExitCode, str], ...]] = {
     ),
     "serve": (
         (ExitCode.OK, "stopped (Ctrl-C or SIGTERM)"),
-        (ExitCode.USAGE, "a config problem, or an address off 127.0.0.1 without serve.token"),
-        (ExitCode.RUNTIME, "the address cannot be bound (in use, no permission)"),
+        (
+            ExitCode.USAGE,
+            "a config problem, an address off 127.0.0.1 without serve.token, or --all "
+            "without central.url",
+        ),
+        (
+            ExitCode.RUNTIME,
+            "the address cannot be bound (in use, no permission), or with --all the central "
+            "store cannot be read",
+        ),
         (ExitCode.INTERRUPTED, "interrupted (Ctrl-C)"),
     ),
     "ack": (

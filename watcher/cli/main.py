@@ -204,6 +204,12 @@ def build_parser() -> argparse.ArgumentParser:
         help="an instrument's lab config (YAML); repeat for each instrument on the page",
     )
     p.add_argument(
+        "--all",
+        action="store_true",
+        help="every instrument in the central store of the first config's central.url "
+        "(the configs given add their checks' limit lines)",
+    )
+    p.add_argument(
         "--listen", metavar="HOST:PORT", help="address to serve on (default: serve.listen)"
     )
 

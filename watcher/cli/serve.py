@@ -1,14 +1,19 @@
-"""``ionwarden serve -c CONFIG [-c CONFIG ...] [--listen HOST:PORT]``: the read-only floor page.
+"""``ionwarden serve -c CONFIG [-c CONFIG ...] [--all] [--listen HOST:PORT]``: the read-only
+floor page.
 
 Each config is one instrument: its ``instrument.name``, checks and time zone, and its
 ``state_dir`` store, read-only (``watcher.view.sqlite_source``); give one ``-c`` per instrument
-to put several on one page. ``serve.listen``, ``serve.token`` and ``serve.refresh_s`` come from
+to put several on one page. With ``--all`` the page shows every instrument in the central store
+named by the first config's ``central.url`` instead (``watcher.view.central_source``); the
+configs given lend their instruments' checks (the charts' limit lines) and time zones.
+``serve.listen``, ``serve.token`` and ``serve.refresh_s`` come from
 the first config; ``--listen`` overrides the address. Bound to anything but a loopback address
 it refuses to start without ``serve.token`` (exit 2). It serves with uvicorn on a socket it
 binds itself, so a port in use is one clear line (exit 3), not a traceback.
 
-Exit codes: 0 stopped (SIGTERM), 2 bad config, bad --listen, a missing token, or two configs
-naming the same instrument, 3 the address cannot be bound, 130 Ctrl-C.
+Exit codes: 0 stopped (SIGTERM), 2 bad config, bad --listen, a missing token, two configs
+naming the same instrument, or --all without central.url, 3 the address cannot be bound or
+(--all) the central store cannot be read, 130 Ctrl-C.
 """
 
 from __future__ import annotations
@@ -21,13 +26,14 @@ from typing import TYPE_CHECKING, Any
 
 from watcher.cli.exitcodes import ExitCode
 from watcher.config import load, state_dir_of
-from watcher.errors import ConfigError
+from watcher.errors import ConfigError, StoreError
 
 if TYPE_CHECKING:
     import argparse
     from types import FrameType
 
-    from watcher.config import Listen
+    from watcher.config import Config, Listen
+    from watcher.view.source import FloorSource
 
 
 class _Stopped(Exception):
@@ -60,6 +66,15 @@ def bind(listen: Listen) -> socket.socket:
     return sock
 
 
+def _central(configs: list[Config]) -> FloorSource:
+    """Every instrument of the first config's central store (StoreError: not readable)."""
+    from watcher.view.central_source import CentralFloorSource
+
+    central = configs[0].central
+    assert central.url is not None  # noqa: S101 - main checked it
+    return CentralFloorSource(central.url, own=configs, connect_timeout_s=central.connect_timeout_s)
+
+
 def main(args: argparse.Namespace) -> int:
     import uvicorn
 
@@ -78,8 +93,21 @@ def main(args: argparse.Namespace) -> int:
             "reverse proxy as well\n"
         )
         return ExitCode.USAGE
+    if getattr(args, "all", False) and first.central.url is None:
+        sys.stderr.write(
+            f"ionwarden serve: {args.config[0]}: central.url is not set (--all reads the "
+            "central store)\n"
+        )
+        return ExitCode.USAGE
     try:
-        source = MultiSource([SqliteFloorSource(c, state_dir_of(c)) for c in configs])
+        source: FloorSource
+        if getattr(args, "all", False):
+            source = _central(configs)
+        else:
+            source = MultiSource([SqliteFloorSource(c, state_dir_of(c)) for c in configs])
+    except StoreError as exc:
+        sys.stderr.write(f"ionwarden serve: {exc}\n")
+        return ExitCode.RUNTIME
     except ValueError as exc:
         sys.stderr.write(f"ionwarden serve: {exc}: give each instrument its own name\n")
         return ExitCode.USAGE
@@ -91,7 +119,7 @@ def main(args: argparse.Namespace) -> int:
     app = build_app(source, token=token, refresh_s=first.serve.refresh_s)
     port = sock.getsockname()[1]
     host = f"[{listen.host}]" if ":" in listen.host else listen.host
-    names = ", ".join(source.names())
+    names = ", ".join(source.names()) or "no instruments yet"
     sys.stdout.write(f"ionwarden serve: http://{host}:{port}/ ({names}); Ctrl-C stops\n")
     sys.stdout.flush()
 

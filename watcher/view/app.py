@@ -175,7 +175,6 @@ def build_app(
     )
     env.filters["q"] = lambda s: quote(str(s), safe="")
     registry = registry_for(source)
-    names = set(source.names())
 
     def page(request: Request, template: str, context: dict[str, Any], mark: str) -> Response:
         nonce = secrets.token_urlsafe(16)
@@ -202,7 +201,7 @@ def build_app(
         name = request.path_params["name"]
         if len(name) > MAX_NAME_CHARS or any(ord(c) < 32 or ord(c) == 127 for c in name):
             return bad("instrument: not a valid instrument name")
-        if name not in names:
+        if name not in source.names():  # asked each time: a central store gains instruments
             return bad(f"no instrument named {name!r} here", 404)
         tz = ZoneInfo(source.timezone(name))
         now_s = clock()
