@@ -25,6 +25,10 @@ def test_demo_facility_publishes_three_instruments(tmp_path: Path) -> None:
         assert f"{name}: " in result.stdout
         assert f"({runs} runs;" in result.stdout.split(f"\n{name}: ")[1].splitlines()[0]
     assert "3 instrument(s)" in result.stdout
+    # and the floor page's address (serve.listen's default: loopback, port 8470)
+    assert "ionwarden serve -c " in result.stdout
+    assert "--all" in result.stdout.split("ionwarden serve -c ", 1)[1].splitlines()[0]
+    assert "open http://127.0.0.1:8470/" in result.stdout
     # The server was stopped (its data folder is named in the closing lines).
     data = result.stdout.split(" -D ")[1].split()[0]
     assert not (Path(data) / "postmaster.pid").exists()

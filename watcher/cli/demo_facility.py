@@ -218,7 +218,18 @@ def _run(
     print(f"central store (stopped now): {url}")
     print(f"  start it again: {_start_hint(server)}")
     print(f"  then: ionwarden status -c {configs[0]} --all   (or --instrument NAME, digest --all)")
+    print(f"  the floor page: ionwarden serve -c {configs[0]} --all")
+    print(f"    and open {_page_address(configs[0])} (every instrument as a tile)")
     return code
+
+
+def _page_address(config_path: Path) -> str:
+    """Where ``serve`` listens for this config (its ``serve.listen``, by default 127.0.0.1)."""
+    from watcher import config as config_mod
+
+    listen = config_mod.load(config_path).serve.listen
+    host = f"[{listen.host}]" if ":" in listen.host else listen.host
+    return f"http://{host}:{listen.port}/"
 
 
 def _start_hint(server: DemoServer) -> str:
