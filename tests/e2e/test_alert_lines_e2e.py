@@ -33,6 +33,12 @@ DAY = datetime(2026, 11, 27, 18, 0, tzinfo=UTC)
 TIC_FLOOR = 10_000.0
 
 
+def _items(message: str) -> list[str]:
+    """A message's item lines: without its heading, its ack/silence hint and its id line."""
+    body = message.splitlines()[1:]
+    return [ln for ln in body if not ln.startswith(("seen it? ", "id: "))]
+
+
 def _run(tmp: Path, n: int, *, offset_ppm: float, tic_scale: float = 1.0) -> bytes:
     spec = synth.RunSpec(
         duration_s=10,
@@ -113,7 +119,7 @@ def test_lines_name_check_subject_value_and_limit_and_titles_follow_each_channel
         (f"{INSTRUMENT}: OK QC_02.mzML", "success"),
     ]
     # QC_01 on chat: the two checks that fired on the same metric make ONE line.
-    lines = chat[0]["message"].splitlines()[1:-1]
+    lines = _items(chat[0]["message"])
     assert len(lines) == 1, lines
     m = re.fullmatch(
         rf"NEW critical: calibration drift \+ lock mass, siloxane-445: {_VALUE}, "
@@ -123,7 +129,7 @@ def test_lines_name_check_subject_value_and_limit_and_titles_follow_each_channel
     assert m, lines
     assert abs(float(m.group(1)) - 6.0) <= 0.2  # synth truth +6 ppm, shown at 0.1 ppm
     # QC_02 on chat: the signal floor with its value and limit, then the clear with the value.
-    lines = chat[1]["message"].splitlines()[1:-1]
+    lines = _items(chat[1]["message"])
     assert len(lines) == 2, lines
     m = re.fullmatch(
         r"NEW critical: signal floor, median TIC: (\d+(?:\.\d+)?)( k)?, below 10 k"
@@ -141,7 +147,7 @@ def test_lines_name_check_subject_value_and_limit_and_titles_follow_each_channel
     assert m, lines
     assert abs(float(m.group(1))) <= 0.2  # synth truth 0 ppm
     # The manager's message: only its own check's clear; no metric path anywhere.
-    assert manager[1]["message"].splitlines()[1:-1] == [
+    assert _items(manager[1]["message"]) == [
         lines[1].replace("calibration drift + lock mass", "calibration drift")
     ]
     assert "run status critical" in manager[1]["message"].splitlines()[0]
@@ -161,7 +167,7 @@ def test_unreadable_and_stalled_runs_carry_their_action_hints(
     written = time.monotonic()
     wait_for(lambda: receiver.by_path().get("/chat"), stall_s + SETTLE_S + 10, "the stall alert")
     assert time.monotonic() - written <= stall_s + SETTLE_S + 2.0
-    (line,) = receiver.by_path()["/chat"][0]["message"].splitlines()[1:-1]
+    (line,) = _items(receiver.by_path()["/chat"][0]["message"])
     assert re.fullmatch(
         r"NEW critical: unreadable, QC_cut\.mzML: incomplete: .+, still so after \d+ s"
         r" — check the transfer and the share, then copy the run again",
@@ -182,10 +188,8 @@ def test_unreadable_and_stalled_runs_carry_their_action_hints(
         f"{INSTRUMENT}: OK QC_good.mzML",
         f"{INSTRUMENT}: UNREADABLE QC_zlib.mzML",
     ]
-    assert chat[1]["message"].splitlines()[1:-1] == [
-        "OK AGAIN: unreadable, runs are readable again"
-    ]
-    (line,) = chat[2]["message"].splitlines()[1:-1]
+    assert _items(chat[1]["message"]) == ["OK AGAIN: unreadable, runs are readable again"]
+    (line,) = _items(chat[2]["message"])
     assert line.startswith("NEW critical: unreadable, QC_zlib.mzML: ")
     assert line.endswith(" — re-export the run from the acquisition software")
     # The manager takes only the drift check: no unreadable alert reaches it.

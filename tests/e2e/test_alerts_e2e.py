@@ -287,7 +287,7 @@ def test_digest_of_a_night_renders_in_chromium(
     assert "siloxane-445" in html
     assert html.count('<tr class="finding">') == 1  # only QC_03 (+6 ppm) broke the limit
     assert "QC_03.mzML" in html
-    assert "6 ppm" in html  # the finding's value with its unit
+    assert "+6.0 ppm" in html  # the finding's value with its sign and unit, as in the alerts
     # One Levey-Jennings chart per calibrant, the TIC and the status timeline; no ions configured.
     assert len(re.findall(r'<img [^>]*src="data:image/png;base64,', html)) == 3
     if browser.CHROMIUM is None:

@@ -175,7 +175,7 @@ def test_silence_holds_every_message_and_summarizes_once(
     assert lines[0].startswith("silence 1 over (source cleaning) | ")
     assert lines[1] == "still open (1):"
     assert lines[2].startswith("STILL warning: ")
-    assert "calibrant siloxane-445 median error +4.0 ppm" in lines[2]  # the synthetic truth
+    assert "calibration drift, siloxane-445: +4.0 ppm" in lines[2]  # the synthetic truth
     assert lines[3] == "opened and cleared meanwhile: unreadable (critical)"
     # raise drift, raise unreadable, clear both, raise drift again
     assert lines[4] == "5 alert change(s) were held back while quiet"

@@ -84,7 +84,7 @@ def test_vendor_folder_is_converted_measured_and_alerted_once(
     assert lab.runs() == [("QC_0001.d", "critical", None)]
     assert receiver.titles() == [f"{INSTRUMENT}: CRITICAL QC_0001.d"]
     # synth truth: +6 ppm (tests/helpers/converter.py --offset-ppm 6), outside +-5 ppm.
-    assert "calibrant siloxane-445 median error +6.0 ppm" in bodies[0]["message"]
+    assert "calibration drift, siloxane-445: +6.0 ppm" in bodies[0]["message"]
     wait_for(lambda: lab.health_runs(), 10.0, "the run's health-log line")
     health = lab.health_runs()
     assert [r["file"] for r in health] == ["QC_0001.d"]

@@ -326,7 +326,8 @@ class Pipeline:
                     result = ChildResult(None, "incomplete", job.incomplete)
                     ready.append((job, job.sha256, result))
                     continue
-                prepared = self._prepare(job)
+                with structlog.contextvars.bound_contextvars(job_id=job.id, file=shown(job.path)):
+                    prepared = self._prepare(job)
                 if isinstance(prepared, JobOutcome):
                     outcomes[job.id] = prepared
                     pending.remove(job)
@@ -347,7 +348,9 @@ class Pipeline:
                 return run_time(result.metrics, run_file, judged_at), batch.index(job)
 
             for job, sha256, result in sorted(results, key=order):
-                outcomes[job.id] = self._commit(config, job, sha256, result)
+                with structlog.contextvars.bound_contextvars(job_id=job.id, file=shown(job.path)):
+                    outcomes[job.id] = self._commit(config, job, sha256, result)
+                    structlog.contextvars.unbind_contextvars("run_id")
                 pending.remove(job)
         except (Stopped, ChildStartError) as exc:
             self.close()
@@ -377,7 +380,7 @@ class Pipeline:
             )
         pool = self._measuring_threads
         futures = {
-            job.id: pool.submit(self._measure, config, job, child)
+            job.id: pool.submit(self._measure_logged, config, job, child)
             for job, child in zip(batch, children, strict=False)
         }
         # Every child answers (or dies) before the batch goes on, so that no child is still
@@ -469,6 +472,12 @@ class Pipeline:
             run_id=twin.run_id,
         )
         return JobOutcome.DUPLICATE
+
+    def _measure_logged(self, config: Config, job: jobs.Job, child: MeasuringChild) -> ChildResult:
+        """``_measure`` in a thread of its own, its log lines naming the job as ``process`` does
+        (context variables do not cross into a pool's threads)."""
+        with structlog.contextvars.bound_contextvars(job_id=job.id, file=shown(job.path)):
+            return self._measure(config, job, child)
 
     def _measure(
         self, config: Config, job: jobs.Job, child: MeasuringChild | None = None
