@@ -109,6 +109,12 @@ _PARAM_TAGS = ("{*}cvParam", "{*}referenceableParamGroupRef")
 
 
 def _params_of(element: Any, groups: Groups) -> _Params:
+    return _Params(param_values(element, groups))
+
+
+def param_values(element: Any, groups: Groups) -> dict[str, Param]:
+    """An element's cvParams by accession, its referenced param groups' included (the first
+    value of an accession wins); the spectrum and the chromatogram readers share it."""
     # iterchildren's tag filter runs in C: this is the hot loop of every spectrum.
     values: dict[str, Param] = {}
     for child in element.iterchildren(*_PARAM_TAGS):
@@ -125,7 +131,7 @@ def _params_of(element: Any, groups: Groups) -> _Params:
         else:
             for param in groups.get(get("ref", ""), ()):
                 values.setdefault(param[0], param)
-    return _Params(values)
+    return values
 
 
 def scan_from_element(

@@ -41,6 +41,7 @@ from watcher.measure.readers.mzml import (
     SpectrumError,
     UnsupportedCompression,
     local_name,
+    param_values,
 )
 
 if TYPE_CHECKING:
@@ -58,7 +59,6 @@ KINDS = {
 _TIME_UNIT_NAMES_S = {"second": 1.0, "minute": 60.0, "millisecond": 1e-3, "hour": 3600.0}
 _TAGS = ("{*}chromatogram", "{*}chromatogramList", "{*}run")
 _PARTS = ("{*}precursor", "{*}product", "{*}binaryDataArrayList")
-_PARAM_TAGS = ("{*}cvParam", "{*}referenceableParamGroupRef")
 
 
 class ChromatogramError(SpectrumError):
@@ -99,7 +99,7 @@ def chromatogram_from_element(element: Any, *, index: int, groups: Groups) -> Ch
         UnsupportedCompression: an array compression this reader cannot decode.
     """
     where = f"chromatogram {index} ({element.get('id', '?')})"
-    params = _params(element, groups)
+    params = param_values(element, groups)
     kind = next((KINDS[acc] for acc in params if acc in KINDS), kinds.OTHER)
     precursor_mz = product_mz = None
     arrays: dict[str, np.ndarray] = {}
@@ -135,25 +135,6 @@ def chromatogram_from_element(element: Any, *, index: int, groups: Groups) -> Ch
     )
 
 
-def _params(element: Any, groups: Groups) -> dict[str, Param]:
-    values: dict[str, Param] = {}
-    for child in element.iterchildren(*_PARAM_TAGS):
-        get = child.get
-        if child.tag.endswith("cvParam"):
-            accession = get("accession", "")
-            if accession not in values:
-                values[accession] = (
-                    accession,
-                    get("value", ""),
-                    get("unitAccession"),
-                    get("unitName"),
-                )
-        else:
-            for param in groups.get(get("ref", ""), ()):
-                values.setdefault(param[0], param)
-    return values
-
-
 def _number(params: dict[str, Param], accession: str, where: str) -> float | None:
     param = params.get(accession)
     if param is None or param[1] == "":
@@ -169,12 +150,14 @@ def _number(params: dict[str, Param], accession: str, where: str) -> float | Non
 def _target_mz(part: Any, groups: Groups, where: str, *, fallback: bool) -> float | None:
     window = part.find("{*}isolationWindow")
     target = (
-        None if window is None else _number(_params(window, groups), ISOLATION_TARGET_MZ, where)
+        None
+        if window is None
+        else _number(param_values(window, groups), ISOLATION_TARGET_MZ, where)
     )
     if target is not None or not fallback:
         return target
     ion = part.find("{*}selectedIonList/{*}selectedIon")
-    return None if ion is None else _number(_params(ion, groups), SELECTED_ION_MZ, where)
+    return None if ion is None else _number(param_values(ion, groups), SELECTED_ION_MZ, where)
 
 
 def _arrays(
@@ -182,7 +165,7 @@ def _arrays(
 ) -> dict[str, np.ndarray]:
     out: dict[str, np.ndarray] = {}
     for bda in array_list.iterchildren("{*}binaryDataArray"):
-        params = _params(bda, groups)
+        params = param_values(bda, groups)
         kind = (
             TIME_ARRAY
             if TIME_ARRAY in params
