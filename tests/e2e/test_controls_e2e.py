@@ -12,12 +12,12 @@ from __future__ import annotations
 import json
 import sqlite3
 import time
-from datetime import UTC, datetime, timedelta
+from datetime import datetime, timedelta
 from typing import TYPE_CHECKING, Any
 from zoneinfo import ZoneInfo
 
-import synth
 from tests.helpers.cli import Result, run_cli
+from tests.helpers.nights import SILOXANE_MZ, run_bytes
 from tests.helpers.wait import wait_for
 
 if TYPE_CHECKING:
@@ -26,8 +26,6 @@ if TYPE_CHECKING:
     from tests.helpers.daemon import Lab
     from tests.helpers.receiver import Receiver
 
-SILOXANE_MZ = 445.120025  # polysiloxane background ion [C2H6SiO]6+H+ (common practice, lock mass)
-DAY = datetime(2026, 11, 27, 18, 0, tzinfo=UTC)
 INSTRUMENT = "Kestrel-2 Q-TOF"
 DRIFT_CHECK = {
     "name": "calibration drift",
@@ -35,23 +33,6 @@ DRIFT_CHECK = {
     "warning": {"outside": [-3, 3]},
     "critical": {"outside": [-5, 5]},
 }
-
-
-def run_bytes(offset_ppm: float, n: int, tmp: Path) -> bytes:
-    """A 10 s synthetic run whose siloxane calibrant sits ``offset_ppm`` off; n-th of the night."""
-    spec = synth.RunSpec(
-        duration_s=10,
-        ms2_per_cycle=0,
-        background_peaks=20,
-        seed=n,
-        calibrants=[
-            synth.CalibrantTruth(name="siloxane-445", mz=SILOXANE_MZ, offset_ppm=offset_ppm)
-        ],
-        start_time=DAY + timedelta(minutes=25 * n),
-    )
-    path = tmp / f"gen{n}.mzML"
-    synth.write_mzml(path, spec, indexed=False)
-    return path.read_bytes()
 
 
 def configure(lab: Lab, url: str, **overrides: Any) -> None:
