@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import os
 import sys
 from typing import TYPE_CHECKING
 
@@ -29,6 +30,12 @@ from watcher.kinds import NOTE_KINDS
 
 if TYPE_CHECKING:
     from collections.abc import Sequence
+
+# numpy's OpenBLAS starts a spinning thread per core when numpy is imported: about 0.15 s of CPU
+# in every `ionwarden check` on this project's 2-core bench machine (measured 2026-12-04), for
+# linear algebra that is a few small line fits. One thread, unless the user asked for more;
+# set here, before anything imports numpy, so the measuring children inherit it.
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
 # command -> module whose ``main(args) -> int`` runs it; imported lazily so that
 # ``ionwarden validate`` does not pay for numpy, pyteomics or matplotlib.

@@ -15,11 +15,8 @@ its blocks with it.
 from __future__ import annotations
 
 import contextlib
-import ctypes
-import multiprocessing
 import os
 import signal
-from concurrent.futures import ProcessPoolExecutor
 from typing import TYPE_CHECKING
 
 if TYPE_CHECKING:
@@ -31,8 +28,9 @@ if TYPE_CHECKING:
     from watcher.measure.scan import RunHeader
     from watcher.records import RunMetrics
 
-# The readers and the traces are imported where blocks are read, not on import: the daemon's
-# main process asks ``worker_count`` and never reads a run itself.
+# The readers, the traces and the process pool (multiprocessing, concurrent.futures: about 15 ms)
+# are imported where blocks are read, not on import: the daemon's main process asks
+# ``worker_count`` and never reads a run itself, and a small run never forks.
 MAX_AUTO_WORKERS = 4
 MIN_SPECTRA_PER_BLOCK = 16  # fewer spectra per block: the processes cost more than they save
 # Below this size one pass is faster than forking and joining (a few tens of ms of overhead).
@@ -69,6 +67,9 @@ def measure_in_blocks(
         return None
     if workers < 2 or size < min_bytes:
         return None
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor
+
     from watcher.measure.readers import mzml_blocks
 
     bounds = mzml_blocks.block_bounds(path, workers, min_spectra_per_block=min_spectra_per_block)
@@ -120,6 +121,8 @@ def _measure_block(
 
 def _die_with_parent() -> None:
     """Ask the kernel to SIGKILL this block when the process that forked it dies."""
+    import ctypes
+
     with contextlib.suppress(OSError, AttributeError):
         libc = ctypes.CDLL(None, use_errno=True)
         libc.prctl(_PR_SET_PDEATHSIG, signal.SIGKILL)

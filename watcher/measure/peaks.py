@@ -13,6 +13,8 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from watcher.measure.robust import median_of
+
 if TYPE_CHECKING:
     from watcher.measure.scan import FloatArray
 
@@ -26,7 +28,7 @@ def looks_profile(mz: FloatArray) -> bool:
         return False
     sample = mz[: min(mz.size, 4096)]
     spacing_ppm = np.diff(sample) / sample[1:] * 1e6
-    return bool(np.median(spacing_ppm) < _PROFILE_SPACING_PPM)
+    return median_of(spacing_ppm) < _PROFILE_SPACING_PPM
 
 
 def find_peak(

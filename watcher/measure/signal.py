@@ -123,7 +123,7 @@ def median_cycle_s(rt_s: FloatArray) -> float | None:
     known = rt_s[np.isfinite(rt_s)]
     if known.size < 2:
         return None
-    return float(np.median(np.diff(np.sort(known))))
+    return robust.median_of(np.diff(np.sort(known)))
 
 
 # The TIC quantile that stands for "the spray works": a failure shorter than 95 % of the run
@@ -147,9 +147,9 @@ def working_tic(tic: FloatArray, fraction: float) -> float | None:
     known = tic[np.isfinite(tic)]
     if not known.size:
         return None
-    top = float(np.quantile(known, WORKING_QUANTILE))
+    top = robust.quantile_of(known, WORKING_QUANTILE)
     working = known[known >= fraction * top]
-    return float(np.median(working)) if working.size else None
+    return robust.median_of(working) if working.size else None
 
 
 def find_dropouts(
@@ -207,7 +207,7 @@ def _dropout_s(rt_s: FloatArray, start: int, end: int, cycle_s: float | None) ->
     segment = rt_s[start:end]
     if np.isfinite(segment).all():
         if segment.size >= 2:
-            step = float(np.median(np.diff(segment)))
+            step = robust.median_of(np.diff(segment))
         elif end < rt_s.size and math.isfinite(rt_s[end]):
             step = float(rt_s[end] - segment[0])
         elif cycle_s is not None:

@@ -139,7 +139,7 @@ def summed_trace(traces: Iterable[Chromatogram]) -> tuple[FloatArray, FloatArray
     if not known:
         order = np.argsort(times, kind="stable")
         return times[order], values[order]
-    cycle_s = float(np.median(known))
+    cycle_s = robust.median_of(np.asarray(known, dtype=np.float64))
     bins = np.floor((times - float(times.min())) / cycle_s).astype(np.int64)
     unique, inverse = np.unique(bins, return_inverse=True)
     sums = np.bincount(inverse, weights=values, minlength=unique.size)
@@ -246,7 +246,7 @@ def measure_transition(
         return absent(transition), None
     top = int(np.argmax(height))
     apex_rt_s, apex_intensity, fwhm_s = elution_peak(time_s, height, top)
-    baseline = float(np.quantile(height, BASELINE_QUANTILE))
+    baseline = robust.quantile_of(height, BASELINE_QUANTILE)
     return (
         ExpectedIonResult(
             name=transition.name,
