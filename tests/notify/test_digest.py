@@ -402,6 +402,7 @@ def test_limits_are_drawn_and_points_take_the_metric_state() -> None:
     assert digest_mod._metric_state(run, "signal.tic_median") == "critical"
 
 
+@pytest.mark.skipif(browser.CHROMIUM is None, reason="chromium is not installed (CI installs it)")
 def test_digest_reads_at_desktop_and_phone_width(state: Path, tmp_path: Path) -> None:
     """Headless Chromium at 1280 px and at a 390 px phone width: the verdict is the first
     section and nothing is wider than the viewport. Headless windows are at least 500 px wide,
