@@ -97,16 +97,12 @@ def main() -> int:
     signal.signal(signal.SIGTERM, signal.SIG_IGN)
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     # Imported once, before the ready byte: measure_file imports its readers lazily, and the
-    # first run would otherwise pay for pyteomics and the readers inside its time limit.
+    # first run would otherwise pay for them inside its time limit. The PSI-MS vocabulary
+    # (about 0.5 s) is not loaded here: the readers key on accessions and need it only to name
+    # an unknown term, which few runs have, while a burst restarts children every
+    # ``recycle_after`` runs.
     import watcher.measure.readers.read
     import watcher.measure.run  # noqa: F401
-
-    try:
-        from watcher.measure.readers.cv import load_cv
-
-        load_cv()  # about 0.5 s: paid here, not against the first run's time limit
-    except ImportError:
-        pass
 
     out = sys.stdout.buffer
     out.write(READY)

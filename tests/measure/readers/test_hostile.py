@@ -89,3 +89,24 @@ def test_undeclared_entity_is_an_error_not_a_leak(tmp_path: Path) -> None:
         list(scans)
     assert info.value.kind == "corrupt"
     assert "\n" not in str(info.value)  # one line (house rule); libxml2's wording varies
+
+
+@pytest.mark.timeout(60)  # a hang guard (speed is measured in bench/)
+@pytest.mark.parametrize("pad", [0, 4090, 4093, 4096, 9000])
+def test_doctype_after_a_long_prolog_is_refused_wherever_the_reads_split_it(
+    tmp_path: Path, pad: int
+) -> None:
+    """The prolog is read in small chunks; a DOCTYPE behind a long comment, straddling a chunk
+    boundary, or with an internal subset longer than a chunk (10,000 entity declarations:
+    libxml2 stops on them before the root) is still refused as a DOCTYPE."""
+    body = (SHARED_REFERENCE / "mzml" / "tiny.pwiz.1.1.mzML").read_bytes()
+    declaration = b'<?xml version="1.0" encoding="utf-8"?>\n'
+    rest = body[body.index(b"?>") + 2 :]
+    comment = b"<!--" + b"x" * pad + b"-->" if pad else b""
+    entities = b"".join(b'<!ENTITY e%d "%s">' % (i, b"ha" * 8) for i in range(10_000))
+    doctype = b"<!DOCTYPE indexedmzML [" + entities + b"]>"
+    path = tmp_path / f"S01_pad{pad}.mzML"
+    path.write_bytes(declaration + comment + doctype + rest)
+    with pytest.raises(ReadError) as info:
+        assert_no_doctype(path)
+    assert info.value.kind == "xml-doctype"
