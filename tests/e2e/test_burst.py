@@ -10,12 +10,16 @@ three, and everything the store holds that a person would see is compared.
 
 from __future__ import annotations
 
+import os
 import shutil
 import sqlite3
 from datetime import UTC, datetime, timedelta
 from typing import TYPE_CHECKING, Any
 
+import pytest
+
 import synth
+from tests.helpers.wait import wait_for
 
 if TYPE_CHECKING:
     from pathlib import Path
@@ -98,3 +102,65 @@ def test_three_workers_judge_a_burst_as_one_worker_does(
     ]
     assert [status for _, status in serial["runs"]] == expected
     assert len(serial["messages"]) >= 4  # raised, escalated, cleared ... not one per run
+
+
+def _drop_in_order(lab: Lab, contents: list[bytes]) -> list[str]:
+    """Files S00.. with strictly rising mtimes: the order the daemon claims them in."""
+    names = []
+    base_ns = 1_790_000_000 * 10**9
+    for i, body in enumerate(contents):
+        path = lab.exports / f"S{i:02d}.mzML"
+        path.write_bytes(body)
+        os.utime(path, ns=(base_ns + i * 10**9, base_ns + i * 10**9))
+        names.append(path.name)
+    return names
+
+
+@pytest.mark.timeout(120)  # a hang guard (speed is measured in bench/)
+def test_a_twin_of_a_run_still_being_committed_is_linked_as_its_duplicate(lab: Lab) -> None:
+    """Two workers: S00+S01, S02+S03, ... are claimed together, and the next pair is claimed
+    and hashed while the previous one commits. S02 holds S00's bytes and S05 S03's: each must
+    end as a duplicate of its original, not as a second run of the same content."""
+    bodies = [lab.run_bytes(n) for n in range(8)]
+    bodies[2] = bodies[0]
+    bodies[5] = bodies[3]
+    names = _drop_in_order(lab, bodies)
+    lab.write_config(limits={"workers": 2})
+    d = lab.start()
+    wait_for(
+        lambda: [state for _, state, _ in lab.jobs()].count("done") == len(names),
+        60,
+        "every job done",
+    )
+    assert d.stop() == 0
+    outcomes = {name: outcome for name, _, outcome in lab.jobs()}
+    assert outcomes["S02.mzML"] == "duplicate"
+    assert outcomes["S05.mzML"] == "duplicate"
+    assert sorted(lab.runs_by_name()) == [n for n in names if n not in ("S02.mzML", "S05.mzML")]
+    assert set(lab.runs_by_name().values()) == {1}
+
+
+@pytest.mark.timeout(180)  # a hang guard (speed is measured in bench/)
+def test_a_burst_stopped_midway_is_judged_exactly_once_after_the_restart(lab: Lab) -> None:
+    """SIGTERM while batches are measured and committed: what was committed stays, the rest
+    goes back to the queue, and the next daemon judges each run once, in claim order."""
+    count = 60
+    names = _drop_in_order(lab, [lab.run_bytes(n) for n in range(count)])
+    lab.write_config(limits={"workers": 2})
+    d = lab.start()
+    wait_for(lambda: len(lab.runs()) >= 6, 60, "a few judged runs")
+    assert d.stop() == 0
+    judged_before = len(lab.runs())
+    states = {state for _, state, _ in lab.jobs()}
+    assert states <= {"done", "queued"}  # nothing left "measuring", nothing failed
+    d = lab.start()
+    lab.wait_runs(count, timeout_s=120)
+    assert d.stop() == 0
+    assert lab.runs_by_name() == dict.fromkeys(names, 1)
+    assert judged_before <= count
+    conn = sqlite3.connect(f"file:{lab.state / 'ionwarden.sqlite3'}?mode=ro", uri=True)
+    try:
+        stored = [row[0] for row in conn.execute("SELECT file_name FROM runs ORDER BY run_id")]
+    finally:
+        conn.close()
+    assert stored == names  # one at a time, in order, across the stop

@@ -617,16 +617,8 @@ class Daemon:
                     continue
                 retry_s = STORE_RETRY_FIRST_S
                 self._store_recovered(pipeline.conn)
-            batch: list[jobs.Job] = []
             try:
-                with db.write(pipeline.conn):
-                    # A burst (after downtime, a copied folder) is measured limits.workers at
-                    # a time; a lone run is claimed alone, so it may be read in blocks.
-                    for _ in range(worker_count(self.config.limits.workers)):
-                        claimed = jobs.claim_next(pipeline.conn, self.clock())
-                        if claimed is None:
-                            break
-                        batch.append(claimed)
+                batch = self._claim_batch(pipeline)
                 if not batch:
                     pipeline.flush_health_due()
             except sqlite3.Error as exc:
@@ -637,18 +629,20 @@ class Daemon:
                 self.wake_worker.clear()
                 continue
             job = batch[0]
-            self._busy_limit_s = max(time_limit_s(self.config.limits, j.size) for j in batch)
-            cfg = self.config
-            if any(
-                vendor.is_vendor_name(j.path.name, cfg.convert.patterns, cfg.watch.ignore)
-                for j in batch
-            ):
-                self._busy_limit_s += cfg.convert.timeout_s  # the converter runs first
-            self._busy_since = time.monotonic()
+            pipeline.burst_jobs = []
+            self._mark_busy(batch)
             try:
-                outcomes = pipeline.process_batch(batch)
-                if JobOutcome.REQUEUED in outcomes and not self.stop_event.is_set():
-                    self.stop_event.wait(5.0 if len(batch) == 1 else 0.0)  # no spin on a dead child
+                if len(batch) == 1:
+                    # A lone run is claimed alone, so it may be read in blocks on every core.
+                    outcome = pipeline.process(job)
+                    if outcome is JobOutcome.REQUEUED and not self.stop_event.is_set():
+                        self.stop_event.wait(5.0)  # no spin on a child that does not start
+                else:
+                    # A burst (after downtime, a copied folder): limits.workers runs measured
+                    # at a time, the next batch claimed as soon as the children are free.
+                    pipeline.process_burst(
+                        batch, lambda: self._claim_batch(pipeline), on_batch=self._mark_busy
+                    )
             except sqlite3.Error as exc:
                 # The run's commit (or any write of the job) was refused: nothing of it is
                 # stored, so it is measured again once the store takes writes.
@@ -656,11 +650,39 @@ class Daemon:
             except Exception:
                 log.exception("run.failed", file=shown(job.path))
                 try:
-                    pipeline.fail_unfinished(batch, "internal error (see the daemon log)")
+                    unfinished = pipeline.burst_jobs or batch
+                    pipeline.fail_unfinished(unfinished, "internal error (see the daemon log)")
                 except sqlite3.Error:
                     log.exception("run.failed", file=shown(job.path))
             finally:
                 self._busy_since = None
+
+    def _claim_batch(self, pipeline: Pipeline) -> list[jobs.Job]:
+        """Up to ``limits.workers`` queued jobs, oldest first, marked ``measuring``.
+
+        Raises:
+            sqlite3.Error: the store refuses the claim.
+        """
+        batch: list[jobs.Job] = []
+        with db.write(pipeline.conn):
+            for _ in range(worker_count(self.config.limits.workers)):
+                claimed = jobs.claim_next(pipeline.conn, self.clock())
+                if claimed is None:
+                    break
+                batch.append(claimed)
+        return batch
+
+    def _mark_busy(self, batch: list[jobs.Job]) -> None:
+        """The worker is busy from now with ``batch``: the health check allows its time limit."""
+        cfg = self.config
+        limit_s = max(time_limit_s(cfg.limits, j.size) for j in batch)
+        if any(
+            vendor.is_vendor_name(j.path.name, cfg.convert.patterns, cfg.watch.ignore)
+            for j in batch
+        ):
+            limit_s += cfg.convert.timeout_s  # the converter runs first
+        self._busy_limit_s = limit_s
+        self._busy_since = time.monotonic()
 
 
 def _watched(config: Config) -> Watch:

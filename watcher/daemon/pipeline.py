@@ -19,7 +19,7 @@ import signal
 import subprocess
 import sys
 import time
-from concurrent.futures import ThreadPoolExecutor, wait
+from concurrent.futures import Future, ThreadPoolExecutor, wait
 from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
 from enum import StrEnum
@@ -253,6 +253,24 @@ def _read_exact(fd: int, n: int, deadline: float, stop: threading.Event | None) 
 
 
 @dataclass(slots=True)
+class _Measuring:
+    """A batch of a burst between its claim and its commits: prepared, its children at work."""
+
+    batch: list[jobs.Job]  # in claim order
+    config: Config  # the config in force when it was claimed: it is judged by it too
+    # (job, content hash, result): the result is None while a child measures the job
+    ready: list[tuple[jobs.Job, str | None, ChildResult | None]] = field(default_factory=list)
+    futures: dict[int, Future[ChildResult]] = field(default_factory=dict)
+    hashes: set[str] = field(default_factory=set)
+    outcomes: dict[int, JobOutcome] = field(default_factory=dict)
+
+    @property
+    def waiting(self) -> list[jobs.Job]:
+        """The jobs not ended yet (not committed, not skipped, not sent back)."""
+        return [job for job in self.batch if job.id not in self.outcomes]
+
+
+@dataclass(slots=True)
 class Pipeline:
     """Processes claimed jobs with one connection (the worker thread's).
 
@@ -271,11 +289,14 @@ class Pipeline:
     clock: Callable[[], float] = time.time
     last_file: str | None = None
     child: MeasuringChild = field(default_factory=MeasuringChild)
-    # More measuring children for bursts (process_batch): slot 0 is ``child``.
+    # More measuring children for bursts (process_burst): slot 0 is ``child``.
     extra_children: list[MeasuringChild] = field(default_factory=list)
     # The threads that wait on them live as long as the pipeline: a child dies with the thread
     # that started it (PR_SET_PDEATHSIG is per thread), so a pool per batch would kill them.
     _measuring_threads: ThreadPoolExecutor | None = None
+    # Every job claimed in the burst being processed (process_burst): after a fault, the
+    # daemon marks those still ``measuring`` failed.
+    burst_jobs: list[jobs.Job] = field(default_factory=list)
     # Called after each run's commit: the central publisher's wake-up (None: no central store).
     after_commit: Callable[[], None] | None = None
     health_failing: bool = False  # the last try at the owed health lines failed
@@ -300,74 +321,154 @@ class Pipeline:
         if threads is not None:
             threads.shutdown(wait=False)
 
-    def process_batch(self, batch: list[jobs.Job]) -> list[JobOutcome]:
-        """Take several claimed jobs to ``done`` with one measuring child each, at once.
+    def process_burst(
+        self,
+        first: list[jobs.Job],
+        claim: Callable[[], list[jobs.Job]],
+        on_batch: Callable[[list[jobs.Job]], None] | None = None,
+    ) -> dict[int, JobOutcome]:
+        """Take the claimed jobs of ``first``, then of every batch ``claim`` gives until it gives
+        none, to ``done``, with one measuring child per job of a batch, at once.
 
         Catching up after downtime is bound by measuring, which is CPU work in the children;
         judging reads the history the earlier runs wrote, so it and the final transaction stay
-        one at a time, in order of acquisition time (then claim order): baselines and alert
-        sequences come out as if the runs had been taken one by one. A job whose content hash
-        equals another's in the same batch goes back to the queue, to be linked to it as a
-        duplicate once that one is stored. Stopping, or a child that does not start, puts every
-        job not yet committed back to the queue.
+        one at a time: batch after batch in claim order, each in order of acquisition time
+        (then claim order), so baselines and alert sequences come out as if the runs had been
+        taken one by one. The children of a batch are done when its commits start, so they
+        measure the next batch (claimed then) while this thread judges and stores the runs they
+        measured: the cores that a barrier per batch left idle by turns all work.
+
+        A job whose content hash equals another's in its batch, or in the batch being
+        committed, goes back to the queue, to be linked to it as a duplicate when claimed again.
+        ``on_batch`` is told of the jobs in hand as each batch starts (the daemon's time limit
+        for a busy worker). Returns job id -> outcome of every job ended. Stopping, or a child
+        that does not start, puts every job not yet committed back to the queue; any other
+        error is raised after the next batch went back to the queue (the jobs of the batch
+        being committed are still ``measuring``: ``burst_jobs`` lists every job claimed).
         """
-        if len(batch) == 1:
-            return [self.process(batch[0])]
-        config = self.config
-        # One process per run already uses the cores: no blocks inside each child.
-        child_config = replace(config, limits=replace(config.limits, workers=1))
+        current: _Measuring | None = None
+        following: _Measuring | None = None
         outcomes: dict[int, JobOutcome] = {}
-        ready: list[tuple[jobs.Job, str | None, ChildResult | None]] = []
-        hashes: set[str] = set()
-        pending = list(batch)
+        self.burst_jobs = list(first)
         try:
-            for job in batch:
-                if job.incomplete is not None:
-                    result = ChildResult(None, "incomplete", job.incomplete)
-                    ready.append((job, job.sha256, result))
-                    continue
-                with structlog.contextvars.bound_contextvars(job_id=job.id, file=shown(job.path)):
-                    prepared = self._prepare(job)
-                if isinstance(prepared, JobOutcome):
-                    outcomes[job.id] = prepared
-                    pending.remove(job)
-                elif prepared in hashes:
-                    self._release(job)
-                    outcomes[job.id] = JobOutcome.REQUEUED
-                    pending.remove(job)
-                else:
-                    hashes.add(prepared)
-                    ready.append((job, prepared, None))
-            measured = self._measure_many(child_config, [j for j, _, r in ready if r is None])
-            results = [(j, sha, r if r is not None else measured[j.id]) for j, sha, r in ready]
-            judged_at = datetime.fromtimestamp(self.clock(), UTC)
-
-            def order(item: tuple[jobs.Job, str | None, ChildResult]) -> tuple[datetime, int]:
-                job, _, result = item
-                run_file = RunFile(path=job.path, size=job.size, mtime_ns=job.mtime_ns)
-                return run_time(result.metrics, run_file, judged_at), batch.index(job)
-
-            for job, sha256, result in sorted(results, key=order):
-                with structlog.contextvars.bound_contextvars(job_id=job.id, file=shown(job.path)):
-                    outcomes[job.id] = self._commit(config, job, sha256, result)
-                    structlog.contextvars.unbind_contextvars("run_id")
-                pending.remove(job)
+            if on_batch is not None:
+                on_batch(first)
+            current = _Measuring(batch=first, config=self.config)
+            self._start(current, set())
+            while current is not None:
+                results = self._measured(current)
+                following = None
+                if not self.stop.is_set():
+                    batch = claim()
+                    if batch:
+                        self.burst_jobs.extend(batch)
+                        if on_batch is not None:
+                            on_batch([*current.waiting, *batch])
+                        following = _Measuring(batch=batch, config=self.config)
+                        self._start(following, current.hashes)
+                self._commit_all(current, results)
+                outcomes.update(current.outcomes)
+                current, following = following, None
         except (Stopped, ChildStartError) as exc:
-            self.close()
-            with db.write(self.conn):
-                for job in pending:
-                    jobs.release(self.conn, job.id, self.clock())
-                    outcomes[job.id] = JobOutcome.REQUEUED
+            self._abandon([current, following], outcomes)
             why = "daemon stopping" if isinstance(exc, Stopped) else str(exc)
-            log.info("run.requeued", reason=why, runs=len(pending))
-        return [outcomes.get(job.id, JobOutcome.REQUEUED) for job in batch]
+            requeued = sum(outcome is JobOutcome.REQUEUED for outcome in outcomes.values())
+            log.info("run.requeued", reason=why, runs=requeued)
+        except BaseException:
+            # A store that refuses the commit, or a fault of ours: the children finish first
+            # (no child is reused busy), and the next batch goes back to the queue untouched
+            # by the fault; the daemon handles the batch being committed (its jobs still
+            # ``measuring``: re-queued when the store takes writes, or marked failed).
+            self._settle_futures(following)
+            if following is not None:
+                with contextlib.suppress(Exception), db.write(self.conn):
+                    for job in following.waiting:
+                        jobs.release(self.conn, job.id, self.clock())
+            raise
+        return outcomes
+
+    def _start(self, started: _Measuring, committing: set[str]) -> None:
+        """Prepare every job of the batch (identity, hash, duplicate) and set its measuring
+        going in the children; ``committing``: the hashes of the batch not yet stored."""
+        config = started.config
+        # One process per run already uses the cores: no blocks inside each child. A lone run
+        # keeps them (a large run at the end of a burst is read on every core).
+        measuring_config = (
+            config
+            if len(started.batch) == 1
+            else replace(config, limits=replace(config.limits, workers=1))
+        )
+        ready: list[jobs.Job] = []
+        for job in started.batch:
+            if job.incomplete is not None:
+                result = ChildResult(None, "incomplete", job.incomplete)
+                started.ready.append((job, job.sha256, result))
+                continue
+            with structlog.contextvars.bound_contextvars(job_id=job.id, file=shown(job.path)):
+                prepared = self._prepare(job)
+            if isinstance(prepared, JobOutcome):
+                started.outcomes[job.id] = prepared
+            elif prepared in started.hashes or prepared in committing:
+                self._release(job)
+                started.outcomes[job.id] = JobOutcome.REQUEUED
+            else:
+                started.hashes.add(prepared)
+                started.ready.append((job, prepared, None))
+                ready.append(job)
+        started.futures = self._submit_many(measuring_config, ready)
+
+    def _measured(self, batch: _Measuring) -> list[tuple[jobs.Job, str | None, ChildResult]]:
+        """Wait for every child of ``batch``; its jobs with their results, in commit order."""
+        # Every child answers (or dies) before it is used again; result() then re-raises
+        # Stopped / ChildStartError.
+        wait(batch.futures.values())
+        results = [
+            (job, sha, result if result is not None else batch.futures[job.id].result())
+            for job, sha, result in batch.ready
+        ]
+        judged_at = datetime.fromtimestamp(self.clock(), UTC)
+        claimed = {job.id: i for i, job in enumerate(batch.batch)}
+
+        def order(item: tuple[jobs.Job, str | None, ChildResult]) -> tuple[datetime, int]:
+            job, _, result = item
+            run_file = RunFile(path=job.path, size=job.size, mtime_ns=job.mtime_ns)
+            return run_time(result.metrics, run_file, judged_at), claimed[job.id]
+
+        return sorted(results, key=order)
+
+    def _commit_all(
+        self, batch: _Measuring, results: list[tuple[jobs.Job, str | None, ChildResult]]
+    ) -> None:
+        for job, sha256, result in results:
+            with structlog.contextvars.bound_contextvars(job_id=job.id, file=shown(job.path)):
+                batch.outcomes[job.id] = self._commit(batch.config, job, sha256, result)
+                structlog.contextvars.unbind_contextvars("run_id")
+
+    def _abandon(self, batches: list[_Measuring | None], outcomes: dict[int, JobOutcome]) -> None:
+        """Stop: wait for the children, stop them, put every job not committed back."""
+        for batch in batches:
+            self._settle_futures(batch)
+        self.close()
+        with db.write(self.conn):
+            for batch in batches:
+                if batch is None:
+                    continue
+                for job in batch.waiting:
+                    jobs.release(self.conn, job.id, self.clock())
+                    batch.outcomes[job.id] = JobOutcome.REQUEUED
+                outcomes.update(batch.outcomes)
+
+    @staticmethod
+    def _settle_futures(batch: _Measuring | None) -> None:
+        if batch is not None:
+            wait(batch.futures.values())
 
     def _release(self, job: jobs.Job) -> None:
         with db.write(self.conn):
             jobs.release(self.conn, job.id, self.clock())
 
-    def _measure_many(self, config: Config, batch: list[jobs.Job]) -> dict[int, ChildResult]:
-        """Measure each job in its own child, all at once; job id -> result."""
+    def _submit_many(self, config: Config, batch: list[jobs.Job]) -> dict[int, Future[ChildResult]]:
+        """Start measuring each job in its own child, all at once; job id -> its future."""
         if not batch:
             return {}
         while len(self.extra_children) < len(batch) - 1:
@@ -379,14 +480,10 @@ class Pipeline:
                 max_workers=MAX_MEASURING_THREADS, thread_name_prefix="measure"
             )
         pool = self._measuring_threads
-        futures = {
+        return {
             job.id: pool.submit(self._measure_logged, config, job, child)
             for job, child in zip(batch, children, strict=False)
         }
-        # Every child answers (or dies) before the batch goes on, so that no child is still
-        # busy when the next batch takes it; result() then re-raises Stopped / ChildStartError.
-        wait(futures.values())
-        return {job_id: future.result() for job_id, future in futures.items()}
 
     def process(self, job: jobs.Job) -> JobOutcome:
         """Take a claimed job to ``done`` (back to ``queued`` when stopping); returns outcome."""
