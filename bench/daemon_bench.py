@@ -10,7 +10,9 @@ would, and measures from the outside:
   an empty folder with inotify (target under 1 % of one core);
 * burst: ``--burst`` small runs dropped at once; seconds until all are judged and peak RSS
   (VmHWM) of the daemon and of its children, with one measuring child (``burst_1_worker``)
-  and with ``limits.workers``' default (one child per core, at most 4).
+  and with ``limits.workers``' default (one child per core, at most 4); and the rate in each
+  quarter of the burst, from the runs' ``judged_at`` (the first quarter shares the cores with
+  the files still arriving).
 
 Usage: ``.venv/bin/python bench/daemon_bench.py [--idle-s 60] [--burst 1000] [--latency-runs 10]``
 """
@@ -27,6 +29,7 @@ import subprocess
 import sys
 import tempfile
 import time
+from datetime import datetime
 from pathlib import Path
 
 REPO = Path(__file__).resolve().parents[1]
@@ -250,7 +253,20 @@ def bench_burst(
     rows = conn.execute(
         "SELECT count(*), count(DISTINCT path) FROM runs WHERE file_name LIKE '%_burst%'"
     ).fetchone()
+    # The rate per quarter of the burst, from when each run was judged: the first quarter
+    # shares the cores with the files still arriving, the later ones show the steady state.
+    judged_s = [
+        datetime.fromisoformat(row[0]).timestamp()
+        for row in conn.execute(
+            "SELECT judged_at FROM runs WHERE file_name LIKE '%_burst%' ORDER BY run_id"
+        )
+    ]
     conn.close()
+    quarters = {}
+    for q in range(4):
+        first, last = q * (n - 1) // 4, (q + 1) * (n - 1) // 4
+        span_s = judged_s[last] - judged_s[first]
+        quarters[f"q{q + 1}_runs_per_s"] = (last - first) / span_s if span_s > 0 else 0.0
     _stop(proc)
     return {
         "files": n,
@@ -261,6 +277,7 @@ def bench_burst(
         "distinct_paths": rows[1],
         "peak_rss_daemon_mb": peak_daemon,
         "peak_rss_child_mb": peak_child,
+        **quarters,
     }
 
 
