@@ -9,8 +9,8 @@ not move by one ulp for it.
 from __future__ import annotations
 
 import math
-import sys
 import subprocess
+import sys
 
 import numpy as np
 import pytest
@@ -50,8 +50,10 @@ def test_percentile_equals_numpy_percentile(q: float) -> None:
 @pytest.mark.parametrize("values", [[1.0, math.nan], [math.nan], [math.nan, 3.0, 2.0]])
 def test_nan_gives_nan_as_numpy_does(values: list[float]) -> None:
     arr = np.asarray(values)
-    assert math.isnan(robust.median_of(arr)) and math.isnan(float(np.median(arr)))
-    assert math.isnan(robust.quantile_of(arr, 0.3)) and math.isnan(float(np.quantile(arr, 0.3)))
+    assert math.isnan(robust.median_of(arr))
+    assert math.isnan(float(np.median(arr)))
+    assert math.isnan(robust.quantile_of(arr, 0.3))
+    assert math.isnan(float(np.quantile(arr, 0.3)))
 
 
 def test_measuring_a_run_does_not_import_numpy_ma() -> None:
