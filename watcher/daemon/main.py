@@ -643,6 +643,8 @@ class Daemon:
                     pipeline.process_burst(
                         batch, lambda: self._claim_batch(pipeline), on_batch=self._mark_busy
                     )
+                    if pipeline.child_failed and not self.stop_event.is_set():
+                        self.stop_event.wait(5.0)  # no spin on a child that does not start
             except sqlite3.Error as exc:
                 # The run's commit (or any write of the job) was refused: nothing of it is
                 # stored, so it is measured again once the store takes writes.

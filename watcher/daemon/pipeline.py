@@ -297,6 +297,7 @@ class Pipeline:
     # Every job claimed in the burst being processed (process_burst): after a fault, the
     # daemon marks those still ``measuring`` failed.
     burst_jobs: list[jobs.Job] = field(default_factory=list)
+    child_failed: bool = False  # the last burst ended because a measuring child did not start
     # Called after each run's commit: the central publisher's wake-up (None: no central store).
     after_commit: Callable[[], None] | None = None
     health_failing: bool = False  # the last try at the owed health lines failed
@@ -350,6 +351,7 @@ class Pipeline:
         following: _Measuring | None = None
         outcomes: dict[int, JobOutcome] = {}
         self.burst_jobs = list(first)
+        self.child_failed = False
         try:
             if on_batch is not None:
                 on_batch(first)
@@ -371,6 +373,7 @@ class Pipeline:
                 current, following = following, None
         except (Stopped, ChildStartError) as exc:
             self._abandon([current, following], outcomes)
+            self.child_failed = isinstance(exc, ChildStartError)
             why = "daemon stopping" if isinstance(exc, Stopped) else str(exc)
             requeued = sum(outcome is JobOutcome.REQUEUED for outcome in outcomes.values())
             log.info("run.requeued", reason=why, runs=requeued)
