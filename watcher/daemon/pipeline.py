@@ -335,9 +335,9 @@ class Pipeline:
         judging reads the history the earlier runs wrote, so it and the final transaction stay
         one at a time: batch after batch in claim order, each in order of acquisition time
         (then claim order), so baselines and alert sequences come out as if the runs had been
-        taken one by one. The children of a batch are done when its commits start, so they
-        measure the next batch (claimed then) while this thread judges and stores the runs they
-        measured: the cores that a barrier per batch left idle by turns all work.
+        taken one by one. The next batch is claimed and hashed while the children measure this
+        one, and measured while this thread judges and stores this one: the cores that a
+        barrier per batch left idle by turns all work.
 
         A job whose content hash equals another's in its batch, or in the batch being
         committed, goes back to the queue, to be linked to it as a duplicate when claimed again.
@@ -356,9 +356,11 @@ class Pipeline:
             if on_batch is not None:
                 on_batch(first)
             current = _Measuring(batch=first, config=self.config)
-            self._start(current, set())
+            self._prepare_all(current, set())
+            self._submit(current)
             while current is not None:
-                results = self._measured(current)
+                # While the children measure this batch: claim and hash the next one, so that
+                # they start on it the moment they are free.
                 following = None
                 if not self.stop.is_set():
                     batch = claim()
@@ -367,7 +369,11 @@ class Pipeline:
                         if on_batch is not None:
                             on_batch([*current.waiting, *batch])
                         following = _Measuring(batch=batch, config=self.config)
-                        self._start(following, current.hashes)
+                        self._prepare_all(following, current.hashes)
+                results = self._measured(current)
+                if following is not None:
+                    self._submit(following)
+                # ... and they measure it while this thread judges and stores this one.
                 self._commit_all(current, results)
                 outcomes.update(current.outcomes)
                 current, following = following, None
@@ -390,18 +396,9 @@ class Pipeline:
             raise
         return outcomes
 
-    def _start(self, started: _Measuring, committing: set[str]) -> None:
-        """Prepare every job of the batch (identity, hash, duplicate) and set its measuring
-        going in the children; ``committing``: the hashes of the batch not yet stored."""
-        config = started.config
-        # One process per run already uses the cores: no blocks inside each child. A lone run
-        # keeps them (a large run at the end of a burst is read on every core).
-        measuring_config = (
-            config
-            if len(started.batch) == 1
-            else replace(config, limits=replace(config.limits, workers=1))
-        )
-        ready: list[jobs.Job] = []
+    def _prepare_all(self, started: _Measuring, committing: set[str]) -> None:
+        """Prepare every job of the batch (identity, hash, duplicate); ``committing``: the
+        hashes of the batch not yet stored."""
         for job in started.batch:
             if job.incomplete is not None:
                 result = ChildResult(None, "incomplete", job.incomplete)
@@ -417,8 +414,16 @@ class Pipeline:
             else:
                 started.hashes.add(prepared)
                 started.ready.append((job, prepared, None))
-                ready.append(job)
-        started.futures = self._submit_many(measuring_config, ready)
+
+    def _submit(self, started: _Measuring) -> None:
+        """Set the measuring of the prepared jobs going, one child each."""
+        config = started.config
+        # One process per run already uses the cores: no blocks inside each child. A lone run
+        # keeps them (a large run at the end of a burst is read on every core).
+        if len(started.batch) > 1:
+            config = replace(config, limits=replace(config.limits, workers=1))
+        waiting = [job for job, _, result in started.ready if result is None]
+        started.futures = self._submit_many(config, waiting)
 
     def _measured(self, batch: _Measuring) -> list[tuple[jobs.Job, str | None, ChildResult]]:
         """Wait for every child of ``batch``; its jobs with their results, in commit order."""
