@@ -53,6 +53,8 @@ def quantile_of(arr: FloatArray, q: float) -> float:
     interpolation is numpy's ``_lerp``: from the lower value for a fraction under 0.5, from the
     upper one above, which keeps the result monotonic and exact at the ends.
     """
+    if not 0.0 <= q <= 1.0:
+        raise ValueError(f"quantile {q!r} is outside [0, 1]")  # as np.quantile refuses it
     ordered = np.sort(arr)
     n = ordered.size
     if math.isnan(ordered[-1]):
