@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import functools
 import gzip
-from importlib import resources
 from typing import Any
 
 COMPRESSION_PARENT = "MS:1000572"  # binary data compression type
@@ -31,6 +30,10 @@ def load_cv() -> Any:
     shows up as a ResourceWarning), with remote fetching off for any later psims use.
     """
     disable_remote()
+    # Here, not at the top: importlib.resources brings tempfile and zipfile (about 2 ms), and
+    # most runs never need the vocabulary.
+    from importlib import resources
+
     from psims.controlled_vocabulary.controlled_vocabulary import ControlledVocabulary
 
     bundled = resources.files("psims.controlled_vocabulary.vendor") / "psi-ms.obo.gz"
