@@ -247,3 +247,33 @@ def test_a_store_that_refuses_writes_at_start_up_is_waited_for(
     assert "writable again" in str(bodies[1]["title"])
     assert d2.stop() == 0
     assert lab.runs_by_name() == {"QC_1.mzML": 1, "QC_2.mzML": 1}
+
+
+def test_a_store_that_refuses_writes_in_a_burst_loses_and_repeats_nothing(lab: Lab) -> None:
+    """Two workers, 40 runs: the store refuses every write for 2 s while batches are being
+    measured, claimed and committed (a commit, a claim or a duplicate check fails, with the
+    next batch's children at work). Once writes work again every run is judged exactly once,
+    none is failed or unreadable, and the daemon is still up."""
+    count = 40
+    names = [f"S{i:02d}.mzML" for i in range(count)]
+    for i, name in enumerate(names):
+        lab.drop(name, 100 + i)
+    lab.write_config(limits={"workers": 2})
+    d = lab.start()
+    wait_for(lambda: len(lab.runs()) >= 4, 60, "a few judged runs")
+    set_file_size_limit(d.proc.pid, 0)
+    try:
+        wait_for(
+            lambda: any("STATUS=state store not writable" in m for m in d.notes()),
+            60,
+            "the STATUS= line saying the store is not writable",
+        )
+        time.sleep(2.0)
+        assert d.proc.poll() is None
+    finally:
+        set_file_size_limit(d.proc.pid, resource.RLIM_INFINITY)
+    lab.wait_runs(count, timeout_s=120)
+    assert lab.runs_by_name() == dict.fromkeys(names, 1)
+    assert {status for _, status, _ in lab.runs()} <= {"ok", "notice", "warning", "critical"}
+    assert {state for _, state, _ in lab.jobs()} == {"done"}
+    assert d.stop() == 0

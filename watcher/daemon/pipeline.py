@@ -384,10 +384,12 @@ class Pipeline:
             requeued = sum(outcome is JobOutcome.REQUEUED for outcome in outcomes.values())
             log.info("run.requeued", reason=why, runs=requeued)
         except BaseException:
-            # A store that refuses the commit, or a fault of ours: the children finish first
-            # (no child is reused busy), and the next batch goes back to the queue untouched
-            # by the fault; the daemon handles the batch being committed (its jobs still
-            # ``measuring``: re-queued when the store takes writes, or marked failed).
+            # A store that refuses the commit or the next claim, or a fault of ours: the
+            # children finish first (no child is reused busy: the claim comes while they
+            # measure), and the next batch goes back to the queue untouched by the fault; the
+            # daemon handles the batch in hand (its jobs still ``measuring``: re-queued when
+            # the store takes writes, or marked failed).
+            self._settle_futures(current)
             self._settle_futures(following)
             if following is not None:
                 with contextlib.suppress(Exception), db.write(self.conn):
