@@ -18,11 +18,19 @@ from tests.helpers.wait import wait_for
 if TYPE_CHECKING:
     from pathlib import Path
 
-    from tests.helpers.daemon import Lab
+    from tests.helpers.daemon import Daemon, Lab
     from tests.helpers.receiver import Receiver
 
 ODD_NAME = b"latin1_\xe9\xff.mzML"  # Latin-1 bytes, as a share written by another system has them
 ODD_SHOWN = "latin1_\\xe9\\xff.mzML"  # how logs, the health log and status show it
+
+
+def _wait_store_refused(d: Daemon) -> None:
+    wait_for(
+        lambda: any("STATUS=state store not writable" in m for m in d.notes()),
+        60,
+        "the STATUS= line saying the store is not writable",
+    )
 
 
 def test_a_name_that_is_not_utf8_is_judged_and_the_daemon_restarts(lab: Lab) -> None:
@@ -190,11 +198,7 @@ def test_a_store_that_refuses_writes_is_reported_retried_and_recovered(
     set_file_size_limit(d.proc.pid, 0)
     try:
         # Nothing else writes while the run is measured: this STATUS= is the refused commit.
-        wait_for(
-            lambda: any("STATUS=state store not writable" in m for m in d.notes()),
-            60,
-            "the STATUS= line saying the store is not writable",
-        )
+        _wait_store_refused(d)
         (alert,) = receiver.wait_for(1, timeout_s=20)
         assert "state store not writable" in str(alert["title"])
         lab.drop("QC_during.mzML", 2)  # settles, and cannot be queued
@@ -263,11 +267,7 @@ def test_a_store_that_refuses_writes_in_a_burst_loses_and_repeats_nothing(lab: L
     wait_for(lambda: len(lab.runs()) >= 4, 60, "a few judged runs")
     set_file_size_limit(d.proc.pid, 0)
     try:
-        wait_for(
-            lambda: any("STATUS=state store not writable" in m for m in d.notes()),
-            60,
-            "the STATUS= line saying the store is not writable",
-        )
+        _wait_store_refused(d)
         time.sleep(2.0)
         assert d.proc.poll() is None
     finally:

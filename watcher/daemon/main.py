@@ -630,10 +630,10 @@ class Daemon:
                 continue
             job = batch[0]
             pipeline.burst_jobs = []
-            self._mark_busy(batch)
             try:
                 if len(batch) == 1:
                     # A lone run is claimed alone, so it may be read in blocks on every core.
+                    self._mark_busy(batch)
                     outcome = pipeline.process(job)
                     if outcome is JobOutcome.REQUEUED and not self.stop_event.is_set():
                         self.stop_event.wait(5.0)  # no spin on a child that does not start
